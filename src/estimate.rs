@@ -1,0 +1,156 @@
+//! The coil-current estimate and its exact per-period update.
+//!
+//! Each segment of constant drive follows `i(t) = A + (i0 − A)·e^(−t/τ)`, written as
+//! `i' = i0 + (A − i0)·E(t/τ)` with `E(x) = 1 − e^(−x)` from the model's tables. A period of
+//! duty `n` (of `N` counts) is an on-segment of `n·T/N` then an off-segment of `(N − n)·T/N`; a
+//! current that reaches zero in the off-segment stays there (the clamp paths block reverse
+//! current), which is exactly what clamping the result at zero does.
+//!
+//! # Cost and contract
+//! Integers only, no division: two table evaluations (at most three u32×u32 products each), two
+//! scalings (two products each) and the two supply gains. The error contract is in the crate
+//! documentation (see `DEVELOPERS.md`, "Numerical contract").
+//!
+//! # Panics
+//! None. The supply is clamped to twice the validated maximum, so both asymptotes lie within
+//! ±2⁶¹ raw; the state stays between its old value and an asymptote, so it too stays within
+//! that range, and every difference fed to the scaling is at most 2⁶² in magnitude.
+
+use crate::model::Model;
+use crate::qmath::{Decay, scale};
+use crate::units::{Current, Volts};
+
+/// Per-channel state of the estimator: the coil current at the start of the next period.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct CoilState {
+    current: Current,
+}
+
+impl CoilState {
+    /// A coil known to carry no current.
+    pub const fn idle() -> Self {
+        Self {
+            current: Current::ZERO,
+        }
+    }
+
+    /// A coil known to carry `current` (clamped to 0 ..= [`Current::LIMIT`]).
+    pub const fn with_current(current: Current) -> Self {
+        Self {
+            current: Current::from_bits(current.working_bits()),
+        }
+    }
+
+    /// The estimated coil current now.
+    pub const fn current(&self) -> Current {
+        self.current
+    }
+}
+
+/// What the estimator says about one period (or one event segment).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct PeriodEstimate {
+    /// Current at the start.
+    pub start: Current,
+    /// Highest current in the period (the end of the on-segment when the current rises).
+    pub peak: Current,
+    /// Lowest current in the period.
+    pub valley: Current,
+    /// Current at the end (the start of the next period).
+    pub end: Current,
+}
+
+/// One exact segment toward asymptote `a`, stopping at zero.
+#[inline(always)]
+fn segment(i: i64, a: i64, e: Decay) -> i64 {
+    let next = i + scale(a - i, e);
+    if next < 0 { 0 } else { next }
+}
+
+impl PeriodEstimate {
+    #[inline(always)]
+    fn of(i0: i64, i1: i64, i2: i64) -> Self {
+        // Each segment is monotonic, so the extremes are among the three corner values.
+        Self {
+            start: Current::from_bits(i0),
+            peak: Current::from_bits(i0.max(i1).max(i2)),
+            valley: Current::from_bits(i0.min(i1).min(i2)),
+            end: Current::from_bits(i2),
+        }
+    }
+}
+
+impl Model {
+    /// Advances `state` over one control period in which duty `duty` (counts, clamped to the
+    /// duty resolution) was applied, with the measured supply `supply`.
+    ///
+    /// Edge-aligned: on for `duty·T/N` from the start of the period, then off.
+    ///
+    /// ```
+    /// use coilward::{ClampPath, CoilParams, CoilState, ControlParams, Params, SupplyParams,
+    ///                SwitchParams, Volts};
+    /// // A demo coil: 100 mH, 10 Ω, 12 V, diode freewheel, 20 kHz PWM with 1000 counts.
+    /// let p = Params::new(
+    ///     SupplyParams::new(12.0, 10.0, 14.0),
+    ///     CoilParams::new(0.1, 10.0),
+    ///     SwitchParams::new(0.05, 60.0),
+    ///     ClampPath::Freewheel { forward_drop: 0.7, resistance: 0.0 },
+    ///     ControlParams::new(50e-6, 1000, 2.0),
+    /// );
+    /// let model = p.validate()?;
+    /// let mut coil = CoilState::idle();
+    /// let mut last = None;
+    /// for _ in 0..20_000 {
+    ///     last = Some(model.step(&mut coil, 500, Volts::from_num(12)));
+    /// }
+    /// let amps = model.amps(coil.current());
+    /// // Half duty settles near (0.5·12 − 0.5·0.7)/(10 + 0.5·0.05) = 0.5636 A.
+    /// assert!((amps - 0.5636).abs() < 0.001);
+    /// let period = last.unwrap();
+    /// assert!(period.peak > period.valley);
+    /// # Ok::<(), coilward::ConfigError>(())
+    /// ```
+    pub fn step(&self, state: &mut CoilState, duty: u32, supply: Volts) -> PeriodEstimate {
+        let vs = self.supply(supply);
+        let n = if duty > self.duty_full {
+            self.duty_full
+        } else {
+            duty
+        };
+        let i0 = state.current.to_bits();
+        let i1 = segment(i0, self.on_asymptote(vs), self.on_duty.eval(n));
+        // n <= duty_full, so the subtraction cannot wrap.
+        let i2 = segment(
+            i1,
+            self.off_asymptote(vs),
+            self.off_duty.eval(self.duty_full - n),
+        );
+        state.current = Current::from_bits(i2);
+        PeriodEstimate::of(i0, i1, i2)
+    }
+
+    /// Advances `state` by `micros` microseconds with the switch held on (`on`) or off, for loads
+    /// switched on events timed by a free-running timer. Exact for any span up to 2³² − 1 µs.
+    ///
+    /// For a timer that wraps, pass the wrapping difference of two readings
+    /// (`now.wrapping_sub(then)`).
+    pub fn advance(
+        &self,
+        state: &mut CoilState,
+        on: bool,
+        micros: u32,
+        supply: Volts,
+    ) -> PeriodEstimate {
+        let vs = self.supply(supply);
+        let i0 = state.current.to_bits();
+        let i1 = if on {
+            segment(i0, self.on_asymptote(vs), self.on_event.eval(micros))
+        } else {
+            segment(i0, self.off_asymptote(vs), self.off_event.eval(micros))
+        };
+        state.current = Current::from_bits(i1);
+        PeriodEstimate::of(i0, i1, i1)
+    }
+}

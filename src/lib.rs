@@ -1,0 +1,42 @@
+#![doc = include_str!("../README.md")]
+#![no_std]
+#![forbid(unsafe_code)]
+#![deny(missing_docs)]
+#![warn(clippy::pedantic)]
+#![allow(
+    clippy::cast_possible_truncation,
+    clippy::cast_possible_wrap,
+    clippy::cast_sign_loss,
+    clippy::cast_precision_loss,
+    clippy::cast_lossless,
+    clippy::many_single_char_names,
+    clippy::similar_names,
+    clippy::too_many_lines,
+    clippy::module_name_repetitions,
+    clippy::unreadable_literal,
+    clippy::doc_markdown,
+    // Getters and conversions return plain values; marking each one adds noise, not safety.
+    clippy::must_use_candidate,
+    // Used on the two tiny per-segment helpers of the tick path, where a call would cost more
+    // than the body.
+    clippy::inline_always
+)]
+
+mod adc;
+mod clamp;
+mod estimate;
+mod model;
+mod params;
+mod qmath;
+mod steady;
+mod units;
+
+pub use adc::SupplySense;
+pub use estimate::{CoilState, PeriodEstimate};
+pub use model::{Derived, Model, PathKind};
+pub use params::{
+    COPPER_TEMPERATURE_COEFFICIENT, ClampPath, CoilParams, ConfigError, Conflict, ControlParams,
+    Field, Params, Problem, SupplyParams, SwitchParams,
+};
+pub use steady::SteadyState;
+pub use units::{Current, Energy, Volts};

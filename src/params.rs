@@ -1,0 +1,449 @@
+//! SI parameters of the drive, and the error that names what is wrong with them.
+//!
+//! Everything here is `f32` in SI units (volts, ohms, henries, seconds, amperes, kelvin/°C) and
+//! exists at configuration time only. [`Params::validate`] checks every field once and turns the
+//! set into an immutable fixed-point [`Model`](crate::Model); after that, nothing in the per-tick
+//! path can fail.
+//!
+//! # Validation order
+//! Fields are checked one by one in declaration order (supply, coil, switch, clamp, control),
+//! then the relations between them. The first problem found is returned, naming its field.
+//!
+//! # Panics
+//! Nothing in this module panics, whatever the input: NaN, ±∞, subnormal, zero, negative and huge
+//! values are all answered with a [`ConfigError`].
+
+use core::fmt;
+
+/// Temperature coefficient of resistance of annealed copper at 20 °C, per kelvin.
+///
+/// IEC 60028 (international standard of resistance for copper), α20 = 0.00393 /K.
+pub const COPPER_TEMPERATURE_COEFFICIENT: f32 = 0.003_93;
+
+/// The supply that feeds the coil (the high side of the coil; the switch is on the low side).
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub struct SupplyParams {
+    /// Nominal supply voltage, V. Range 0.1 ..= 1000.
+    pub nominal: f32,
+    /// Lowest supply the drive is specified for, V. Range 0 ..= `nominal`.
+    pub min: f32,
+    /// Highest supply the drive is specified for, V. Range `nominal` ..= 1000.
+    pub max: f32,
+}
+
+impl SupplyParams {
+    /// A supply with its nominal, minimum and maximum voltages (V).
+    pub const fn new(nominal: f32, min: f32, max: f32) -> Self {
+        Self { nominal, min, max }
+    }
+}
+
+/// The coil (winding) being driven.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub struct CoilParams {
+    /// Inductance, H. Range 1 µH ..= 1000 H.
+    pub inductance: f32,
+    /// Winding resistance at [`reference_temperature`](Self::reference_temperature), Ω.
+    /// Range 1 mΩ ..= 100 kΩ.
+    pub resistance: f32,
+    /// Temperature at which `resistance` was measured, °C. Range −100 ..= 300.
+    pub reference_temperature: f32,
+    /// Temperature coefficient of resistance at the reference temperature, 1/K.
+    /// Range 0 ..= 0.02. Default: annealed copper, [`COPPER_TEMPERATURE_COEFFICIENT`].
+    pub temperature_coefficient: f32,
+    /// Winding temperature the model is built for, °C. Range −100 ..= 300.
+    /// Default: the reference temperature.
+    pub winding_temperature: f32,
+    /// Parasitic capacitance at the switch node (drain to ground), F, if known.
+    /// Range 1 fF ..= 1 mF. Used for the turn-off peak when nothing clamps the switch.
+    pub node_capacitance: Option<f32>,
+}
+
+impl CoilParams {
+    /// A copper coil of `inductance` (H) and `resistance` (Ω) measured at 20 °C, at 20 °C.
+    pub const fn new(inductance: f32, resistance: f32) -> Self {
+        Self {
+            inductance,
+            resistance,
+            reference_temperature: 20.0,
+            temperature_coefficient: COPPER_TEMPERATURE_COEFFICIENT,
+            winding_temperature: 20.0,
+            node_capacitance: None,
+        }
+    }
+
+    /// The same coil at another winding temperature (°C).
+    #[must_use]
+    pub const fn at_temperature(mut self, winding_temperature: f32) -> Self {
+        self.winding_temperature = winding_temperature;
+        self
+    }
+
+    /// Resistance at temperature `t` (°C): R(T) = R_ref · (1 + α · (T − T_ref)).
+    ///
+    /// The linear law of IEC 60028 for copper; it agrees with the (234.5 + T) ratio form to
+    /// better than 0.01 % over −40 ..= 155 °C.
+    pub fn resistance_at(&self, t: f32) -> f32 {
+        self.resistance * (1.0 + self.temperature_coefficient * (t - self.reference_temperature))
+    }
+}
+
+/// The low-side switch (a MOSFET).
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub struct SwitchParams {
+    /// On-resistance, Ω. Range 0 ..= 1 kΩ.
+    pub on_resistance: f32,
+    /// Drain-source breakdown (avalanche) voltage, V. Range 1 ..= 5000, above `supply.max`.
+    pub breakdown: f32,
+}
+
+impl SwitchParams {
+    /// A switch with its on-resistance (Ω) and breakdown voltage (V).
+    pub const fn new(on_resistance: f32, breakdown: f32) -> Self {
+        Self {
+            on_resistance,
+            breakdown,
+        }
+    }
+}
+
+/// The path that carries the coil current once the switch opens.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub enum ClampPath {
+    /// Nothing: the switch node rises until the switch avalanches at its breakdown voltage.
+    None,
+    /// A diode across the coil: drop `forward_drop` (V, 0 ..= 20) plus `resistance` (Ω, 0 ..= 10 k).
+    Freewheel {
+        /// Forward drop, V.
+        forward_drop: f32,
+        /// Series resistance of the path, Ω.
+        resistance: f32,
+    },
+    /// A diode in series with a zener across the coil (fast decay).
+    FreewheelZener {
+        /// Diode forward drop, V (0 ..= 20).
+        forward_drop: f32,
+        /// Zener voltage, V (0.1 ..= 5000).
+        zener_voltage: f32,
+        /// Series resistance of the path, Ω (0 ..= 10 k).
+        resistance: f32,
+    },
+    /// A zener or TVS across the switch (drain to ground), conducting at `clamp_voltage`.
+    SwitchClamp {
+        /// Clamp voltage, V (1 ..= 5000), above `supply.max` and at or below the breakdown.
+        clamp_voltage: f32,
+        /// Dynamic resistance of the clamp, Ω (0 ..= 10 k).
+        resistance: f32,
+    },
+}
+
+/// Control timing and the scale of the current estimate.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub struct ControlParams {
+    /// PWM period or control tick, s. Range 100 ns ..= 1 s.
+    pub period: f32,
+    /// Timer counts in one period: a duty of `duty_resolution` counts is 100 %. Range 1 ..= 65535.
+    pub duty_resolution: u32,
+    /// The current that the estimate's fixed-point format calls 1.0, A. Range 100 µA ..= 10 kA.
+    /// Pick the coil's rating or trip level; errors are quoted as a fraction of it.
+    pub current_full_scale: f32,
+}
+
+impl ControlParams {
+    /// Control with a period (s), duty resolution (counts) and full-scale current (A).
+    pub const fn new(period: f32, duty_resolution: u32, current_full_scale: f32) -> Self {
+        Self {
+            period,
+            duty_resolution,
+            current_full_scale,
+        }
+    }
+}
+
+/// The whole drive: supply, coil, switch, clamp path and control.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub struct Params {
+    /// The supply.
+    pub supply: SupplyParams,
+    /// The coil.
+    pub coil: CoilParams,
+    /// The switch.
+    pub switch: SwitchParams,
+    /// The turn-off path.
+    pub clamp: ClampPath,
+    /// Timing and scale.
+    pub control: ControlParams,
+}
+
+impl Params {
+    /// Gathers the parts into one parameter set (not yet validated).
+    pub const fn new(
+        supply: SupplyParams,
+        coil: CoilParams,
+        switch: SwitchParams,
+        clamp: ClampPath,
+        control: ControlParams,
+    ) -> Self {
+        Self {
+            supply,
+            coil,
+            switch,
+            clamp,
+            control,
+        }
+    }
+
+    /// Validates every field and builds the fixed-point model.
+    ///
+    /// # Errors
+    /// The first problem found, naming its [`Field`].
+    pub fn validate(&self) -> Result<crate::Model, ConfigError> {
+        crate::Model::new(self)
+    }
+}
+
+/// A parameter field, named as `part.field` in messages.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub enum Field {
+    /// `supply.nominal`
+    SupplyNominal,
+    /// `supply.min`
+    SupplyMin,
+    /// `supply.max`
+    SupplyMax,
+    /// `coil.inductance`
+    CoilInductance,
+    /// `coil.resistance`
+    CoilResistance,
+    /// `coil.reference_temperature`
+    CoilReferenceTemperature,
+    /// `coil.temperature_coefficient`
+    CoilTemperatureCoefficient,
+    /// `coil.winding_temperature`
+    CoilWindingTemperature,
+    /// `coil.node_capacitance`
+    CoilNodeCapacitance,
+    /// `switch.on_resistance`
+    SwitchOnResistance,
+    /// `switch.breakdown`
+    SwitchBreakdown,
+    /// `clamp.forward_drop`
+    ClampForwardDrop,
+    /// `clamp.zener_voltage`
+    ClampZenerVoltage,
+    /// `clamp.clamp_voltage`
+    ClampVoltage,
+    /// `clamp.resistance`
+    ClampResistance,
+    /// `control.period`
+    ControlPeriod,
+    /// `control.duty_resolution`
+    ControlDutyResolution,
+    /// `control.current_full_scale`
+    ControlCurrentFullScale,
+    /// `adc.volts_per_count` (of [`SupplySense`](crate::SupplySense))
+    AdcVoltsPerCount,
+    /// `adc.offset` (of [`SupplySense`](crate::SupplySense))
+    AdcOffset,
+}
+
+impl Field {
+    /// The field's name as `part.field`, e.g. `"coil.inductance"`.
+    pub const fn name(self) -> &'static str {
+        match self {
+            Field::SupplyNominal => "supply.nominal",
+            Field::SupplyMin => "supply.min",
+            Field::SupplyMax => "supply.max",
+            Field::CoilInductance => "coil.inductance",
+            Field::CoilResistance => "coil.resistance",
+            Field::CoilReferenceTemperature => "coil.reference_temperature",
+            Field::CoilTemperatureCoefficient => "coil.temperature_coefficient",
+            Field::CoilWindingTemperature => "coil.winding_temperature",
+            Field::CoilNodeCapacitance => "coil.node_capacitance",
+            Field::SwitchOnResistance => "switch.on_resistance",
+            Field::SwitchBreakdown => "switch.breakdown",
+            Field::ClampForwardDrop => "clamp.forward_drop",
+            Field::ClampZenerVoltage => "clamp.zener_voltage",
+            Field::ClampVoltage => "clamp.clamp_voltage",
+            Field::ClampResistance => "clamp.resistance",
+            Field::ControlPeriod => "control.period",
+            Field::ControlDutyResolution => "control.duty_resolution",
+            Field::ControlCurrentFullScale => "control.current_full_scale",
+            Field::AdcVoltsPerCount => "adc.volts_per_count",
+            Field::AdcOffset => "adc.offset",
+        }
+    }
+}
+
+/// What is wrong with a field.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub enum Problem {
+    /// NaN or ±∞.
+    NotFinite,
+    /// Zero or negative where only a positive value makes sense.
+    NotPositive,
+    /// Negative where zero or more is required.
+    Negative,
+    /// Finite, of the right sign, but outside the documented range (this includes subnormal
+    /// values: no physical parameter of a drive is 10⁻³⁸ of its unit).
+    OutOfRange {
+        /// Lowest accepted value.
+        min: f32,
+        /// Highest accepted value.
+        max: f32,
+    },
+    /// In range by itself, but inconsistent with the other parameters.
+    Conflict(Conflict),
+}
+
+/// Ways parameters can contradict each other.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub enum Conflict {
+    /// `supply.min` is above `supply.nominal`.
+    MinAboveNominal,
+    /// `supply.max` is below `supply.nominal`.
+    MaxBelowNominal,
+    /// The switch breakdown is at or below the maximum supply: the switch cannot block it.
+    BreakdownNotAboveSupply,
+    /// A clamp across the switch at or below the maximum supply would conduct with the switch off.
+    ClampNotAboveSupply,
+    /// The clamp (with its resistance, at full-scale current) reaches the switch breakdown, so the
+    /// switch would avalanche in parallel with it.
+    ClampAboveBreakdown,
+    /// With a freewheel path the switch node rises to supply + path drop; at maximum supply and
+    /// full-scale current that reaches the switch breakdown.
+    FreewheelReachesBreakdown,
+    /// The winding resistance corrected to `coil.winding_temperature` leaves 1 mΩ ..= 100 kΩ.
+    ResistanceAtTemperature,
+    /// A time constant L/R of the on or off circuit is outside 1 µs ..= 100 s.
+    TimeConstantOutOfRange,
+    /// The period is shorter than 2⁻²⁴ of the longest time constant: the change over one period
+    /// is too small for the current format to resolve (see the numerical contract).
+    PeriodTooShort,
+    /// A steady current the coil can reach (at up to twice the maximum supply) exceeds 2²¹ times
+    /// the full scale, beyond the current format's headroom.
+    FullScaleTooSmall,
+}
+
+/// A parameter was refused: which one, and why.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub struct ConfigError {
+    /// The offending field.
+    pub field: Field,
+    /// What is wrong with it.
+    pub problem: Problem,
+}
+
+impl ConfigError {
+    pub(crate) const fn new(field: Field, problem: Problem) -> Self {
+        Self { field, problem }
+    }
+
+    pub(crate) const fn conflict(field: Field, conflict: Conflict) -> Self {
+        Self::new(field, Problem::Conflict(conflict))
+    }
+}
+
+impl fmt::Display for Conflict {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(match self {
+            Conflict::MinAboveNominal => "minimum supply is above the nominal supply",
+            Conflict::MaxBelowNominal => "maximum supply is below the nominal supply",
+            Conflict::BreakdownNotAboveSupply => {
+                "switch breakdown is at or below the maximum supply"
+            }
+            Conflict::ClampNotAboveSupply => {
+                "clamp voltage is at or below the maximum supply, so it would conduct with the switch off"
+            }
+            Conflict::ClampAboveBreakdown => {
+                "clamp voltage (plus its resistance at full-scale current) reaches the switch breakdown"
+            }
+            Conflict::FreewheelReachesBreakdown => {
+                "maximum supply plus the freewheel path drop at full-scale current reaches the switch breakdown"
+            }
+            Conflict::ResistanceAtTemperature => {
+                "resistance corrected to the winding temperature leaves 1 mOhm ..= 100 kOhm"
+            }
+            Conflict::TimeConstantOutOfRange => {
+                "an L/R time constant of the on or off circuit is outside 1 us ..= 100 s"
+            }
+            Conflict::PeriodTooShort => {
+                "period is shorter than 2^-24 of the longest time constant, too short for the current format"
+            }
+            Conflict::FullScaleTooSmall => {
+                "a reachable steady current exceeds 2^21 times the full scale"
+            }
+        })
+    }
+}
+
+impl fmt::Display for ConfigError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{}: ", self.field.name())?;
+        match self.problem {
+            Problem::NotFinite => f.write_str("not a finite number"),
+            Problem::NotPositive => f.write_str("must be greater than zero"),
+            Problem::Negative => f.write_str("must not be negative"),
+            Problem::OutOfRange { min, max } => write!(f, "outside {min} ..= {max}"),
+            Problem::Conflict(c) => write!(f, "{c}"),
+        }
+    }
+}
+
+impl core::error::Error for ConfigError {}
+
+/// A value in `min ..= max` (`min > 0`): finite, positive, normal, in range.
+pub(crate) fn positive(field: Field, v: f32, min: f32, max: f32) -> Result<f32, ConfigError> {
+    if !v.is_finite() {
+        return Err(ConfigError::new(field, Problem::NotFinite));
+    }
+    if v <= 0.0 {
+        return Err(ConfigError::new(field, Problem::NotPositive));
+    }
+    if !v.is_normal() || v < min || v > max {
+        return Err(ConfigError::new(field, Problem::OutOfRange { min, max }));
+    }
+    Ok(v)
+}
+
+/// A value in `0 ..= max`: finite, not negative, zero or normal, in range.
+pub(crate) fn non_negative(field: Field, v: f32, max: f32) -> Result<f32, ConfigError> {
+    if !v.is_finite() {
+        return Err(ConfigError::new(field, Problem::NotFinite));
+    }
+    if v < 0.0 {
+        return Err(ConfigError::new(field, Problem::Negative));
+    }
+    if (v != 0.0 && !v.is_normal()) || v > max {
+        return Err(ConfigError::new(
+            field,
+            Problem::OutOfRange { min: 0.0, max },
+        ));
+    }
+    Ok(v)
+}
+
+/// A signed value in `min ..= max`: finite, zero or normal, in range.
+pub(crate) fn in_range(field: Field, v: f32, min: f32, max: f32) -> Result<f32, ConfigError> {
+    if !v.is_finite() {
+        return Err(ConfigError::new(field, Problem::NotFinite));
+    }
+    if (v != 0.0 && !v.is_normal()) || v < min || v > max {
+        return Err(ConfigError::new(field, Problem::OutOfRange { min, max }));
+    }
+    Ok(v)
+}

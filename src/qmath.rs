@@ -1,0 +1,575 @@
+//! Fixed-point kernels: the exponential step table, the binary logarithm and the series used by
+//! the closed forms. Integer arithmetic only; every shift and product is bounded as stated.
+//!
+//! # The decay factor `E(x) = 1 − e^(−x)`
+//! Every exact RL update is `i' = i + (A − i)·E(t/τ)`, with `A` the segment's asymptote. `E` is
+//! returned as a mantissa `m` (u32) and a shift `s`: `E = m · 2^−(32+s)`. Tables are built at
+//! configuration time (in f64, from f32 parameters) for one time unit `u` (one timer count, or
+//! one microsecond), in radix-16 digits: `T[d][j] = E(j·16^d·u)`. A runtime count `n` is
+//! evaluated by composing its digits with `E(a+b) = E(a) + E(b) − E(a)·E(b)`, from the most
+//! significant non-zero digit down, in that digit's scale.
+//!
+//! Scale of digit `d`: the largest `s` with `E(16^(d+1)·u)·2^s < 1`, so every value whose top
+//! digit is `d` has a mantissa below 2³² and at least 27 significant bits.
+//!
+//! Error: each table entry is within 2⁻³² of its scale (f64 → nearest u32); each composition adds
+//! under 2 units of the mantissa. The result has a relative error below 2⁻²⁴ for every `n`
+//! (measured by `tests/kernels.rs`, which also measures the bound).
+//!
+//! # Panics
+//! None: shifts use `checked_shr` (a shift past the width yields 0, the correct limit),
+//! additions saturate, and products are of u32 operands into u64 (which cannot overflow).
+
+/// Number of radix-16 digits for the duty tables (counts up to 65535).
+pub(crate) const DUTY_DIGITS: usize = 4;
+/// Number of radix-16 digits for the event tables (microseconds up to 2³² − 1).
+pub(crate) const EVENT_DIGITS: usize = 8;
+
+/// `E(x) = 1 − e^(−x)` as mantissa and shift: `E = m·2^−(32+s)`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) struct Decay {
+    pub(crate) m: u32,
+    pub(crate) s: u32,
+}
+
+impl Decay {
+    /// No decay (zero time).
+    pub(crate) const NONE: Decay = Decay { m: 0, s: 0 };
+
+    /// The value as f64 (tests and configuration only).
+    #[cfg(test)]
+    pub(crate) fn value(self) -> f64 {
+        f64::from(self.m) * libm::exp2(-(32.0 + f64::from(self.s)))
+    }
+}
+
+/// Table of `E(j·16^d·u)` for one time unit `u`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) struct DecayTable<const D: usize> {
+    m: [[u32; 16]; D],
+    s: [u32; D],
+}
+
+/// `E(x) = 1 − e^(−x)` in f64 without cancellation for small x.
+pub(crate) fn one_minus_exp_neg(x: f64) -> f64 {
+    -libm::expm1(-x)
+}
+
+impl<const D: usize> DecayTable<D> {
+    /// Builds the table for a time unit of `unit_over_tau` = u/τ (> 0, finite; validated).
+    pub(crate) fn new(unit_over_tau: f64) -> Self {
+        let mut m = [[0u32; 16]; D];
+        let mut s = [0u32; D];
+        let mut digit_unit = unit_over_tau;
+        for d in 0..D {
+            let top = one_minus_exp_neg(16.0 * digit_unit);
+            // Largest s with top·2^s < 1; s stays in 0..=62 for every validated parameter set.
+            let mut sd: i32 = if top >= 1.0 || top <= 0.0 {
+                0
+            } else {
+                libm::floor(-libm::log2(top)) as i32
+            };
+            while sd > 0 && top * libm::exp2(f64::from(sd)) >= 1.0 {
+                sd -= 1;
+            }
+            let sd = sd.clamp(0, 62);
+            s[d] = sd as u32;
+            let scale = libm::exp2(32.0 + f64::from(sd));
+            for (j, slot) in m[d].iter_mut().enumerate().skip(1) {
+                let v = libm::round(one_minus_exp_neg(j as f64 * digit_unit) * scale);
+                *slot = if v >= 4_294_967_295.0 {
+                    u32::MAX
+                } else {
+                    v as u32
+                };
+            }
+            digit_unit *= 16.0;
+        }
+        Self { m, s }
+    }
+
+    /// `E(n·u)` for a count `n` (`n < 16^D`; higher digits are ignored).
+    pub(crate) fn eval(&self, n: u32) -> Decay {
+        // Most significant non-zero digit.
+        let mut top = D;
+        while top > 0 && digit(n, top - 1) == 0 {
+            top -= 1;
+        }
+        if top == 0 {
+            return Decay::NONE;
+        }
+        let top = top - 1;
+        let s = self.s[top];
+        let mut acc = self.m[top][digit(n, top)];
+        let mut d = top;
+        while d > 0 {
+            d -= 1;
+            let j = digit(n, d);
+            if j == 0 {
+                continue;
+            }
+            let e = self.m[d][j];
+            let sd = self.s[d]; // sd >= s: lower digits have smaller values, larger scales.
+            let aligned = e.checked_shr(sd.saturating_sub(s)).unwrap_or(0);
+            // E_acc·E_d in scale s: acc·e·2^−(32+sd).
+            let prod = (u64::from(acc) * u64::from(e))
+                .checked_shr(32 + sd)
+                .unwrap_or(0);
+            let sum = u64::from(acc) + u64::from(aligned) - prod.min(u64::from(acc));
+            acc = sum.min(u64::from(u32::MAX)) as u32;
+        }
+        Decay { m: acc, s }
+    }
+}
+
+/// Radix-16 digit `d` of `n`.
+#[inline(always)]
+fn digit(n: u32, d: usize) -> usize {
+    // d < 8 for every table here, so the shift is below 32.
+    ((n >> (4 * (d as u32 & 7))) & 0xF) as usize
+}
+
+/// `d·E` rounded toward zero, for `|d| < 2⁶²` (the current format's validated range).
+///
+/// `|d|·m` is formed from two u32×u32 products, so no product can overflow.
+#[inline]
+pub(crate) fn scale(d: i64, e: Decay) -> i64 {
+    let mag = d.unsigned_abs();
+    let hi = mag >> 32;
+    let lo = mag & 0xFFFF_FFFF;
+    let m = u64::from(e.m);
+    // hi < 2^30 for |d| < 2^62, so hi·m < 2^62 and the sum cannot overflow.
+    let p = (hi * m).saturating_add((lo * m) >> 32);
+    let p = p.checked_shr(e.s).unwrap_or(0);
+    // p <= |d| < 2^62, so the cast is exact.
+    let p = p as i64;
+    if d < 0 { -p } else { p }
+}
+
+/// A positive constant gain in floating form: `g = m·2^sh` with `m` normalised to 31..32 bits.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) struct Gain {
+    m: u32,
+    sh: i32,
+}
+
+impl Gain {
+    /// Zero gain.
+    pub(crate) const ZERO: Gain = Gain { m: 0, sh: 0 };
+
+    /// Nearest representable gain to `g` (finite, >= 0).
+    pub(crate) fn new(g: f64) -> Self {
+        if g.is_nan() || g <= 0.0 || !g.is_finite() {
+            return Self::ZERO;
+        }
+        // g = frac·2^exp with frac in [0.5, 1): m = frac·2^32, sh = exp − 32.
+        let (frac, exp) = libm::frexp(g);
+        let mut m = libm::round(frac * 4_294_967_296.0);
+        let mut exp = exp;
+        if m >= 4_294_967_296.0 {
+            m /= 2.0;
+            exp += 1;
+        }
+        Self {
+            m: m as u32,
+            sh: exp - 32,
+        }
+    }
+
+    /// `x·g`, saturating at `u64::MAX` (validation keeps every real use far below it).
+    #[inline]
+    pub(crate) fn apply(self, x: u32) -> u64 {
+        let p = u64::from(x) * u64::from(self.m);
+        if self.sh >= 0 {
+            let sh = self.sh as u32;
+            if sh >= 64 || p.leading_zeros() < sh {
+                if p == 0 { 0 } else { u64::MAX }
+            } else {
+                p << sh
+            }
+        } else {
+            p.checked_shr(self.sh.unsigned_abs()).unwrap_or(0)
+        }
+    }
+
+    /// `x·g` for a wide operand (closed forms only, not the per-period step), saturating.
+    pub(crate) fn apply_wide(self, x: u64) -> u64 {
+        let p = u128::from(x) * u128::from(self.m);
+        let r = if self.sh >= 0 {
+            let sh = self.sh as u32;
+            if sh >= 128 || p.leading_zeros() < sh {
+                if p == 0 { 0 } else { u128::MAX }
+            } else {
+                p << sh
+            }
+        } else {
+            p.checked_shr(self.sh.unsigned_abs()).unwrap_or(0)
+        };
+        r.min(u128::from(u64::MAX)) as u64
+    }
+
+    /// The gain as f64 (tests).
+    #[cfg(test)]
+    pub(crate) fn value(self) -> f64 {
+        f64::from(self.m) * libm::exp2(f64::from(self.sh))
+    }
+}
+
+/// Fractional bits of [`log2`] results.
+pub(crate) const LOG_FRAC: u32 = 32;
+
+/// `log2(x)` in Q31.32 for `x >= 1`; `log2(0)` is returned as −64.
+///
+/// Mantissa normalised to Q1.31 (truncating), then 32 rounds of squaring, each yielding one
+/// fractional bit. Absolute error below 2⁻²⁹ (measured in `tests/kernels.rs`).
+pub(crate) fn log2(x: u64) -> i64 {
+    if x == 0 {
+        return -64i64 << LOG_FRAC;
+    }
+    // Not `ilog2`: that has a panic path for 0, which the early return above already handles.
+    #[allow(clippy::manual_ilog2)]
+    let msb = 63 - x.leading_zeros();
+    let mut m: u64 = if msb >= 31 {
+        x >> (msb - 31)
+    } else {
+        x << (31 - msb)
+    };
+    let mut frac: u64 = 0;
+    let mut bit = 1u64 << 31;
+    while bit != 0 {
+        // m < 2^32 (Q1.31 in [1, 2)), so m·m < 2^64.
+        m = (m * m) >> 31;
+        if m >= 1 << 32 {
+            m >>= 1;
+            frac |= bit;
+        }
+        bit >>= 1;
+    }
+    (i64::from(msb) << LOG_FRAC) | frac as i64
+}
+
+/// ln 2 in Q0.64.
+const LN2_Q64: u64 = 0xB172_17F7_D1CF_79AC;
+
+/// Natural logarithm of the ratio `x/y` (both > 0) in Q32.32, for `x >= y`; 0 otherwise.
+///
+/// `ln(x/y) = ln2·(log2 x − log2 y)`: no division. Absolute error below 2⁻²⁸.
+pub(crate) fn ln_ratio(x: u64, y: u64) -> u64 {
+    let d = log2(x) - log2(y);
+    if d <= 0 {
+        return 0;
+    }
+    ((u128::from(d as u64) * u128::from(LN2_Q64)) >> 64) as u64
+}
+
+/// `2^(−2^−k)` in Q1.63 for k = 1 ..= 32, by repeated integer square roots of 1/2
+/// (each truncated, so every entry is within 2 units of Q1.63 below the exact value).
+const EXP2_NEG: [u64; 32] = {
+    let mut t = [0u64; 32];
+    let mut c: u128 = (1u128 << 125).isqrt(); // √(1/2) in Q1.63
+    let mut k = 0;
+    while k < 32 {
+        t[k] = c as u64;
+        c = (c << 63).isqrt();
+        k += 1;
+    }
+    t
+};
+
+/// `2^(−y)` for `y` in Q32.32 (`y >= 0`) as `(m, sh)`: the value is `m·2^−(63+sh)`, with `m`
+/// in Q1.63 in (0.5, 1]. Relative error below 2⁻⁶⁰ beyond that of `y` itself.
+pub(crate) fn exp2_neg(y: u64) -> (u64, u32) {
+    let int = (y >> 32) as u32;
+    let frac = y as u32;
+    let mut m: u64 = 1 << 63;
+    let mut k = 0;
+    while k < 32 {
+        if frac & (1 << (31 - k)) != 0 {
+            // Both factors are at most 2^63, so the product fits u128 and the result u64.
+            m = ((u128::from(m) * u128::from(EXP2_NEG[k])) >> 63) as u64;
+        }
+        k += 1;
+    }
+    (m, int)
+}
+
+/// `2^z` for `z` in Q31.32 (either sign), rounded toward zero and saturating at `u64::MAX`.
+/// Relative error below 2⁻⁶⁰ beyond that of `z` itself (for results of 2⁶⁰ and above;
+/// smaller results are truncated to whole units).
+pub(crate) fn exp2(z: i64) -> u64 {
+    // 2^z = 2^c · 2^−(c − z) with c = ⌈z⌉, so the second factor is exp2_neg of a fraction.
+    let c = z.saturating_add((1 << 32) - 1) >> 32;
+    let (m, _) = exp2_neg(((c << 32) - z) as u64);
+    // m·2^(c − 63)
+    let e = c - 63;
+    if e >= 0 {
+        if e >= 64 || m.leading_zeros() < e as u32 {
+            u64::MAX
+        } else {
+            m << e
+        }
+    } else {
+        m.checked_shr((-e).min(64) as u32).unwrap_or(0)
+    }
+}
+
+/// Which series [`series`] builds.
+#[derive(Clone, Copy)]
+enum Series {
+    /// 2/n!
+    Psi,
+    /// 3·(2^(n−1) − 2)/n!
+    Chi,
+    /// 2/n (the alternating series φ1)
+    Phi1,
+    /// 3/n (the alternating series φ2)
+    Phi2,
+}
+
+/// Coefficients `c_k·2^62` of a power series in k = n − `start`, computed exactly in integers at
+/// compile time (a Q2.62 fraction divided by 2, 3, …, n in turn; the rounding is below 2⁻⁶⁰).
+const fn series<const N: usize>(kind: Series, start: u32) -> [u64; N] {
+    let mut out = [0u64; N];
+    let mut k = 0;
+    while k < N {
+        let n = start + k as u32;
+        let mut v: u128 = match kind {
+            Series::Psi => 2 << 62,
+            Series::Chi => (3 * ((1u128 << (n - 1)) - 2)) << 62,
+            Series::Phi1 => (2u128 << 62) / n as u128,
+            Series::Phi2 => (3u128 << 62) / n as u128,
+        };
+        if matches!(kind, Series::Psi | Series::Chi) {
+            let mut f = 2u32;
+            while f <= n {
+                v /= f as u128;
+                f += 1;
+            }
+        }
+        out[k] = v as u64;
+        k += 1;
+    }
+    out
+}
+
+/// ψ(λ) = 2·(e^λ − 1 − λ)/λ² = Σ_{k≥0} 2·λ^k/(k+2)!, coefficients in Q2.62.
+const PSI: [u64; 16] = series::<16>(Series::Psi, 2);
+/// χ(λ) = 3·(e^{2λ}/2 − 2e^λ + 3/2 + λ)/λ³ = Σ_{n≥3} 3(2^{n−1} − 2)/n!·λ^{n−3}, Q2.62.
+const CHI: [u64; 20] = series::<20>(Series::Chi, 3);
+
+/// φ1(u) = 2(u − ln(1+u))/u² = Σ_{k≥0} 2(−u)^k/(k+2), Q2.62.
+const PHI1: [u64; 24] = series::<24>(Series::Phi1, 2);
+/// φ2(u) = 3(u²/2 − u + ln(1+u))/u³ = Σ_{k≥0} 3(−u)^k/(k+3), Q2.62.
+const PHI2: [u64; 24] = series::<24>(Series::Phi2, 3);
+
+/// Horner evaluation of an alternating Q2.62 series `Σ c_k·(−x)^k` at `x` (Q32.32,
+/// 0 <= x <= 1/4), result Q2.62. Every partial sum `c_k − x·(…)` stays positive because
+/// `c_k > x·c_(k+1)` for these coefficients, so unsigned arithmetic is exact.
+fn horner_alternating(c: &[u64], x: u64) -> u64 {
+    let mut acc: u128 = 0;
+    let mut k = c.len();
+    while k > 0 {
+        k -= 1;
+        acc = u128::from(c[k]).saturating_sub((acc * u128::from(x)) >> 32);
+    }
+    acc as u64
+}
+
+/// φ1(u) in Q2.62 for u in Q32.32, 0 <= u <= 1/4. Truncation error below 2⁻⁴⁸.
+pub(crate) fn phi1(u: u64) -> u64 {
+    horner_alternating(&PHI1, u.min(1 << 30))
+}
+
+/// φ2(u) in Q2.62 for u in Q32.32, 0 <= u <= 1/4. Truncation error below 2⁻⁴⁸.
+pub(crate) fn phi2(u: u64) -> u64 {
+    horner_alternating(&PHI2, u.min(1 << 30))
+}
+
+/// Horner evaluation of a Q2.62 series at `x` (Q32.32, 0 <= x <= 1), result Q2.62.
+fn horner(c: &[u64], x: u64) -> u64 {
+    let mut acc: u128 = 0;
+    let mut k = c.len();
+    while k > 0 {
+        k -= 1;
+        acc = ((acc * u128::from(x)) >> 32) + u128::from(c[k]);
+    }
+    acc as u64
+}
+
+/// ψ(λ) in Q2.62 for λ in Q32.32, 0 <= λ <= 1. Truncation error below 2⁻⁴⁰.
+pub(crate) fn psi(lambda: u64) -> u64 {
+    horner(&PSI, lambda.min(1 << 32))
+}
+
+/// χ(λ) in Q2.62 for λ in Q32.32, 0 <= λ <= 1. Truncation error below 2⁻³⁶.
+pub(crate) fn chi(lambda: u64) -> u64 {
+    horner(&CHI, lambda.min(1 << 32))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn series_coefficients_match_their_definition() {
+        // ψ: 2/2! = 1, 2/3! = 1/3; χ: n = 3 gives 3·2/6 = 1, n = 4 gives 3·6/24 = 0.75.
+        let q = (1u64 << 62) as f64;
+        assert!((PSI[0] as f64 / q - 1.0).abs() < 1e-15);
+        assert!((PSI[1] as f64 / q - 1.0 / 3.0).abs() < 1e-15);
+        assert!((CHI[0] as f64 / q - 1.0).abs() < 1e-15);
+        assert!((CHI[1] as f64 / q - 0.75).abs() < 1e-15);
+    }
+
+    #[test]
+    fn psi_and_chi_match_closed_forms() {
+        for &l in &[1e-6f64, 1e-3, 0.1, 0.5, 0.9, 1.0] {
+            let x = (l * 4_294_967_296.0) as u64;
+            let lq = x as f64 / 4_294_967_296.0;
+            let psi_ref = 2.0 * (libm::expm1(lq) - lq) / (lq * lq);
+            let got = psi(x) as f64 / (1u64 << 62) as f64;
+            assert!(
+                (got - psi_ref).abs() < 1e-8,
+                "psi({l}) = {got}, want {psi_ref}"
+            );
+            if l >= 1e-3 {
+                // χ(λ) = 3·(u²/2 − u + λ)/λ³ with u = e^λ − 1.
+                let u = libm::expm1(lq);
+                let want = 3.0 * (0.5 * u * u - u + lq) / (lq * lq * lq);
+                let got = chi(x) as f64 / (1u64 << 62) as f64;
+                assert!((got - want).abs() < 1e-6, "chi({l}) = {got}, want {want}");
+            }
+        }
+    }
+
+    #[test]
+    fn phi_series_match_closed_forms() {
+        for &u in &[0.01f64, 0.1, 0.25] {
+            let x = (u * 4_294_967_296.0) as u64;
+            let uq = x as f64 / 4_294_967_296.0;
+            let l = libm::log1p(uq);
+            let p1 = 2.0 * (uq - l) / (uq * uq);
+            let p2 = 3.0 * (uq * uq / 2.0 - uq + l) / (uq * uq * uq);
+            let q = (1u64 << 62) as f64;
+            assert!((phi1(x) as f64 / q - p1).abs() < 1e-9, "phi1({u})");
+            assert!((phi2(x) as f64 / q - p2).abs() < 1e-7, "phi2({u})");
+        }
+    }
+
+    #[test]
+    fn exp2_matches_libm() {
+        for &z in &[-3.5f64, 0.0, 1.0, 10.25, 40.7, 62.9] {
+            let q = (z * 4_294_967_296.0) as i64;
+            let zq = q as f64 / 4_294_967_296.0;
+            let want = libm::exp2(zq);
+            let got = exp2(q) as f64;
+            assert!(
+                (got - want).abs() <= want * 1e-15 + 1.0,
+                "2^{z}: {got} vs {want}"
+            );
+        }
+        assert_eq!(exp2(64 << 32), u64::MAX);
+        assert_eq!(exp2(-64 << 32), 0);
+    }
+
+    #[test]
+    fn exp2_neg_matches_libm() {
+        for &y in &[0.0f64, 0.5, 1.0, 2.25, 7.123_456, 31.999, 40.5] {
+            let q = (y * 4_294_967_296.0) as u64;
+            let yq = q as f64 / 4_294_967_296.0;
+            let (m, sh) = exp2_neg(q);
+            let got = m as f64 * libm::exp2(-(63.0 + f64::from(sh)));
+            let want = libm::exp2(-yq);
+            assert!(
+                (got - want).abs() <= want * 1e-15,
+                "2^-{y}: {got} vs {want}"
+            );
+        }
+    }
+
+    #[test]
+    fn log2_of_powers_of_two_is_exact() {
+        for k in 0..64 {
+            assert_eq!(log2(1u64 << k), (k as i64) << LOG_FRAC);
+        }
+    }
+
+    #[test]
+    fn decay_table_zero_and_saturation() {
+        let t = DecayTable::<4>::new(1e-3);
+        assert_eq!(t.eval(0), Decay::NONE);
+        let big = DecayTable::<4>::new(10.0);
+        let e = big.eval(65535);
+        assert_eq!((e.m, e.s), (u32::MAX, 0));
+    }
+
+    #[test]
+    fn gain_round_trips() {
+        for &g in &[1e-9f64, 0.37, 1.0, 123_456.789, 3.0e12] {
+            let q = Gain::new(g);
+            assert!((q.value() - g).abs() <= g * 2.4e-10, "{g}");
+        }
+        assert_eq!(Gain::new(-1.0), Gain::ZERO);
+        assert_eq!(Gain::new(f64::NAN), Gain::ZERO);
+    }
+
+    mod bounds {
+        //! The documented error bounds, measured against f64 references (libm, correctly
+        //! rounded to well under the bounds tested).
+        use super::super::*;
+        use proptest::prelude::*;
+
+        fn log_uniform(lo: f64, hi: f64) -> impl Strategy<Value = f64> {
+            (lo.ln()..hi.ln()).prop_map(f64::exp)
+        }
+
+        proptest! {
+            #![proptest_config(ProptestConfig::with_cases(4096))]
+
+            /// Decay tables: relative error below 2^-24 for every count, over the unit/τ ratios
+            /// that validation admits (down to 2^-24/65535 per count, up to settled).
+            #[test]
+            fn decay_table_relative_error(u in log_uniform(2.0e-13, 50.0), n in 1u32..=u32::MAX) {
+                let t = DecayTable::<EVENT_DIGITS>::new(u);
+                let got = t.eval(n).value();
+                let want = one_minus_exp_neg(f64::from(n) * u);
+                prop_assert!((got - want).abs() <= want * 2f64.powi(-24) + 2f64.powi(-32),
+                    "E({n}·{u}) = {got}, want {want}");
+            }
+
+            #[test]
+            fn duty_table_relative_error(u in log_uniform(2.0e-13, 50.0), n in 1u32..=65_535) {
+                let t = DecayTable::<DUTY_DIGITS>::new(u);
+                let got = t.eval(n).value();
+                let want = one_minus_exp_neg(f64::from(n) * u);
+                prop_assert!((got - want).abs() <= want * 2f64.powi(-24) + 2f64.powi(-32));
+            }
+
+            /// log2: absolute error below 2^-29.
+            #[test]
+            fn log2_absolute_error(x in 1u64..=u64::MAX) {
+                let got = log2(x) as f64 / 4_294_967_296.0;
+                let want = libm::log2(x as f64);
+                prop_assert!((got - want).abs() < 2f64.powi(-29), "log2({x}) = {got}, want {want}");
+            }
+
+            /// ln of a ratio: absolute error below 2^-28.
+            #[test]
+            fn ln_ratio_absolute_error(y in 1u64..(1 << 62), k in 1.0f64..1e6) {
+                let x = ((y as f64) * k).min(4.6e18) as u64;
+                prop_assume!(x >= y);
+                let got = ln_ratio(x, y) as f64 / 4_294_967_296.0;
+                let want = libm::log(x as f64 / y as f64);
+                prop_assert!((got - want).abs() < 2f64.powi(-28));
+            }
+
+            /// Scaling: within one unit of the exact product d·E of the represented E.
+            #[test]
+            fn scale_is_within_one_unit(d in -(1i64 << 62)..=(1i64 << 62), m in any::<u32>(), s in 0u32..70) {
+                let e = Decay { m, s };
+                let exact = d as f64 * f64::from(m) * 2f64.powi(-(32 + s as i32));
+                let got = scale(d, e) as f64;
+                prop_assert!((got - exact).abs() <= 1.0 + exact.abs() * 1e-15);
+            }
+        }
+    }
+}
