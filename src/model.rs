@@ -534,7 +534,7 @@ mod tests {
     fn unit_conversions_round_trip() {
         let m = demo(ClampPath::None);
         let c = m.current_from_amps(1.5).unwrap();
-        assert_eq!(c, crate::Current::from_bits(3 << 39));
+        assert_eq!(c, crate::Current::from_bits(3 << 38)); // 0.75 of the 2 A full scale
         assert!((m.amps(c) - 1.5).abs() < 1e-6);
         assert_eq!(m.current_from_amps(f32::NAN), None);
         let e = m.energy_from_joules(0.01).unwrap();
