@@ -161,4 +161,24 @@ impl Model {
             .saturating_add(self.drain_slope.apply_wide(i0));
         Volts::from_bits(v.min(u64::from(self.breakdown_bits)) as u32)
     }
+
+    /// Upper bound of the energy the path absorbs over an off-segment of `off_counts` timer
+    /// counts in which the current falls from `i1` to `i2 > 0` without reaching zero:
+    /// `(V_p + R_p·i1)·(i1 + i2)/2·t_off`. The decay is convex, so the chord's mean bounds the
+    /// true mean current; the error is of the order of the squared ripple. Multiplications only.
+    pub(crate) fn off_segment_energy_bound(
+        &self,
+        i1: Current,
+        i2: Current,
+        off_counts: u32,
+    ) -> Energy {
+        let a = i1.working_bits() as u64;
+        let b = i2.working_bits() as u64;
+        let mean = u128::midpoint(u128::from(a), u128::from(b)); // Q40
+        let n = u128::from(off_counts);
+        let path = self.chord_path.apply_u128(mean * n);
+        let sq = (u128::from(a) * mean) >> 40; // i1·ī, Q40
+        let res = self.chord_share.apply_u128(sq.saturating_mul(n));
+        Energy::from_bits(path.saturating_add(res))
+    }
 }

@@ -24,15 +24,24 @@
 
 mod adc;
 mod clamp;
+mod condition;
 mod estimate;
+mod guard;
+mod hal;
+mod hold;
 mod model;
 mod params;
 mod qmath;
 mod steady;
+pub mod thermal;
 mod units;
 
 pub use adc::SupplySense;
+pub use condition::{Action, Condition, Conditions, Edge, Event, EventLog};
 pub use estimate::{CoilState, PeriodEstimate};
+pub use guard::{Guard, GuardLimits, GuardState, HeldRequest, Input, Output, Policy, Retry};
+pub use hal::{GuardedPwm, GuardedSwitch};
+pub use hold::{HoldPhase, PullInHold};
 pub use model::{Derived, Model, PathKind};
 pub use params::{
     COPPER_TEMPERATURE_COEFFICIENT, ClampPath, CoilParams, ConfigError, Conflict, ControlParams,

@@ -111,11 +111,15 @@ pub struct Model {
     pub(crate) tau_gap_over_period: i64,
     /// τ_off/T, Q32.32.
     pub(crate) tau_off_over_period: u64,
+    /// Chord bound of the off-segment energy: path term per (raw current · off count) and
+    /// resistive term per (Q40 current² · off count), both giving Q32 energy.
+    pub(crate) chord_path: Gain,
+    pub(crate) chord_share: Gain,
     pub(crate) derived: Derived,
 }
 
 /// Rounds `v·2^32` to u64, saturating (inputs are validated finite and non-negative).
-fn q32(v: f64) -> u64 {
+pub(crate) fn q32(v: f64) -> u64 {
     let x = libm::round(v * 4_294_967_296.0);
     if x <= 0.0 {
         0
@@ -396,6 +400,8 @@ impl Model {
                 if g < 0.0 { -m } else { m }
             },
             tau_off_over_period: q32(tau_off / t),
+            chord_path: Gain::new(v_p / r_off_total / fs * (count / tau_off) / 256.0),
+            chord_share: Gain::new(r_p / r_off_total * (count / tau_off) / 256.0),
             derived: Derived {
                 resistance: r as f32,
                 tau_on: tau_on as f32,

@@ -253,6 +253,40 @@ pub enum Field {
     AdcVoltsPerCount,
     /// `adc.offset` (of [`SupplySense`](crate::SupplySense))
     AdcOffset,
+    /// `guard.current_ceiling`
+    GuardCurrentCeiling,
+    /// `guard.trip_current`
+    GuardTripCurrent,
+    /// `guard.release_current`
+    GuardReleaseCurrent,
+    /// `guard.clamp_pulse_energy`
+    GuardClampPulseEnergy,
+    /// `guard.retry_cooldown`
+    GuardRetryCooldown,
+    /// `clamp_thermal.stages` (one of the Foster stages)
+    ClampThermalStage,
+    /// `clamp_thermal.ambient`
+    ClampThermalAmbient,
+    /// `clamp_thermal.ceiling`
+    ClampThermalCeiling,
+    /// `clamp_thermal.hysteresis`
+    ClampThermalHysteresis,
+    /// `coil_thermal.time_constant`
+    CoilThermalTimeConstant,
+    /// `coil_thermal.basic_current`
+    CoilThermalBasicCurrent,
+    /// `coil_thermal.overload_factor`
+    CoilThermalOverloadFactor,
+    /// `coil_thermal.ambient`
+    CoilThermalAmbient,
+    /// `coil_thermal.rise_at_basic`
+    CoilThermalRiseAtBasic,
+    /// `hold.pull_in_current`
+    HoldPullInCurrent,
+    /// `hold.pull_in_time`
+    HoldPullInTime,
+    /// `hold.hold_current`
+    HoldCurrent,
 }
 
 impl Field {
@@ -279,6 +313,23 @@ impl Field {
             Field::ControlCurrentFullScale => "control.current_full_scale",
             Field::AdcVoltsPerCount => "adc.volts_per_count",
             Field::AdcOffset => "adc.offset",
+            Field::GuardCurrentCeiling => "guard.current_ceiling",
+            Field::GuardTripCurrent => "guard.trip_current",
+            Field::GuardReleaseCurrent => "guard.release_current",
+            Field::GuardClampPulseEnergy => "guard.clamp_pulse_energy",
+            Field::GuardRetryCooldown => "guard.retry_cooldown",
+            Field::ClampThermalStage => "clamp_thermal.stages",
+            Field::ClampThermalAmbient => "clamp_thermal.ambient",
+            Field::ClampThermalCeiling => "clamp_thermal.ceiling",
+            Field::ClampThermalHysteresis => "clamp_thermal.hysteresis",
+            Field::CoilThermalTimeConstant => "coil_thermal.time_constant",
+            Field::CoilThermalBasicCurrent => "coil_thermal.basic_current",
+            Field::CoilThermalOverloadFactor => "coil_thermal.overload_factor",
+            Field::CoilThermalAmbient => "coil_thermal.ambient",
+            Field::CoilThermalRiseAtBasic => "coil_thermal.rise_at_basic",
+            Field::HoldPullInCurrent => "hold.pull_in_current",
+            Field::HoldPullInTime => "hold.pull_in_time",
+            Field::HoldCurrent => "hold.hold_current",
         }
     }
 }
@@ -335,6 +386,10 @@ pub enum Conflict {
     /// A steady current the coil can reach (at up to twice the maximum supply) exceeds 2²¹ times
     /// the full scale, beyond the current format's headroom.
     FullScaleTooSmall,
+    /// The trip current is below the current ceiling.
+    TripBelowCeiling,
+    /// The release current is at or above the trip current.
+    ReleaseNotBelowTrip,
 }
 
 /// A parameter was refused: which one, and why.
@@ -387,6 +442,8 @@ impl fmt::Display for Conflict {
             Conflict::FullScaleTooSmall => {
                 "a reachable steady current exceeds 2^21 times the full scale"
             }
+            Conflict::TripBelowCeiling => "trip current is below the current ceiling",
+            Conflict::ReleaseNotBelowTrip => "release current is at or above the trip current",
         })
     }
 }

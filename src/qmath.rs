@@ -194,7 +194,14 @@ impl Gain {
 
     /// `x·g` for a wide operand (closed forms only, not the per-period step), saturating.
     pub(crate) fn apply_wide(self, x: u64) -> u64 {
-        let p = u128::from(x) * u128::from(self.m);
+        self.apply_u128(u128::from(x))
+    }
+
+    /// `x·g` for a u128 operand (closed forms and thermal inputs), saturating at `u64::MAX`.
+    pub(crate) fn apply_u128(self, x: u128) -> u64 {
+        let Some(p) = x.checked_mul(u128::from(self.m)) else {
+            return u64::MAX;
+        };
         let r = if self.sh >= 0 {
             let sh = self.sh as u32;
             if sh >= 128 || p.leading_zeros() < sh {

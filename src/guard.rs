@@ -1,0 +1,823 @@
+//! The guard: limits, holds and trips on the model's estimate, once per control period or on each
+//! on/off event.
+//!
+//! [`Guard`] is the validated, immutable configuration (it owns its [`Model`]); [`GuardState`] is
+//! the small per-channel state. One call per period:
+//!
+//! 1. advance the estimate over the period just ended with the duty the guard applied;
+//! 2. feed the thermal replicas (clamp: the energy of the off-segment; winding: I²R);
+//! 3. evaluate the conditions and apply their actions (report, hold, trip with latch);
+//! 4. decide the duty for the coming period: held while the release interval runs, reduced so
+//!    the predicted peak stays at or below the ceiling.
+//!
+//! # Protections and their formulas
+//! - **Release interval** (`release-hold`): after the output has been off, a turn-on is allowed
+//!   only once the estimate is at or below the release current; the remaining time is
+//!   `τ_off·ln((I + a)/(I_rel + a))` ([`Model::decay_time_us`]).
+//! - **Current ceiling** (`current-limit`): the coming period's peak `i + (A_on − i)·E(n·T/Nτ_on)`
+//!   must stay at or below the ceiling; otherwise the largest duty that satisfies it is found by
+//!   bisection over the counts (at most 16 table evaluations, no division). The ceiling is the
+//!   lower of the configured one and the current whose turn-off energy at the maximum supply equals
+//!   the clamp's single-pulse rating.
+//! - **Trip** (`overcurrent`): the estimate (start or peak of the period) above the trip current.
+//! - **Clamp energy** (`clamp-pulse`, `clamp-overheat`): each commanded turn-off's energy
+//!   ([`Model::turn_off_energy`]) against the rating; the Foster replica fed by every off-segment
+//!   (exact energy when the current reaches zero, the chord bound otherwise).
+//! - **Winding** (`coil-overheat`): the IEC 60255-149 thermal image, see [`crate::thermal`].
+//! - **Supply** (`supply-range`): outside `supply.min ..= supply.max`; below by default only
+//!   reported, above by default a trip (the clamp margins are gone).
+//!
+//! # Winding temperature and the model's resistance
+//! The model is built for one winding temperature. Re-deriving it is a slow call
+//! ([`Guard::retuned`], f64 arithmetic) meant for the main loop, not the interrupt: the per-tick
+//! path stays integer-only and its cost fixed. While the estimate and the model disagree the
+//! guard stays conservative: a model built hotter than the winding overstates R and so
+//! understates the current, so every current compared against the ceiling, trip and release
+//! levels is first multiplied by `1 + α'·(T_model − T_winding)` (α' = α/(1 + α·(T_amb − T_ref)),
+//! an upper bound of the resistance ratio). A model built colder than the winding overstates the
+//! current, the decay time and the clamp energy, all on the safe side, and is left alone. Build
+//! the model at or below the estimate (see [`Guard::suggested_model_temperature`]).
+//!
+//! # Panics
+//! None: the inputs are clamped (duty to the resolution, currents to the working range), every
+//! shift is checked and every sum saturates or is bounded as commented.
+
+use crate::condition::{Action, Condition, Conditions};
+use crate::estimate::{CoilState, PeriodEstimate};
+use crate::model::Model;
+use crate::params::{ConfigError, Conflict, Field, Params, positive};
+use crate::qmath::{Gain, ln_ratio, scale};
+use crate::thermal::{ClampHeat, ClampReplica, ClampThermal, CoilHeat, CoilReplica, CoilThermal};
+use crate::units::{Current, Energy, Volts};
+use fixed::types::I32F32;
+
+/// What to do with a turn-on requested during the release interval.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub enum HeldRequest {
+    /// Honour it as soon as the interval ends (default).
+    Defer,
+    /// Drop it: the output stays off until the request goes to zero and comes back.
+    Drop,
+}
+
+/// The action of each configurable condition.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub struct Policy {
+    /// `overcurrent`; default [`Action::Trip`].
+    pub overcurrent: Action,
+    /// `clamp-pulse`; default [`Action::Trip`].
+    pub clamp_pulse: Action,
+    /// `clamp-overheat`; default [`Action::Hold`] (turn-ons wait for the hysteresis).
+    pub clamp_overheat: Action,
+    /// `coil-overheat`; default [`Action::Trip`].
+    pub coil_overheat: Action,
+    /// `supply-range` below the minimum; default [`Action::Report`].
+    pub supply_low: Action,
+    /// `supply-range` above the maximum; default [`Action::Trip`].
+    pub supply_high: Action,
+    /// A turn-on requested during the release interval; default [`HeldRequest::Defer`].
+    pub held_request: HeldRequest,
+}
+
+impl Default for Policy {
+    fn default() -> Self {
+        Self {
+            overcurrent: Action::Trip,
+            clamp_pulse: Action::Trip,
+            clamp_overheat: Action::Hold,
+            coil_overheat: Action::Trip,
+            supply_low: Action::Report,
+            supply_high: Action::Trip,
+            held_request: HeldRequest::Defer,
+        }
+    }
+}
+
+/// Automatic retry after a trip.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub struct Retry {
+    /// Wait after the tripping condition has cleared, s (1 µs ..= 4000 s).
+    pub cooldown: f32,
+    /// Retries allowed before the trip stays latched until [`Guard::clear`].
+    pub max_retries: u8,
+}
+
+impl Retry {
+    /// Retry after `cooldown` seconds, at most `max_retries` times.
+    pub const fn new(cooldown: f32, max_retries: u8) -> Self {
+        Self {
+            cooldown,
+            max_retries,
+        }
+    }
+}
+
+/// The guard's limits in SI units (configuration time).
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub struct GuardLimits {
+    /// Highest predicted peak the duty may produce, A.
+    pub current_ceiling: f32,
+    /// Estimate above which the output trips, A (at or above the ceiling).
+    pub trip_current: f32,
+    /// Current below which a released coil may be turned on again, A (below the trip current).
+    pub release_current: f32,
+    /// Single-pulse energy rating of the clamp path (or of the switch in avalanche), J.
+    pub clamp_pulse_energy: Option<f32>,
+    /// Thermal model of the clamp device.
+    pub clamp_thermal: Option<ClampThermal>,
+    /// Thermal image of the winding.
+    pub coil_thermal: Option<CoilThermal>,
+    /// What each condition does.
+    pub policy: Policy,
+    /// Retry after a trip (none: latch until cleared).
+    pub retry: Option<Retry>,
+}
+
+impl GuardLimits {
+    /// Ceiling, trip and release currents (A); no clamp rating, no thermal replicas, default
+    /// policies, no retry.
+    pub fn new(current_ceiling: f32, trip_current: f32, release_current: f32) -> Self {
+        Self {
+            current_ceiling,
+            trip_current,
+            release_current,
+            clamp_pulse_energy: None,
+            clamp_thermal: None,
+            coil_thermal: None,
+            policy: Policy::default(),
+            retry: None,
+        }
+    }
+}
+
+/// One period's input.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub struct Input {
+    /// Requested duty for the coming period, counts (clamped to the resolution).
+    pub duty: u32,
+    /// Supply measured during the period just ended.
+    pub supply: Volts,
+}
+
+impl Input {
+    /// A request of `duty` counts with the measured `supply`.
+    pub const fn new(duty: u32, supply: Volts) -> Self {
+        Self { duty, supply }
+    }
+}
+
+/// What the guard decided.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct Output {
+    /// Duty to apply for the coming period, counts (in event mode: the resolution = on, 0 = off).
+    pub duty: u32,
+    /// Conditions active now.
+    pub active: Conditions,
+    /// Conditions that became active in this call.
+    pub raised: Conditions,
+    /// Conditions that ended in this call.
+    pub cleared: Conditions,
+    /// Trips latched (the output is off until they clear or are cleared).
+    pub latched: Conditions,
+    /// The estimate over the period (or event) just ended.
+    pub estimate: PeriodEstimate,
+    /// Predicted peak of the coming period at the applied duty.
+    pub predicted_peak: Current,
+    /// While `release-hold` is active: the remaining time, µs (`None`: it will not decay).
+    pub release_in_us: Option<u32>,
+}
+
+/// Per-channel state of the guard.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct GuardState {
+    coil: CoilState,
+    clamp_heat: ClampHeat,
+    coil_heat: CoilHeat,
+    /// Duty applied during the current period (the one the next call will advance over).
+    applied: u32,
+    /// Retry cooldown remaining, µs.
+    cooldown_us: u32,
+    active: Conditions,
+    latched: Conditions,
+    retries: u8,
+    dropped: bool,
+}
+
+impl GuardState {
+    /// The coil current estimate.
+    pub const fn current(&self) -> Current {
+        self.coil.current()
+    }
+
+    /// The winding thermal image.
+    pub const fn coil_heat(&self) -> CoilHeat {
+        self.coil_heat
+    }
+
+    /// The clamp device's thermal state.
+    pub const fn clamp_heat(&self) -> ClampHeat {
+        self.clamp_heat
+    }
+
+    /// Conditions active after the last call.
+    pub const fn active(&self) -> Conditions {
+        self.active
+    }
+
+    /// Trips latched.
+    pub const fn latched(&self) -> Conditions {
+        self.latched
+    }
+
+    /// The duty applied for the current period.
+    pub const fn applied(&self) -> u32 {
+        self.applied
+    }
+
+    /// Records that the hardware may be applying `duty` (used when a write failed).
+    pub(crate) fn assume_applied(&mut self, duty: u32) {
+        self.applied = duty;
+    }
+
+    /// Starts the winding image at `heat` (a hot start).
+    #[must_use]
+    pub const fn with_coil_heat(mut self, heat: CoilHeat) -> Self {
+        self.coil_heat = heat;
+        self
+    }
+}
+
+/// The validated guard: model, limits and replicas. See the module documentation.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Guard {
+    model: Model,
+    ceiling: i64,
+    trip: i64,
+    release: i64,
+    pulse_rating: Option<Energy>,
+    clamp: Option<ClampReplica>,
+    coil: Option<CoilReplica>,
+    policy: Policy,
+    retry: Option<(u32, u8)>,
+    supply_min: u32,
+    supply_max: u32,
+    worst_current: i64,
+    period_us: u32,
+    /// Resistance-ratio bound per kelvin (Q32.32) and the model's temperature (Q32.32 °C).
+    stale_per_kelvin: u64,
+    model_temperature: i64,
+}
+
+fn amps_to_raw(model: &Model, field: Field, amps: f32) -> Result<i64, ConfigError> {
+    let fs = model.derived().full_scale;
+    let a = positive(field, amps, fs * 1e-6, fs * 2_097_152.0)?;
+    model
+        .current_from_amps(a)
+        .map(Current::to_bits)
+        .ok_or(ConfigError::new(
+            field,
+            crate::Problem::OutOfRange {
+                min: fs * 1e-6,
+                max: fs * 2_097_152.0,
+            },
+        ))
+}
+
+impl Guard {
+    /// Validates the drive and the limits.
+    ///
+    /// # Errors
+    /// The first problem found, naming its field (drive fields first, then the guard's).
+    pub fn new(params: &Params, limits: &GuardLimits) -> Result<Self, ConfigError> {
+        let model = params.validate()?;
+        let ceiling = amps_to_raw(&model, Field::GuardCurrentCeiling, limits.current_ceiling)?;
+        let trip = amps_to_raw(&model, Field::GuardTripCurrent, limits.trip_current)?;
+        if trip < ceiling {
+            return Err(ConfigError::conflict(
+                Field::GuardTripCurrent,
+                Conflict::TripBelowCeiling,
+            ));
+        }
+        let release = if limits.release_current == 0.0 {
+            0
+        } else {
+            amps_to_raw(&model, Field::GuardReleaseCurrent, limits.release_current)?
+        };
+        if release >= trip {
+            return Err(ConfigError::conflict(
+                Field::GuardReleaseCurrent,
+                Conflict::ReleaseNotBelowTrip,
+            ));
+        }
+        let v_max = Volts::from_bits((f64::from(params.supply.max) * 65_536.0) as u32);
+        let v_min = Volts::from_bits((f64::from(params.supply.min) * 65_536.0) as u32);
+        let (pulse_rating, ceiling) = match limits.clamp_pulse_energy {
+            Some(j) => {
+                let j = positive(Field::GuardClampPulseEnergy, j, 1e-12, 1e6)?;
+                let rating = model.energy_from_joules(j).ok_or(ConfigError::new(
+                    Field::GuardClampPulseEnergy,
+                    crate::Problem::OutOfRange {
+                        min: 1e-12,
+                        max: 1e6,
+                    },
+                ))?;
+                // Largest current whose turn-off at the maximum supply stays within the rating
+                // (the energy grows with current and with supply), by bisection.
+                let (mut lo, mut hi) = (0i64, Current::LIMIT.to_bits());
+                while hi - lo > 1 {
+                    let mid = lo + (hi - lo) / 2;
+                    if model.turn_off_energy(Current::from_bits(mid), v_max) <= rating {
+                        lo = mid;
+                    } else {
+                        hi = mid;
+                    }
+                }
+                (Some(rating), ceiling.min(lo))
+            }
+            None => (None, ceiling),
+        };
+        let d = *model.derived();
+        let clamp = match &limits.clamp_thermal {
+            Some(c) => Some(ClampReplica::new(c, d.period, d.energy_unit)?),
+            None => None,
+        };
+        let (coil, stale_per_kelvin) = match &limits.coil_thermal {
+            Some(c) => {
+                let alpha = f64::from(params.coil.temperature_coefficient);
+                let t_ref = f64::from(params.coil.reference_temperature);
+                let bound = alpha / (1.0 + alpha * (f64::from(c.ambient) - t_ref)).max(1e-3);
+                (
+                    Some(CoilReplica::new(
+                        c,
+                        d.period,
+                        d.full_scale,
+                        params.coil.reference_temperature,
+                        params.coil.temperature_coefficient,
+                    )?),
+                    crate::model::q32(bound),
+                )
+            }
+            None => (None, 0),
+        };
+        let retry = match limits.retry {
+            Some(r) => {
+                let s = positive(Field::GuardRetryCooldown, r.cooldown, 1e-6, 4000.0)?;
+                Some(((f64::from(s) * 1e6) as u32, r.max_retries))
+            }
+            None => None,
+        };
+        // Worst-case current after a reset: the steady on-current at twice the maximum supply,
+        // the highest the estimator itself can reach.
+        let worst_current = model.on_asymptote(model.supply(Volts::MAX)).max(trip);
+        Ok(Self {
+            ceiling,
+            trip,
+            release,
+            pulse_rating,
+            clamp,
+            coil,
+            policy: limits.policy,
+            retry,
+            supply_min: v_min.to_bits(),
+            supply_max: v_max.to_bits(),
+            worst_current,
+            period_us: (libm::round(f64::from(d.period) * 1e6) as u32).max(1),
+            stale_per_kelvin,
+            model_temperature: (f64::from(params.coil.winding_temperature) * 4_294_967_296.0)
+                as i64,
+            model,
+        })
+    }
+
+    /// The same limits with the model rebuilt for winding temperature `temperature` (°C).
+    /// A slow call (f64, table construction) for the main loop; swap the result in between
+    /// ticks. The guard's state carries over unchanged.
+    ///
+    /// # Errors
+    /// As [`Guard::new`].
+    pub fn retuned(
+        params: &Params,
+        limits: &GuardLimits,
+        temperature: f32,
+    ) -> Result<Self, ConfigError> {
+        let mut p = *params;
+        p.coil.winding_temperature = temperature;
+        Self::new(&p, limits)
+    }
+
+    /// The model the guard runs.
+    pub const fn model(&self) -> &Model {
+        &self.model
+    }
+
+    /// The effective current ceiling (the lower of the configured one and the clamp's).
+    pub const fn ceiling(&self) -> Current {
+        Current::from_bits(self.ceiling)
+    }
+
+    /// State for a coil known to carry no current.
+    pub fn start_idle(&self) -> GuardState {
+        GuardState {
+            coil: CoilState::idle(),
+            clamp_heat: ClampHeat::default(),
+            coil_heat: CoilHeat::default(),
+            applied: 0,
+            cooldown_us: 0,
+            active: Conditions::NONE,
+            latched: Conditions::NONE,
+            retries: 0,
+            dropped: false,
+        }
+    }
+
+    /// State after a reset, when the coil may still carry the worst-case current: the output
+    /// stays off for the full decay time to the release current.
+    pub fn start_after_reset(&self) -> GuardState {
+        GuardState {
+            coil: CoilState::with_current(Current::from_bits(self.worst_current)),
+            ..self.start_idle()
+        }
+    }
+
+    /// Clears latched trips (and the retry count). Conditions still present trip again.
+    pub fn clear(&self, state: &mut GuardState) {
+        state.latched = Conditions::NONE;
+        state.retries = 0;
+        state.cooldown_us = 0;
+    }
+
+    /// Estimated winding temperature (°C), when a winding image is configured.
+    pub fn winding_temperature(&self, state: &GuardState) -> Option<I32F32> {
+        self.coil.as_ref().map(|c| c.temperature(&state.coil_heat))
+    }
+
+    /// Estimated clamp-device temperature (°C), when a clamp replica is configured.
+    pub fn clamp_temperature(&self, state: &GuardState) -> Option<I32F32> {
+        self.clamp
+            .as_ref()
+            .map(|c| c.temperature(&state.clamp_heat))
+    }
+
+    /// A model temperature that keeps the protections on the safe side: the winding estimate
+    /// rounded down to whole `step` kelvin (°C; `None` without a winding image).
+    pub fn suggested_model_temperature(&self, state: &GuardState, step: u32) -> Option<i32> {
+        let t = self.winding_temperature(state)?.to_num::<i32>();
+        let step = step.max(1) as i32;
+        Some(t.div_euclid(step) * step)
+    }
+
+    /// Factor (Q32.32, ≥ 1) by which currents are raised while the model is hotter than the
+    /// winding estimate.
+    fn stale_factor(&self, state: &GuardState) -> u64 {
+        let one = 1u64 << 32;
+        let Some(c) = &self.coil else {
+            return one;
+        };
+        let t = c.temperature(&state.coil_heat).to_bits();
+        let gap = self.model_temperature.saturating_sub(t);
+        if gap <= 0 {
+            return one;
+        }
+        let extra = (u128::from(gap as u64) * u128::from(self.stale_per_kelvin)) >> 32;
+        one.saturating_add(extra.min(u128::from(u64::MAX)) as u64)
+    }
+
+    /// `i·f` for a stale factor f (Q32.32).
+    fn raised(i: i64, f: u64) -> i64 {
+        if f == 1 << 32 {
+            return i;
+        }
+        let p = (u128::from(i.max(0) as u64) * u128::from(f)) >> 32;
+        p.min(Current::LIMIT.to_bits() as u128) as i64
+    }
+
+    /// Predicted peak of the coming period at duty `n` from current `i0` (raw).
+    fn peak_at(&self, i0: i64, n: u32, vs: u32) -> i64 {
+        let a = self.model.on_asymptote(vs);
+        (i0 + scale(a - i0, self.model.on_duty.eval(n))).max(i0)
+    }
+
+    /// One control period. `input.duty` is the request for the coming period; the guard
+    /// advances over the period just ended with the duty it applied then.
+    ///
+    /// ```
+    /// use coilward::{ClampPath, CoilParams, ControlParams, Guard, GuardLimits, Input, Params,
+    ///                SupplyParams, SwitchParams, Volts};
+    /// let params = Params::new(
+    ///     SupplyParams::new(24.0, 18.0, 30.0),
+    ///     CoilParams::new(0.040, 18.0),
+    ///     SwitchParams::new(0.1, 60.0),
+    ///     ClampPath::Freewheel { forward_drop: 0.7, resistance: 0.05 },
+    ///     ControlParams::new(50e-6, 3200, 2.0),
+    /// );
+    /// let guard = Guard::new(&params, &GuardLimits::new(1.0, 1.2, 0.05))?;
+    /// let mut state = guard.start_idle();
+    /// let mut limited = 0;
+    /// for _ in 0..400 {
+    ///     // Full duty requested: it would reach 1.33 A.
+    ///     let out = guard.tick(&mut state, Input::new(3200, Volts::from_num(24)));
+    ///     assert!(out.predicted_peak <= guard.ceiling()); // never above the 1 A ceiling
+    ///     if out.active.contains(coilward::Condition::CurrentLimit) {
+    ///         limited += 1;
+    ///     }
+    /// }
+    /// assert!(limited > 100);
+    /// # Ok::<(), coilward::ConfigError>(())
+    /// ```
+    pub fn tick(&self, state: &mut GuardState, input: Input) -> Output {
+        let m = &self.model;
+        let vs = m.supply(input.supply);
+        let n_full = m.duty_full;
+        // 1. The period just ended.
+        let was = state.applied.min(n_full);
+        let est = m.step(&mut state.coil, was, input.supply);
+        // 2. Replicas. Off-segment energy: exact to zero, else the chord bound.
+        let energy = if was >= n_full {
+            Energy::ZERO
+        } else {
+            let off_start = est.peak;
+            if est.end.to_bits() == 0 {
+                m.turn_off_energy(off_start, input.supply)
+            } else {
+                m.off_segment_energy_bound(off_start, est.end, n_full - was)
+            }
+        };
+        if let Some(c) = &self.clamp {
+            c.period(&mut state.clamp_heat, energy);
+        }
+        if let Some(c) = &self.coil {
+            c.period(&mut state.coil_heat, est.peak, est.valley);
+        }
+        // Retry cooldown runs in real time.
+        state.cooldown_us = state.cooldown_us.saturating_sub(self.period_us);
+        let request = input.duty.min(n_full);
+        self.decide(state, est, vs, request, energy, true)
+    }
+
+    /// One on/off event: the output held its previous state for `elapsed_us` µs (pass the
+    /// wrapping difference of two free-running timer readings); `request_on` is wanted from now.
+    ///
+    /// In event mode the ceiling cannot shorten an on-time that has already started, so a turn-on
+    /// is refused (`current-limit`) when the estimate is at or above the ceiling, and
+    /// [`Guard::on_time_to_ceiling_us`] tells when to schedule the next event.
+    pub fn event(
+        &self,
+        state: &mut GuardState,
+        request_on: bool,
+        elapsed_us: u32,
+        supply: Volts,
+    ) -> Output {
+        let m = &self.model;
+        let vs = m.supply(supply);
+        let was_on = state.applied > 0;
+        let est = m.advance(&mut state.coil, was_on, elapsed_us, supply);
+        let energy = if was_on {
+            Energy::ZERO
+        } else {
+            let full = m.turn_off_energy(est.start, supply);
+            Energy::from_bits(
+                full.to_bits()
+                    .saturating_sub(m.turn_off_energy(est.end, supply).to_bits()),
+            )
+        };
+        if let Some(c) = &self.clamp {
+            c.event(&mut state.clamp_heat, energy, elapsed_us);
+        }
+        if let Some(c) = &self.coil {
+            c.event(&mut state.coil_heat, est.peak, est.valley, elapsed_us);
+        }
+        state.cooldown_us = state.cooldown_us.saturating_sub(elapsed_us);
+        let request = if request_on { m.duty_full } else { 0 };
+        self.decide(state, est, vs, request, energy, false)
+    }
+
+    /// Time from the present estimate until the on-current would reach the ceiling, µs
+    /// (`None`: it never will at this supply). `τ_on·ln((A_on − i)/(A_on − C))`.
+    pub fn on_time_to_ceiling_us(&self, state: &GuardState, supply: Volts) -> Option<u32> {
+        let m = &self.model;
+        let a = m.on_asymptote(m.supply(supply));
+        let i = Self::raised(
+            state.coil.current().working_bits(),
+            self.stale_factor(state),
+        );
+        if a <= self.ceiling {
+            return None;
+        }
+        if i >= self.ceiling {
+            return Some(0);
+        }
+        let ln = ln_ratio((a - i) as u64, (a - self.ceiling) as u64);
+        let tau_on_us = Gain::new(f64::from(m.derived().tau_on) * 1e6);
+        let t = (u128::from(tau_on_us.apply_wide(ln))) >> 32;
+        Some(t.min(u128::from(u32::MAX)) as u32)
+    }
+
+    /// Conditions, actions and the duty for the coming period.
+    fn decide(
+        &self,
+        state: &mut GuardState,
+        est: PeriodEstimate,
+        vs: u32,
+        request: u32,
+        energy: Energy,
+        pwm: bool,
+    ) -> Output {
+        let m = &self.model;
+        let f = self.stale_factor(state);
+        let i_now = Self::raised(state.coil.current().working_bits(), f);
+        let i_peak = Self::raised(est.peak.working_bits(), f);
+        let prev = state.active;
+        let mut active = Conditions::NONE;
+        let mut hold = false;
+        let pol = self.policy;
+
+        let apply = |active: &mut Conditions,
+                     hold: &mut bool,
+                     latched: &mut Conditions,
+                     c: Condition,
+                     a: Action| {
+            active.insert(c);
+            match a {
+                Action::Report => {}
+                Action::Hold => *hold = true,
+                Action::Trip => latched.insert(c),
+            }
+        };
+
+        // Supply window.
+        if vs > self.supply_max {
+            apply(
+                &mut active,
+                &mut hold,
+                &mut state.latched,
+                Condition::SupplyRange,
+                pol.supply_high,
+            );
+        } else if vs < self.supply_min {
+            apply(
+                &mut active,
+                &mut hold,
+                &mut state.latched,
+                Condition::SupplyRange,
+                pol.supply_low,
+            );
+        }
+        // Trip level.
+        if i_now.max(i_peak) > self.trip {
+            apply(
+                &mut active,
+                &mut hold,
+                &mut state.latched,
+                Condition::Overcurrent,
+                pol.overcurrent,
+            );
+        }
+        // Clamp pulse: the off-segment just ended, and any turn-off about to be commanded below.
+        if let Some(r) = self.pulse_rating
+            && energy > r
+        {
+            apply(
+                &mut active,
+                &mut hold,
+                &mut state.latched,
+                Condition::ClampPulse,
+                pol.clamp_pulse,
+            );
+        }
+        // Clamp device temperature, with hysteresis.
+        if let Some(c) = &self.clamp {
+            let hot = c.over_ceiling(&state.clamp_heat)
+                || (prev.contains(Condition::ClampOverheat) && !c.cooled(&state.clamp_heat));
+            if hot {
+                apply(
+                    &mut active,
+                    &mut hold,
+                    &mut state.latched,
+                    Condition::ClampOverheat,
+                    pol.clamp_overheat,
+                );
+            }
+        }
+        // Winding image.
+        if let Some(c) = &self.coil
+            && c.tripped(&state.coil_heat)
+        {
+            apply(
+                &mut active,
+                &mut hold,
+                &mut state.latched,
+                Condition::CoilOverheat,
+                pol.coil_overheat,
+            );
+        }
+
+        // Trips: latched until cleared, or retried once every latched condition has been gone
+        // for the whole cooldown (the cooldown restarts while any of them is still present).
+        if !state.latched.is_empty()
+            && let Some((cooldown, max)) = self.retry
+        {
+            if state.latched.intersection(active).is_empty() {
+                if state.cooldown_us == 0 && state.retries < max {
+                    state.retries = state.retries.saturating_add(1);
+                    state.latched = Conditions::NONE;
+                }
+            } else {
+                state.cooldown_us = cooldown;
+            }
+        }
+
+        let mut duty = request;
+        let mut release_in = None;
+        if !state.latched.is_empty() || hold {
+            duty = 0;
+        }
+        // A dropped request waits for the request to go to zero.
+        if request == 0 {
+            state.dropped = false;
+        }
+        if duty > 0 && state.dropped {
+            duty = 0;
+            active.insert(Condition::ReleaseHold);
+        }
+        // Release interval: a turn-on from off waits for the decay.
+        if duty > 0 && state.applied == 0 && i_now > self.release {
+            duty = 0;
+            active.insert(Condition::ReleaseHold);
+            if pol.held_request == HeldRequest::Drop {
+                state.dropped = true;
+            }
+            release_in = m.decay_time_us(
+                Current::from_bits(i_now),
+                Current::from_bits(self.release),
+                Volts::from_bits(vs),
+            );
+        }
+        // Ceiling.
+        let i0 = state.coil.current().working_bits();
+        let mut predicted = i0;
+        if duty > 0 {
+            if pwm {
+                let peak = Self::raised(self.peak_at(i0, duty, vs), f);
+                if peak > self.ceiling {
+                    // Largest n with a predicted peak at or below the ceiling (bisection).
+                    let (mut lo, mut hi) = (0u32, duty);
+                    while hi - lo > 1 {
+                        let mid = lo + (hi - lo) / 2;
+                        if Self::raised(self.peak_at(i0, mid, vs), f) <= self.ceiling {
+                            lo = mid;
+                        } else {
+                            hi = mid;
+                        }
+                    }
+                    duty = if Self::raised(self.peak_at(i0, lo, vs), f) <= self.ceiling {
+                        lo
+                    } else {
+                        0
+                    };
+                    active.insert(Condition::CurrentLimit);
+                }
+            } else if i_now >= self.ceiling {
+                duty = 0;
+                active.insert(Condition::CurrentLimit);
+            }
+        }
+        if duty > 0 && pwm {
+            predicted = self.peak_at(i0, duty, vs);
+        }
+        // A commanded turn-off (from on to off) against the single-pulse rating.
+        if duty == 0
+            && state.applied > 0
+            && let Some(r) = self.pulse_rating
+            && m.turn_off_energy(Current::from_bits(i_now), Volts::from_bits(vs)) > r
+        {
+            active.insert(Condition::ClampPulse);
+            if pol.clamp_pulse == Action::Trip {
+                state.latched.insert(Condition::ClampPulse);
+            }
+        }
+        active = active.union(state.latched);
+
+        state.applied = duty;
+        state.active = active;
+        Output {
+            duty,
+            active,
+            raised: active.minus(prev),
+            cleared: prev.minus(active),
+            latched: state.latched,
+            estimate: est,
+            predicted_peak: Current::from_bits(predicted),
+            release_in_us: release_in,
+        }
+    }
+}

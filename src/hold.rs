@@ -1,0 +1,112 @@
+//! Pull-in and hold for valves and relays: full on until the estimate reaches the pull-in
+//! current (or the pull-in time has passed), then the duty whose steady mean is the hold current
+//! at the measured supply.
+//!
+//! Hold currents of 30–50 % of the pull-in current are usual (common practice, no single
+//! source). The hold duty comes from the model's exact PWM steady state
+//! ([`Model::steady_state`]), which divides: it is recomputed only when the supply moves by more
+//! than 1/256 of itself, so most periods cost one comparison.
+
+use crate::model::Model;
+use crate::params::{ConfigError, Field, positive};
+use crate::units::{Current, Volts};
+
+/// A pull-in-and-hold plan (validated against a model).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct PullInHold {
+    pull_in: Current,
+    pull_in_periods: u32,
+    hold: Current,
+}
+
+/// Progress through a plan (per channel).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct HoldPhase {
+    periods: u32,
+    holding: bool,
+    cached_supply: u32,
+    cached_duty: u32,
+}
+
+impl HoldPhase {
+    /// Whether the plan has moved on to holding.
+    pub const fn holding(&self) -> bool {
+        self.holding
+    }
+}
+
+impl PullInHold {
+    /// A plan: pull in to `pull_in_current` (A) or for at most `pull_in_time` (s), then hold at
+    /// `hold_current` (A, below the pull-in current).
+    ///
+    /// # Errors
+    /// [`Field::HoldPullInCurrent`], [`Field::HoldPullInTime`] or [`Field::HoldCurrent`].
+    pub fn new(
+        model: &Model,
+        pull_in_current: f32,
+        pull_in_time: f32,
+        hold_current: f32,
+    ) -> Result<Self, ConfigError> {
+        let fs = model.derived().full_scale;
+        let pi = positive(
+            Field::HoldPullInCurrent,
+            pull_in_current,
+            fs * 1e-6,
+            fs * 1e3,
+        )?;
+        let t = positive(Field::HoldPullInTime, pull_in_time, 1e-6, 3600.0)?;
+        let h = positive(Field::HoldCurrent, hold_current, fs * 1e-6, pi)?;
+        let periods = libm::ceil(f64::from(t) / f64::from(model.derived().period));
+        let to_current = |a: f32| model.current_from_amps(a).unwrap_or(Current::ZERO);
+        Ok(Self {
+            pull_in: to_current(pi),
+            pull_in_periods: periods.min(f64::from(u32::MAX)) as u32,
+            hold: to_current(h),
+        })
+    }
+
+    /// The duty to request for the coming period, from the present estimate.
+    pub fn duty(
+        &self,
+        model: &Model,
+        phase: &mut HoldPhase,
+        estimate: Current,
+        supply: Volts,
+    ) -> u32 {
+        if !phase.holding {
+            if estimate < self.pull_in && phase.periods < self.pull_in_periods {
+                phase.periods += 1;
+                return model.duty_resolution();
+            }
+            phase.holding = true;
+        }
+        let vs = supply.to_bits();
+        let moved = vs.abs_diff(phase.cached_supply) > phase.cached_supply >> 8;
+        if phase.cached_duty == 0 || moved {
+            phase.cached_duty = self.hold_duty(model, supply);
+            phase.cached_supply = vs;
+        }
+        phase.cached_duty
+    }
+
+    /// The smallest duty whose steady mean current reaches the hold current at `supply`
+    /// (bisection over the counts; the full resolution if even 100 % falls short).
+    pub fn hold_duty(&self, model: &Model, supply: Volts) -> u32 {
+        let full = model.duty_resolution();
+        let (mut lo, mut hi) = (0u32, full);
+        if model.steady_state(full, supply).mean < self.hold {
+            return full;
+        }
+        while hi - lo > 1 {
+            let mid = lo + (hi - lo) / 2;
+            if model.steady_state(mid, supply).mean >= self.hold {
+                hi = mid;
+            } else {
+                lo = mid;
+            }
+        }
+        hi
+    }
+}

@@ -1,0 +1,401 @@
+//! Thermal replicas: the clamp device (a Foster network of up to three RC stages) and the
+//! winding (a first-order thermal image, IEC 60255-149).
+//!
+//! # Clamp device
+//! `Zth(t) = Σ Rᵢ·(1 − e^(−t/τᵢ))`. Each stage holds its rise ΔTᵢ (Q31.32 K). Over a control
+//! period T with energy E deposited, the input is taken as the period's mean power `P = E/T`:
+//! `ΔTᵢ' = ΔTᵢ + (Rᵢ·P − ΔTᵢ)·(1 − e^(−T/τᵢ))` (exact for power constant over the period). Over an
+//! event of arbitrary length t (no division by t allowed), the energy is added as an impulse at
+//! the end: `ΔTᵢ' = ΔTᵢ·e^(−t/τᵢ) + E·Rᵢ/τᵢ`, which bounds the uniform-power answer from above
+//! (`x ≥ 1 − e^(−x)`), so it is conservative.
+//!
+//! # Winding
+//! The thermal image θ (per unit of the steady rise at the basic current I_B) follows
+//! `θ' = θ + (q − θ)·(1 − e^(−t/τ))` with `q = (I_rms/I_B)²·R(T)/R(T_B)`: the heating with the
+//! resistance corrected to the estimated winding temperature `T = T_amb + θ·ΔT_B` (copper is about
+//! 28 % higher at 90 °C than at 20 °C), relative to the resistance at the temperature the basic
+//! current produces. It trips at `θ ≥ k²`. With α = 0 this is the IEC 60255-149 image exactly:
+//! cold `t = τ·ln(I²/(I² − k²))`, hot `t = τ·ln((I² − Ip²)/(I² − k²))`.
+//!
+//! # Panics
+//! None: configuration is validated; updates use the shared kernels, saturating.
+
+use crate::params::{ConfigError, Field, in_range, non_negative, positive};
+use crate::qmath::{Decay, DecayTable, EVENT_DIGITS, Gain, scale};
+use crate::units::{Current, Energy};
+use fixed::types::I32F32;
+
+/// One RC stage of a Foster network (from the device's transient thermal impedance curve).
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub struct FosterStage {
+    /// Thermal resistance, K/W (0 ..= 1000; 0 leaves the stage unused).
+    pub resistance: f32,
+    /// Time constant, s (1 µs ..= 10 000 s).
+    pub time_constant: f32,
+}
+
+impl FosterStage {
+    /// A stage of `resistance` K/W and `time_constant` s.
+    pub const fn new(resistance: f32, time_constant: f32) -> Self {
+        Self {
+            resistance,
+            time_constant,
+        }
+    }
+
+    /// An unused stage.
+    pub const UNUSED: FosterStage = FosterStage::new(0.0, 1.0);
+}
+
+/// Thermal model of the device that absorbs turn-off energy (the clamp, or the switch itself
+/// when it avalanches).
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub struct ClampThermal {
+    /// Up to three Foster stages; unused ones have zero resistance.
+    pub stages: [FosterStage; 3],
+    /// Ambient (or heatsink) temperature, °C (−100 ..= 300).
+    pub ambient: f32,
+    /// Temperature at which `clamp-overheat` is raised, °C (above ambient, ≤ 500).
+    pub ceiling: f32,
+    /// Cooling below the ceiling needed before turn-ons are allowed again, K (0 ..= 200).
+    pub hysteresis: f32,
+}
+
+impl ClampThermal {
+    /// A network with the given stages, ambient and ceiling (°C), with a 10 K hysteresis.
+    pub const fn new(stages: [FosterStage; 3], ambient: f32, ceiling: f32) -> Self {
+        Self {
+            stages,
+            ambient,
+            ceiling,
+            hysteresis: 10.0,
+        }
+    }
+}
+
+/// Thermal image of the winding, IEC 60255-149.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub struct CoilThermal {
+    /// Heating time constant, s (1 ms ..= 100 000 s).
+    pub time_constant: f32,
+    /// Basic current I_B: the current the winding carries continuously at its rated rise, A.
+    pub basic_current: f32,
+    /// Overload factor k: trip at θ ≥ k² (1 ..= 3; 1.05 is common).
+    pub overload_factor: f32,
+    /// Ambient temperature, °C (−100 ..= 300).
+    pub ambient: f32,
+    /// Steady winding rise at the basic current, K (1 ..= 400).
+    pub rise_at_basic: f32,
+}
+
+impl CoilThermal {
+    /// An image with time constant (s), basic current (A), overload factor, ambient (°C) and the
+    /// rise at the basic current (K).
+    pub const fn new(
+        time_constant: f32,
+        basic_current: f32,
+        overload_factor: f32,
+        ambient: f32,
+        rise_at_basic: f32,
+    ) -> Self {
+        Self {
+            time_constant,
+            basic_current,
+            overload_factor,
+            ambient,
+            rise_at_basic,
+        }
+    }
+}
+
+/// Q32.32 from f64, saturating into i64.
+fn q32s(v: f64) -> i64 {
+    let x = libm::round(v * 4_294_967_296.0);
+    if x >= 9.2e18 {
+        i64::MAX
+    } else if x <= -9.2e18 {
+        i64::MIN
+    } else {
+        x as i64
+    }
+}
+
+#[derive(Debug, Clone, PartialEq)]
+struct Stage {
+    per_period: Decay,
+    event: DecayTable<EVENT_DIGITS>,
+    /// Rᵢ·E_unit/T: ΔT target (Q32 K) per energy bit per period.
+    period_gain: Gain,
+    /// Rᵢ·E_unit/τᵢ: ΔT (Q32 K) per energy bit as an impulse.
+    impulse_gain: Gain,
+}
+
+/// Validated clamp-device replica (see the module documentation).
+#[derive(Debug, Clone, PartialEq)]
+pub struct ClampReplica {
+    stages: [Option<Stage>; 3],
+    ambient: i64,
+    ceiling_rise: i64,
+    release_rise: i64,
+}
+
+/// Per-channel state of a [`ClampReplica`]: the rise of each stage.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct ClampHeat {
+    rise: [i64; 3],
+}
+
+impl ClampReplica {
+    /// Validates `cfg` for a control period `period` (s) and an energy unit `energy_unit` (J).
+    ///
+    /// # Errors
+    /// [`Field::ClampThermalStage`], [`Field::ClampThermalAmbient`],
+    /// [`Field::ClampThermalCeiling`] or [`Field::ClampThermalHysteresis`].
+    pub fn new(cfg: &ClampThermal, period: f32, energy_unit: f32) -> Result<Self, ConfigError> {
+        let ambient = f64::from(in_range(
+            Field::ClampThermalAmbient,
+            cfg.ambient,
+            -100.0,
+            300.0,
+        )?);
+        let ceiling = f64::from(in_range(
+            Field::ClampThermalCeiling,
+            cfg.ceiling,
+            cfg.ambient.min(500.0),
+            500.0,
+        )?);
+        if ceiling <= ambient {
+            return Err(ConfigError::new(
+                Field::ClampThermalCeiling,
+                crate::Problem::OutOfRange {
+                    min: cfg.ambient,
+                    max: 500.0,
+                },
+            ));
+        }
+        let hyst = f64::from(non_negative(
+            Field::ClampThermalHysteresis,
+            cfg.hysteresis,
+            200.0,
+        )?);
+        let t = f64::from(period);
+        let unit = f64::from(energy_unit);
+        let mut stages: [Option<Stage>; 3] = [None, None, None];
+        for (slot, st) in stages.iter_mut().zip(cfg.stages.iter()) {
+            let r = f64::from(non_negative(
+                Field::ClampThermalStage,
+                st.resistance,
+                1000.0,
+            )?);
+            let tau = f64::from(positive(
+                Field::ClampThermalStage,
+                st.time_constant,
+                1e-6,
+                1e4,
+            )?);
+            if r == 0.0 {
+                continue;
+            }
+            *slot = Some(Stage {
+                per_period: DecayTable::<1>::new(t / tau).eval(1),
+                event: DecayTable::new(1e-6 / tau),
+                period_gain: Gain::new(r * unit / t),
+                impulse_gain: Gain::new(r * unit / tau),
+            });
+        }
+        Ok(Self {
+            stages,
+            ambient: q32s(ambient),
+            ceiling_rise: q32s(ceiling - ambient),
+            release_rise: q32s((ceiling - hyst - ambient).max(0.0)),
+        })
+    }
+
+    /// Adds one control period in which `energy` was deposited.
+    pub fn period(&self, heat: &mut ClampHeat, energy: Energy) {
+        for (rise, st) in heat.rise.iter_mut().zip(self.stages.iter()) {
+            if let Some(st) = st {
+                let target = st.period_gain.apply_wide(energy.to_bits()).min(1 << 62) as i64;
+                *rise += scale(target - *rise, st.per_period);
+            }
+        }
+    }
+
+    /// Adds an event of `micros` µs at whose end `energy` was deposited.
+    pub fn event(&self, heat: &mut ClampHeat, energy: Energy, micros: u32) {
+        for (rise, st) in heat.rise.iter_mut().zip(self.stages.iter()) {
+            if let Some(st) = st {
+                *rise -= scale(*rise, st.event.eval(micros));
+                let add = st.impulse_gain.apply_wide(energy.to_bits()).min(1 << 62) as i64;
+                *rise = rise.saturating_add(add).min(1 << 62);
+            }
+        }
+    }
+
+    /// Total rise above ambient, Q32.32 K.
+    fn rise(heat: &ClampHeat) -> i64 {
+        heat.rise.iter().fold(0i64, |a, r| a.saturating_add(*r))
+    }
+
+    /// Estimated device temperature, °C.
+    pub fn temperature(&self, heat: &ClampHeat) -> I32F32 {
+        I32F32::from_bits(self.ambient.saturating_add(Self::rise(heat)))
+    }
+
+    /// Whether the temperature is at or above the ceiling.
+    pub fn over_ceiling(&self, heat: &ClampHeat) -> bool {
+        Self::rise(heat) >= self.ceiling_rise
+    }
+
+    /// Whether it has cooled by the hysteresis below the ceiling.
+    pub fn cooled(&self, heat: &ClampHeat) -> bool {
+        Self::rise(heat) <= self.release_rise
+    }
+}
+
+/// Validated winding thermal image (see the module documentation).
+#[derive(Debug, Clone, PartialEq)]
+pub struct CoilReplica {
+    per_period: Decay,
+    event: DecayTable<EVENT_DIGITS>,
+    /// (I_fs/I_B)² scaled from a Q40 mean square to Q32 θ.
+    square_gain: Gain,
+    /// Resistance factor R(T)/R(T_B) = c0 + c1·θ, Q32.32.
+    c0: u64,
+    c1: u64,
+    trip: u64,
+    ambient: i64,
+    rise: u64,
+}
+
+/// Per-channel state of a [`CoilReplica`]: the thermal image θ (Q32.32 per unit).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct CoilHeat {
+    theta: u64,
+}
+
+impl CoilHeat {
+    /// A winding already at image `theta` (per unit; 1.0 is the steady state at the basic
+    /// current), e.g. `1.0` for a hot start after running at rated current.
+    pub fn with_image(theta: f32) -> Self {
+        let t = f64::from(theta);
+        let bits = if t.is_finite() && t > 0.0 {
+            libm::round(t.min(1e6) * 4_294_967_296.0) as u64
+        } else {
+            0
+        };
+        Self { theta: bits }
+    }
+
+    /// The thermal image θ (per unit).
+    pub const fn image(&self) -> I32F32 {
+        I32F32::from_bits(self.theta as i64)
+    }
+}
+
+impl CoilReplica {
+    /// Validates `cfg`. `period` (s), the model's full-scale current (A), and the coil's
+    /// reference temperature (°C) and temperature coefficient (1/K) come from the drive.
+    ///
+    /// # Errors
+    /// One of the `Field::CoilThermal*` fields.
+    pub fn new(
+        cfg: &CoilThermal,
+        period: f32,
+        full_scale: f32,
+        reference_temperature: f32,
+        temperature_coefficient: f32,
+    ) -> Result<Self, ConfigError> {
+        let tau = f64::from(positive(
+            Field::CoilThermalTimeConstant,
+            cfg.time_constant,
+            1e-3,
+            1e5,
+        )?);
+        let ib = f64::from(positive(
+            Field::CoilThermalBasicCurrent,
+            cfg.basic_current,
+            1e-5,
+            1e4,
+        )?);
+        let k = f64::from(positive(
+            Field::CoilThermalOverloadFactor,
+            cfg.overload_factor,
+            1.0,
+            3.0,
+        )?);
+        let amb = f64::from(in_range(
+            Field::CoilThermalAmbient,
+            cfg.ambient,
+            -100.0,
+            300.0,
+        )?);
+        let rise = f64::from(positive(
+            Field::CoilThermalRiseAtBasic,
+            cfg.rise_at_basic,
+            1.0,
+            400.0,
+        )?);
+        let alpha = f64::from(temperature_coefficient);
+        let t_ref = f64::from(reference_temperature);
+        let r_b = 1.0 + alpha * (amb + rise - t_ref);
+        let fs = f64::from(full_scale);
+        Ok(Self {
+            per_period: DecayTable::<1>::new(f64::from(period) / tau).eval(1),
+            event: DecayTable::new(1e-6 / tau),
+            // mean square in Q40 (FS²·2^40) → θ Q32: ·(FS/I_B)²·2^−8.
+            square_gain: Gain::new((fs / ib) * (fs / ib) / 256.0),
+            c0: crate::model::q32((1.0 + alpha * (amb - t_ref)) / r_b),
+            c1: crate::model::q32(alpha * rise / r_b),
+            trip: crate::model::q32(k * k),
+            ambient: q32s(amb),
+            rise: crate::model::q32(rise),
+        })
+    }
+
+    /// Heating target q for a period with this peak and valley (mean square of a linear ramp).
+    fn target(&self, heat: CoilHeat, peak: Current, valley: Current) -> u64 {
+        let p = u128::from(peak.working_bits() as u64);
+        let v = u128::from(valley.working_bits() as u64);
+        let ms = ((p * p + p * v + v * v) / 3) >> 40; // Q40, ≤ 2^82 before the shift
+        let q = self
+            .square_gain
+            .apply_wide(ms.min(u128::from(u64::MAX)) as u64);
+        // R(T)/R(T_B) with T from θ; ≥ 0 for validated temperatures.
+        let theta = heat.theta.min(1 << 52);
+        let factor = self
+            .c0
+            .saturating_add(((u128::from(self.c1) * u128::from(theta)) >> 32) as u64);
+        ((u128::from(q) * u128::from(factor)) >> 32).min(1 << 62) as u64
+    }
+
+    /// Adds one control period with the estimate's peak and valley.
+    pub fn period(&self, heat: &mut CoilHeat, peak: Current, valley: Current) {
+        let q = self.target(*heat, peak, valley) as i64;
+        let th = heat.theta as i64;
+        heat.theta = (th + scale(q - th, self.per_period)).max(0) as u64;
+    }
+
+    /// Adds an event of `micros` µs with the estimate's peak and valley over it.
+    pub fn event(&self, heat: &mut CoilHeat, peak: Current, valley: Current, micros: u32) {
+        let q = self.target(*heat, peak, valley) as i64;
+        let th = heat.theta as i64;
+        heat.theta = (th + scale(q - th, self.event.eval(micros))).max(0) as u64;
+    }
+
+    /// Whether the image has reached the trip level k².
+    pub fn tripped(&self, heat: &CoilHeat) -> bool {
+        heat.theta >= self.trip
+    }
+
+    /// Estimated winding temperature, °C: `T_amb + θ·ΔT_B`.
+    pub fn temperature(&self, heat: &CoilHeat) -> I32F32 {
+        let rise = (u128::from(heat.theta) * u128::from(self.rise)) >> 32;
+        I32F32::from_bits(self.ambient.saturating_add(rise.min(1 << 62) as i64))
+    }
+}
