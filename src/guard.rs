@@ -51,6 +51,12 @@ use crate::thermal::{ClampHeat, ClampReplica, ClampThermal, CoilHeat, CoilReplic
 use crate::units::{Current, Energy, Volts};
 use fixed::types::I32F32;
 
+/// Calls for which `current-limit` stays reported after the last limited one. Peak limiting
+/// alternates limited and unlimited periods (a period after a limited one often fits the full
+/// request); the report lingers so that the condition reads as one episode, not a flood of
+/// raised/cleared events. The duty itself is never held back by this.
+pub const LIMIT_LINGER: u8 = 32;
+
 /// What to do with a turn-on requested during the release interval.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
@@ -211,6 +217,11 @@ pub struct GuardState {
     latched: Conditions,
     retries: u8,
     dropped: bool,
+    /// Calls left before `current-limit` is reported clear (see [`LIMIT_LINGER`]).
+    limit_linger: u8,
+    /// The current is an assumption (after a reset), not an estimate from a known start: it
+    /// holds the output off but raises no overcurrent or clamp-pulse until it has decayed.
+    assumed: bool,
 }
 
 impl GuardState {
@@ -376,9 +387,9 @@ impl Guard {
             }
             None => None,
         };
-        // Worst-case current after a reset: the steady on-current at twice the maximum supply,
-        // the highest the estimator itself can reach.
-        let worst_current = model.on_asymptote(model.supply(Volts::MAX)).max(trip);
+        // Worst-case current after a reset: the steady on-current at the maximum supply, or the
+        // trip current if higher.
+        let worst_current = model.on_asymptote(v_max.to_bits()).max(trip);
         Ok(Self {
             ceiling,
             trip,
@@ -437,14 +448,26 @@ impl Guard {
             latched: Conditions::NONE,
             retries: 0,
             dropped: false,
+            limit_linger: 0,
+            assumed: false,
         }
     }
 
-    /// State after a reset, when the coil may still carry the worst-case current: the output
-    /// stays off for the full decay time to the release current.
+    /// State after a reset, when the coil may still carry the worst-case current (the higher of
+    /// the trip current and the steady on-current at the maximum supply): the output stays off
+    /// for the full decay time to the release current. The assumed current raises no
+    /// `overcurrent` or `clamp-pulse`; it is a belief, not an observation.
     pub fn start_after_reset(&self) -> GuardState {
         GuardState {
-            coil: CoilState::with_current(Current::from_bits(self.worst_current)),
+            assumed: true,
+            ..self.start_with_current(Current::from_bits(self.worst_current))
+        }
+    }
+
+    /// State for a coil known to carry `current` now (e.g. measured at start-up), output off.
+    pub fn start_with_current(&self, current: Current) -> GuardState {
+        GuardState {
+            coil: CoilState::with_current(current),
             ..self.start_idle()
         }
     }
@@ -672,8 +695,11 @@ impl Guard {
                 pol.supply_low,
             );
         }
+        if state.assumed && i_now <= self.release {
+            state.assumed = false;
+        }
         // Trip level.
-        if i_now.max(i_peak) > self.trip {
+        if !state.assumed && i_now.max(i_peak) > self.trip {
             apply(
                 &mut active,
                 &mut hold,
@@ -684,6 +710,7 @@ impl Guard {
         }
         // Clamp pulse: the off-segment just ended, and any turn-off about to be commanded below.
         if let Some(r) = self.pulse_rating
+            && !state.assumed
             && energy > r
         {
             apply(
@@ -793,6 +820,12 @@ impl Guard {
         }
         if duty > 0 && pwm {
             predicted = self.peak_at(i0, duty, vs);
+        }
+        if active.contains(Condition::CurrentLimit) {
+            state.limit_linger = LIMIT_LINGER;
+        } else if state.limit_linger > 0 {
+            state.limit_linger -= 1;
+            active.insert(Condition::CurrentLimit);
         }
         // A commanded turn-off (from on to off) against the single-pulse rating.
         if duty == 0

@@ -39,7 +39,9 @@ mod units;
 pub use adc::SupplySense;
 pub use condition::{Action, Condition, Conditions, Edge, Event, EventLog};
 pub use estimate::{CoilState, PeriodEstimate};
-pub use guard::{Guard, GuardLimits, GuardState, HeldRequest, Input, Output, Policy, Retry};
+pub use guard::{
+    Guard, GuardLimits, GuardState, HeldRequest, Input, LIMIT_LINGER, Output, Policy, Retry,
+};
 pub use hal::{GuardedPwm, GuardedSwitch};
 pub use hold::{HoldPhase, PullInHold};
 pub use model::{Derived, Model, PathKind};

@@ -46,8 +46,10 @@ cargo "+$MSRV" check -p coilward
 step "tests"
 cargo test --workspace
 
-step "example"
-cargo run --quiet --example demo_coil >/dev/null
+step "examples"
+for ex in demo_coil valve relay; do
+    cargo run --quiet --example "$ex" >/dev/null
+done
 
 echo
 echo "all checks passed"
