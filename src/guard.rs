@@ -105,6 +105,7 @@ impl Default for Policy {
 
 /// Automatic retry after a trip.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
 pub struct Retry {
     /// Wait after the tripping condition has cleared, s (1 µs ..= 4000 s).
@@ -125,6 +126,7 @@ impl Retry {
 
 /// The guard's limits in SI units (configuration time).
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
 pub struct GuardLimits {
     /// Highest predicted peak the duty may produce, A.

@@ -22,6 +22,7 @@ pub const COPPER_TEMPERATURE_COEFFICIENT: f32 = 0.003_93;
 
 /// The supply that feeds the coil (the high side of the coil; the switch is on the low side).
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
 pub struct SupplyParams {
     /// Nominal supply voltage, V. Range 0.1 ..= 1000.
@@ -41,6 +42,7 @@ impl SupplyParams {
 
 /// The coil (winding) being driven.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
 pub struct CoilParams {
     /// Inductance, H. Range 1 µH ..= 1000 H.
@@ -92,6 +94,7 @@ impl CoilParams {
 
 /// The low-side switch (a MOSFET).
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
 pub struct SwitchParams {
     /// On-resistance, Ω. Range 0 ..= 1 kΩ.
@@ -112,6 +115,7 @@ impl SwitchParams {
 
 /// The path that carries the coil current once the switch opens.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
 pub enum ClampPath {
     /// Nothing: the switch node rises until the switch avalanches at its breakdown voltage.
@@ -143,6 +147,7 @@ pub enum ClampPath {
 
 /// Control timing and the scale of the current estimate.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
 pub struct ControlParams {
     /// PWM period or control tick, s. Range 100 ns ..= 1 s.
@@ -167,6 +172,7 @@ impl ControlParams {
 
 /// The whole drive: supply, coil, switch, clamp path and control.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
 pub struct Params {
     /// The supply.

@@ -27,6 +27,7 @@ use fixed::types::I32F32;
 
 /// One RC stage of a Foster network (from the device's transient thermal impedance curve).
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
 pub struct FosterStage {
     /// Thermal resistance, K/W (0 ..= 1000; 0 leaves the stage unused).
@@ -51,6 +52,7 @@ impl FosterStage {
 /// Thermal model of the device that absorbs turn-off energy (the clamp, or the switch itself
 /// when it avalanches).
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
 pub struct ClampThermal {
     /// Up to three Foster stages; unused ones have zero resistance.
@@ -77,6 +79,7 @@ impl ClampThermal {
 
 /// Thermal image of the winding, IEC 60255-149.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
 pub struct CoilThermal {
     /// Heating time constant, s (1 ms ..= 100 000 s).

@@ -341,6 +341,45 @@ fn clamp_overheat_holds_until_cooled_by_the_hysteresis() {
 }
 
 #[test]
+fn clamp_overheat_boundary() {
+    // The steady clamp temperature of a 90 % drive, then ceilings just above and just below it.
+    let p = common::valve_with(ClampPath::FreewheelZener {
+        forward_drop: 0.7,
+        zener_voltage: 24.0,
+        resistance: 0.0,
+    });
+    let with_ceiling = |ceiling: f32| {
+        let mut l = GuardLimits::new(1.45, 1.5, 0.05);
+        l.clamp_thermal = Some(ClampThermal::new(
+            [
+                FosterStage::new(20.0, 5e-3),
+                FosterStage::UNUSED,
+                FosterStage::UNUSED,
+            ],
+            25.0,
+            ceiling,
+        ));
+        Guard::new(&p, &l).unwrap()
+    };
+    let g = with_ceiling(400.0);
+    let mut s = g.start_idle();
+    run(&g, &mut s, N * 9 / 10, 20_000);
+    let steady = g.clamp_temperature(&s).unwrap().to_num::<f32>();
+    for (ceiling, raised) in [(steady + 0.5, false), (steady - 0.5, true)] {
+        let g = with_ceiling(ceiling);
+        let mut s = g.start_idle();
+        let mut seen = false;
+        for _ in 0..20_000 {
+            seen |= g
+                .tick(&mut s, Input::new(N * 9 / 10, v(24.0)))
+                .active
+                .contains(Condition::ClampOverheat);
+        }
+        assert_eq!(seen, raised, "ceiling {ceiling} °C, steady {steady} °C");
+    }
+}
+
+#[test]
 fn coil_overheat_trips_on_the_thermal_image() {
     // Basic current 0.5 A, τ 1 s, k = 1.05: holding ~1.3 A trips; holding 0.5 A does not.
     let mut l = basic();
