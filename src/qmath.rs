@@ -33,9 +33,6 @@ pub(crate) struct Decay {
 }
 
 impl Decay {
-    /// No decay (zero time).
-    pub(crate) const NONE: Decay = Decay { m: 0, s: 0 };
-
     /// The value as f64 (tests and configuration only).
     #[cfg(test)]
     pub(crate) fn value(self) -> f64 {
@@ -89,27 +86,27 @@ impl<const D: usize> DecayTable<D> {
     }
 
     /// `E(n·u)` for a count `n` (`n < 16^D`; higher digits are ignored).
+    ///
+    /// Digits are visited from the most significant down; the first non-zero one fixes the
+    /// scale. Written with iterators so that no index needs a bounds check (the panic-free link
+    /// of the firmware depends on it).
     pub(crate) fn eval(&self, n: u32) -> Decay {
-        // Most significant non-zero digit.
-        let mut top = D;
-        while top > 0 && digit(n, top - 1) == 0 {
-            top -= 1;
-        }
-        if top == 0 {
-            return Decay::NONE;
-        }
-        let top = top - 1;
-        let s = self.s[top];
-        let mut acc = self.m[top][digit(n, top)];
-        let mut d = top;
-        while d > 0 {
-            d -= 1;
+        let mut acc: u32 = 0;
+        let mut s: u32 = 0;
+        let mut started = false;
+        for (d, (row, &sd)) in self.m.iter().zip(self.s.iter()).enumerate().rev() {
             let j = digit(n, d);
             if j == 0 {
                 continue;
             }
-            let e = self.m[d][j];
-            let sd = self.s[d]; // sd >= s: lower digits have smaller values, larger scales.
+            let e = row[j]; // j <= 15 and a row has 16 entries
+            if !started {
+                acc = e;
+                s = sd;
+                started = true;
+                continue;
+            }
+            // sd >= s: lower digits have smaller values, larger scales.
             let aligned = e.checked_shr(sd.saturating_sub(s)).unwrap_or(0);
             // E_acc·E_d in scale s: acc·e·2^−(32+sd).
             let prod = (u64::from(acc) * u64::from(e))
@@ -320,6 +317,18 @@ pub(crate) fn exp2(z: i64) -> u64 {
     }
 }
 
+/// `x·2^(−y)` for `x >= 0` and `y` in Q32.32, rounded toward zero (`exp2_neg` plus one
+/// u128 product): the decay of a thermal replica over an arbitrary event length.
+pub(crate) fn mul_exp2_neg(x: i64, y: u64) -> i64 {
+    if x <= 0 || y >= 64 << 32 {
+        return 0;
+    }
+    let (m, sh) = exp2_neg(y);
+    let p = (u128::from(x as u64) * u128::from(m)) >> 63;
+    // m <= 2^63, so p <= x and the cast back is exact.
+    p.checked_shr(sh).unwrap_or(0) as i64
+}
+
 /// Which series [`series`] builds.
 #[derive(Clone, Copy)]
 enum Series {
@@ -503,7 +512,7 @@ mod tests {
     #[test]
     fn decay_table_zero_and_saturation() {
         let t = DecayTable::<4>::new(1e-3);
-        assert_eq!(t.eval(0), Decay::NONE);
+        assert_eq!(t.eval(0), Decay { m: 0, s: 0 });
         let big = DecayTable::<4>::new(10.0);
         let e = big.eval(65535);
         assert_eq!((e.m, e.s), (u32::MAX, 0));

@@ -74,12 +74,13 @@ impl Model {
         let valley = num.checked_div(den).unwrap_or(0);
         let d_num = i128::from(n);
         let d_den = i128::from(self.duty_full);
-        let on_mean = a_on * d_num / d_den;
+        // d_den is the validated duty resolution (>= 1); checked all the same.
+        let on_mean = (a_on * d_num).checked_div(d_den).unwrap_or(0);
         let gap = self.tau_gap_over_period;
         if valley >= 0 {
             let v = valley as i64;
             let peak = v + scale(a_on as i64 - v, e1);
-            let off_mean = a_off * (d_den - d_num) / d_den;
+            let off_mean = (a_off * (d_den - d_num)).checked_div(d_den).unwrap_or(0);
             let mean = on_mean + off_mean + mul_q32(i128::from(peak - v), gap);
             return SteadyState {
                 valley: Current::from_bits(v),

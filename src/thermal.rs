@@ -7,7 +7,9 @@
 //! `ΔTᵢ' = ΔTᵢ + (Rᵢ·P − ΔTᵢ)·(1 − e^(−T/τᵢ))` (exact for power constant over the period). Over an
 //! event of arbitrary length t (no division by t allowed), the energy is added as an impulse at
 //! the end: `ΔTᵢ' = ΔTᵢ·e^(−t/τᵢ) + E·Rᵢ/τᵢ`, which bounds the uniform-power answer from above
-//! (`x ≥ 1 − e^(−x)`), so it is conservative.
+//! (`x ≥ 1 − e^(−x)`), so it is conservative. The event decay `e^(−t/τ) = 2^(−t·log2(e)/τ)` comes
+//! from the `2^−y` kernel (32 products) rather than a per-µs table, which keeps each replica
+//! small (a table per stage would cost 544 bytes).
 //!
 //! # Winding
 //! The thermal image θ (per unit of the steady rise at the basic current I_B) follows
@@ -21,7 +23,7 @@
 //! None: configuration is validated; updates use the shared kernels, saturating.
 
 use crate::params::{ConfigError, Field, in_range, non_negative, positive};
-use crate::qmath::{Decay, DecayTable, EVENT_DIGITS, Gain, scale};
+use crate::qmath::{Decay, DecayTable, Gain, mul_exp2_neg, scale};
 use crate::units::{Current, Energy};
 use fixed::types::I32F32;
 
@@ -126,10 +128,11 @@ fn q32s(v: f64) -> i64 {
     }
 }
 
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq)]
 struct Stage {
     per_period: Decay,
-    event: DecayTable<EVENT_DIGITS>,
+    /// log2(e)/τᵢ per µs: an event of t µs decays by 2^(−t·rate).
+    event_rate: Gain,
     /// Rᵢ·E_unit/T: ΔT target (Q32 K) per energy bit per period.
     period_gain: Gain,
     /// Rᵢ·E_unit/τᵢ: ΔT (Q32 K) per energy bit as an impulse.
@@ -205,7 +208,7 @@ impl ClampReplica {
             }
             *slot = Some(Stage {
                 per_period: DecayTable::<1>::new(t / tau).eval(1),
-                event: DecayTable::new(1e-6 / tau),
+                event_rate: Gain::new(core::f64::consts::LOG2_E * 1e-6 / tau * 4_294_967_296.0),
                 period_gain: Gain::new(r * unit / t),
                 impulse_gain: Gain::new(r * unit / tau),
             });
@@ -232,7 +235,7 @@ impl ClampReplica {
     pub fn event(&self, heat: &mut ClampHeat, energy: Energy, micros: u32) {
         for (rise, st) in heat.rise.iter_mut().zip(self.stages.iter()) {
             if let Some(st) = st {
-                *rise -= scale(*rise, st.event.eval(micros));
+                *rise = mul_exp2_neg(*rise, st.event_rate.apply(micros));
                 let add = st.impulse_gain.apply_wide(energy.to_bits()).min(1 << 62) as i64;
                 *rise = rise.saturating_add(add).min(1 << 62);
             }
@@ -264,7 +267,8 @@ impl ClampReplica {
 #[derive(Debug, Clone, PartialEq)]
 pub struct CoilReplica {
     per_period: Decay,
-    event: DecayTable<EVENT_DIGITS>,
+    /// log2(e)/τ per µs (Q32.32 of the exponent per µs, in floating form).
+    event_rate: Gain,
     /// (I_fs/I_B)² scaled from a Q40 mean square to Q32 θ.
     square_gain: Gain,
     /// Resistance factor R(T)/R(T_B) = c0 + c1·θ, Q32.32.
@@ -350,7 +354,7 @@ impl CoilReplica {
         let fs = f64::from(full_scale);
         Ok(Self {
             per_period: DecayTable::<1>::new(f64::from(period) / tau).eval(1),
-            event: DecayTable::new(1e-6 / tau),
+            event_rate: Gain::new(core::f64::consts::LOG2_E * 1e-6 / tau * 4_294_967_296.0),
             // mean square in Q40 (FS²·2^40) → θ Q32: ·(FS/I_B)²·2^−8.
             square_gain: Gain::new((fs / ib) * (fs / ib) / 256.0),
             c0: crate::model::q32((1.0 + alpha * (amb - t_ref)) / r_b),
@@ -384,11 +388,18 @@ impl CoilReplica {
         heat.theta = (th + scale(q - th, self.per_period)).max(0) as u64;
     }
 
-    /// Adds an event of `micros` µs with the estimate's peak and valley over it.
+    /// Adds an event of `micros` µs with the estimate's peak and valley over it:
+    /// `θ' = q + (θ − q)·e^(−t/τ)`, with the exponential from the `2^−y` kernel.
     pub fn event(&self, heat: &mut CoilHeat, peak: Current, valley: Current, micros: u32) {
         let q = self.target(*heat, peak, valley) as i64;
         let th = heat.theta as i64;
-        heat.theta = (th + scale(q - th, self.event.eval(micros))).max(0) as u64;
+        let y = self.event_rate.apply(micros);
+        let next = if th >= q {
+            q + mul_exp2_neg(th - q, y)
+        } else {
+            q - mul_exp2_neg(q - th, y)
+        };
+        heat.theta = next.max(0) as u64;
     }
 
     /// Whether the image has reached the trip level k².

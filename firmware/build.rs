@@ -1,0 +1,24 @@
+//! Picks the memory layout of the emulated board for the target being built:
+//! thumbv6m → BBC micro:bit (nRF51822), thumbv7em → MPS2 AN386, thumbv8m.main → MPS2 AN505.
+use std::{env, fs, path::PathBuf};
+
+fn main() {
+    let target = env::var("TARGET").unwrap_or_default();
+    let memory = if target.starts_with("thumbv6m") {
+        // nRF51822: 256 KiB flash at 0, 16 KiB RAM at 0x2000_0000.
+        "MEMORY { FLASH : ORIGIN = 0x00000000, LENGTH = 256K\n RAM : ORIGIN = 0x20000000, LENGTH = 16K }\n"
+    } else if target.starts_with("thumbv7em") {
+        // MPS2 AN386: 4 MiB ZBT SSRAM1 at 0 (code), 4 MiB SSRAM2/3 at 0x2000_0000.
+        "MEMORY { FLASH : ORIGIN = 0x00000000, LENGTH = 4096K\n RAM : ORIGIN = 0x20000000, LENGTH = 4096K }\n"
+    } else if target.starts_with("thumbv8m") {
+        // MPS2 AN505 (secure aliases): SSRAM1 at 0x1000_0000, SSRAM2/3 at 0x3800_0000.
+        "MEMORY { FLASH : ORIGIN = 0x10000000, LENGTH = 4096K\n RAM : ORIGIN = 0x38000000, LENGTH = 4096K }\n"
+    } else {
+        // Host builds (e.g. `cargo check` without a target) need no layout.
+        ""
+    };
+    let out = PathBuf::from(env::var("OUT_DIR").expect("cargo sets OUT_DIR"));
+    fs::write(out.join("memory.x"), memory).expect("write memory.x");
+    println!("cargo:rustc-link-search={}", out.display());
+    println!("cargo:rerun-if-changed=build.rs");
+}

@@ -1,0 +1,67 @@
+//! Panic-free by construction: this firmware calls every per-tick entry point of the guard and
+//! the configuration, with inputs the optimiser cannot see through, and its panic handler
+//! references a symbol that exists nowhere. A release (LTO) build links only if no panic path
+//! is left. When it fails, the linker names `coilward_panic_path_is_reachable`; find the caller
+//! with `arm-none-eabi-objdump -d` (or `cargo objdump`) and a search for the panic functions
+//! (`core::panicking`, `panic_bounds_check`, `panic_const_*`), see DEVELOPERS.md.
+#![no_std]
+#![no_main]
+
+use coilward::{Current, EventLog, Guard, HoldPhase, Input, PullInHold, SupplySense, Volts};
+use coilward_firmware::trace;
+use core::hint::black_box;
+use cortex_m_rt::entry;
+
+unsafe extern "C" {
+    /// Defined nowhere: any reachable panic makes the link fail.
+    fn coilward_panic_path_is_reachable() -> !;
+}
+
+#[panic_handler]
+fn panic(_: &core::panic::PanicInfo) -> ! {
+    // SAFETY: never called when the link succeeds — the symbol does not exist, so a build that
+    // could reach this line does not link at all.
+    unsafe { coilward_panic_path_is_reachable() }
+}
+
+#[entry]
+fn main() -> ! {
+    let params = black_box(trace::params());
+    let limits = black_box(trace::limits());
+    let Ok(guard) = Guard::new(&params, &limits) else {
+        loop {
+            cortex_m::asm::nop();
+        }
+    };
+    let guard = black_box(guard);
+    let model = guard.model();
+    let sense = SupplySense::new(black_box(0.0089), black_box(0.0));
+    let plan = PullInHold::new(model, black_box(1.0), black_box(0.02), black_box(0.45));
+    let mut state = black_box(guard.start_after_reset());
+    let mut log = EventLog::<8>::new();
+    let mut phase = HoldPhase::default();
+    loop {
+        let counts: u16 = black_box(2700);
+        let vs = match &sense {
+            Ok(s) => s.volts(counts),
+            Err(_) => Volts::from_bits(black_box(0)),
+        };
+        let duty = match &plan {
+            Ok(p) => p.duty(model, &mut phase, state.current(), vs),
+            Err(_) => black_box(0),
+        };
+        let out = guard.tick(&mut state, Input::new(black_box(duty), vs));
+        log.record(black_box(0), out.raised, out.cleared);
+        let out = guard.event(&mut state, black_box(true), black_box(123), vs);
+        let i: Current = black_box(out.estimate.peak);
+        black_box(model.turn_off_energy(i, vs));
+        black_box(model.decay_time_us(i, Current::ZERO, vs));
+        black_box(model.peak_drain_voltage(i, vs));
+        black_box(model.steady_state(black_box(duty), vs));
+        black_box(guard.on_time_to_ceiling_us(&state, vs));
+        black_box(log.pop());
+        if black_box(false) {
+            guard.clear(&mut state);
+        }
+    }
+}
