@@ -513,8 +513,7 @@ impl Guard {
         if gap <= 0 {
             return one;
         }
-        let extra = (u128::from(gap as u64) * u128::from(self.stale_per_kelvin)) >> 32;
-        one.saturating_add(extra.min(u128::from(u64::MAX)) as u64)
+        one.saturating_add(crate::qmath::mul_q32(gap as u64, self.stale_per_kelvin))
     }
 
     /// `i·f` for a stale factor f (Q32.32).
@@ -522,8 +521,7 @@ impl Guard {
         if f == 1 << 32 {
             return i;
         }
-        let p = (u128::from(i.max(0) as u64) * u128::from(f)) >> 32;
-        p.min(Current::LIMIT.to_bits() as u128) as i64
+        crate::qmath::mul_q32(i.max(0) as u64, f).min(Current::LIMIT.to_bits() as u64) as i64
     }
 
     /// Predicted peak of the coming period at duty `n` from current `i0` (raw).

@@ -190,15 +190,50 @@ impl Gain {
     }
 
     /// `x·g` for a wide operand (closed forms only, not the per-period step), saturating.
+    ///
+    /// The 96-bit product is formed from two u32×u32 → u64 products (no 128-bit arithmetic).
     pub(crate) fn apply_wide(self, x: u64) -> u64 {
-        self.apply_u128(u128::from(x))
+        let m = u64::from(self.m);
+        let hi = (x >> 32) * m; // < 2^64
+        let lo = (x & 0xFFFF_FFFF) * m; // < 2^64
+        // value = hi·2^32 + lo, then shifted by sh.
+        if self.sh >= 0 {
+            let sh = self.sh as u32;
+            // hi·2^(32+sh) must stay below 2^64.
+            if hi != 0 && (sh >= 32 || hi.leading_zeros() < 32 + sh) {
+                return u64::MAX;
+            }
+            let high = hi.checked_shl(32 + sh).unwrap_or(0);
+            let low = if sh >= 64 || (lo != 0 && lo.leading_zeros() < sh) {
+                return u64::MAX;
+            } else {
+                lo << sh
+            };
+            high.saturating_add(low)
+        } else {
+            let s = self.sh.unsigned_abs();
+            if s >= 32 {
+                // (hi·2^32 + lo) >> s = (hi + lo/2^32) >> (s − 32), truncated.
+                hi.saturating_add(lo >> 32).checked_shr(s - 32).unwrap_or(0)
+            } else {
+                // hi·2^(32−s) + lo >> s.
+                let high = if hi.leading_zeros() < 32 - s {
+                    return u64::MAX;
+                } else {
+                    hi << (32 - s)
+                };
+                high.saturating_add(lo >> s)
+            }
+        }
     }
 
     /// `x·g` for a u128 operand (closed forms and thermal inputs), saturating at `u64::MAX`.
     pub(crate) fn apply_u128(self, x: u128) -> u64 {
-        let Some(p) = x.checked_mul(u128::from(self.m)) else {
+        // x·m fits u128 when x < 2^96 (m < 2^32); anything larger saturates.
+        if x >> 96 != 0 {
             return u64::MAX;
-        };
+        }
+        let p = x * u128::from(self.m);
         let r = if self.sh >= 0 {
             let sh = self.sh as u32;
             if sh >= 128 || p.leading_zeros() < sh {
@@ -219,13 +254,66 @@ impl Gain {
     }
 }
 
+/// `(a·b) >> 32` for `b` a Q32.32 factor, saturating, from u32×u32 → u64 products only.
+#[inline]
+pub(crate) fn mul_q32(a: u64, b: u64) -> u64 {
+    let (a_hi, a_lo) = (a >> 32, a & 0xFFFF_FFFF);
+    let (b_hi, b_lo) = (b >> 32, b & 0xFFFF_FFFF);
+    // a·b/2^32 = a_hi·b_hi·2^32 + a_hi·b_lo + a_lo·b_hi + a_lo·b_lo/2^32.
+    let Some(top) = (a_hi * b_hi).checked_mul(1 << 32) else {
+        return u64::MAX;
+    };
+    top.saturating_add(a_hi * b_lo)
+        .saturating_add(a_lo * b_hi)
+        .saturating_add((a_lo * b_lo) >> 32)
+}
+
 /// Fractional bits of [`log2`] results.
 pub(crate) const LOG_FRAC: u32 = 32;
 
+/// `log2(m)` for a Q1.63 mantissa `m` in [1, 2), rounded to a Q0.32 fraction, one bit per
+/// squaring (40 rounds in u128). Used at compile time to build [`LOG2_TABLE`].
+const fn log2_mantissa_by_squaring(m: u64) -> u64 {
+    let mut m = m as u128;
+    let mut frac: u64 = 0;
+    let mut bit = 1u64 << 39;
+    while bit != 0 {
+        // m < 2^64 (Q1.63 in [1, 2)), so m·m < 2^128.
+        m = (m * m) >> 63;
+        if m >= 1 << 64 {
+            m >>= 1;
+            frac |= bit;
+        }
+        bit >>= 1;
+    }
+    (frac + (1 << 7)) >> 8
+}
+
+/// Entries of the logarithm table: the mantissa's top 6 fraction bits.
+const LOG2_STEPS: usize = 64;
+
+/// `(log2(1 + k/64)` in Q0.32, `1/(1 + k/64)` in Q1.31`) for k = 0 ..= 63, built at compile time.
+const LOG2_TABLE: [(u32, u32); LOG2_STEPS] = {
+    let mut t = [(0u32, 0u32); LOG2_STEPS];
+    let mut k = 0;
+    while k < LOG2_STEPS {
+        let m = (1u64 << 31) + ((k as u64) << 25); // 1 + k/64 in Q1.31
+        let recip = ((1u64 << 62) + m / 2) / m; // Q1.31, rounded, ≤ 2^31
+        t[k] = (log2_mantissa_by_squaring(m << 32) as u32, recip as u32);
+        k += 1;
+    }
+    t
+};
+
+/// 1/ln 2 in Q1.31.
+const INV_LN2_Q31: u64 = 3_098_164_010;
+
 /// `log2(x)` in Q31.32 for `x >= 1`; `log2(0)` is returned as −64.
 ///
-/// Mantissa normalised to Q1.31 (truncating), then 32 rounds of squaring, each yielding one
-/// fractional bit. Absolute error below 2⁻²⁹ (measured in `tests/kernels.rs`).
+/// The mantissa (Q1.31, truncated) is split at its top six fraction bits: `m = (1 + k/64)·(1 + r)`
+/// with `r < 1/64` found by multiplying with a tabulated reciprocal, and
+/// `log2 m = log2(1 + k/64) + (r − r²/2 + r³/3 − r⁴/4 + r⁵/5)/ln 2` (series error below 2⁻³⁸).
+/// No division; absolute error below 2⁻²⁹ (measured in the unit tests).
 pub(crate) fn log2(x: u64) -> i64 {
     if x == 0 {
         return -64i64 << LOG_FRAC;
@@ -233,27 +321,33 @@ pub(crate) fn log2(x: u64) -> i64 {
     // Not `ilog2`: that has a panic path for 0, which the early return above already handles.
     #[allow(clippy::manual_ilog2)]
     let msb = 63 - x.leading_zeros();
-    let mut m: u64 = if msb >= 31 {
-        x >> (msb - 31)
+    // Mantissa in Q1.32 (33 bits, rounded; a carry into bit 33 is clamped, costing < 2⁻³²).
+    let m: u64 = if msb >= 32 {
+        let sh = msb - 32;
+        let half = if sh == 0 { 0 } else { 1u64 << (sh - 1) };
+        (x.saturating_add(half) >> sh).min((1u64 << 33) - 1)
     } else {
-        x << (31 - msb)
+        x << (32 - msb)
     };
-    let mut frac: u64 = 0;
-    let mut bit = 1u64 << 31;
-    while bit != 0 {
-        // m < 2^32 (Q1.31 in [1, 2)), so m·m < 2^64.
-        m = (m * m) >> 31;
-        if m >= 1 << 32 {
-            m >>= 1;
-            frac |= bit;
-        }
-        bit >>= 1;
-    }
-    (i64::from(msb) << LOG_FRAC) | frac as i64
+    let k = ((m >> 26) & 63) as usize;
+    let (log_k, recip) = LOG2_TABLE[k];
+    // t = m/(1 + k/64) in Q2.63 (m < 2^33, recip ≤ 2^31: the product fits u64), in
+    // [1, 1 + 1/64); r = t − 1 in Q0.32.
+    let t = m * u64::from(recip);
+    let r = (t.saturating_sub(1 << 63) + (1 << 30)) >> 31;
+    // Horner in Q0.32 on r < 2^26: r·(1 − r·(1/2 − r·(1/3 − r·(1/4 − r/5)))).
+    let c5 = 858_993_459u64; // 1/5
+    let c4 = 1u64 << 30; // 1/4
+    let c3 = 1_431_655_765u64; // 1/3
+    let c2 = 1u64 << 31; // 1/2
+    let mut acc = c4 - ((r * c5) >> 32);
+    acc = c3 - ((r * acc) >> 32);
+    acc = c2 - ((r * acc) >> 32);
+    acc = (1u64 << 32) - ((r * acc) >> 32);
+    let ln_part = (r * acc) >> 32; // ln(1 + r), Q0.32, < 2^26
+    let frac = u64::from(log_k) + ((ln_part * INV_LN2_Q31) >> 31);
+    (i64::from(msb) << LOG_FRAC) + frac as i64
 }
-
-/// ln 2 in Q0.64.
-const LN2_Q64: u64 = 0xB172_17F7_D1CF_79AC;
 
 /// Natural logarithm of the ratio `x/y` (both > 0) in Q32.32, for `x >= y`; 0 otherwise.
 ///
@@ -266,34 +360,59 @@ pub(crate) fn ln_ratio(x: u64, y: u64) -> u64 {
     ((u128::from(d as u64) * u128::from(LN2_Q64)) >> 64) as u64
 }
 
-/// `2^(−2^−k)` in Q1.63 for k = 1 ..= 32, by repeated integer square roots of 1/2
-/// (each truncated, so every entry is within 2 units of Q1.63 below the exact value).
-const EXP2_NEG: [u64; 32] = {
-    let mut t = [0u64; 32];
-    let mut c: u128 = (1u128 << 125).isqrt(); // √(1/2) in Q1.63
+/// `2^(−k/64)` in Q1.63 for k = 0 ..= 63, by repeated integer square roots at compile time
+/// (2^(−1/64) is the sixth square root of 1/2; the table is its powers).
+const EXP2_NEG_TABLE: [u64; 64] = {
+    // r = 2^(−1/64) in Q1.63: six square roots of 1/2.
+    let mut r: u128 = (1u128 << 125).isqrt(); // √(1/2)
+    let mut i = 1;
+    while i < 6 {
+        r = (r << 63).isqrt();
+        i += 1;
+    }
+    let mut t = [0u64; 64];
+    let mut v: u128 = 1 << 63;
     let mut k = 0;
-    while k < 32 {
-        t[k] = c as u64;
-        c = (c << 63).isqrt();
+    while k < 64 {
+        t[k] = v as u64;
+        v = (v * r) >> 63;
         k += 1;
     }
     t
 };
 
+/// ln 2 in Q0.64 (also used by [`ln_ratio`]).
+const LN2_Q64: u64 = 0xB172_17F7_D1CF_79AC;
+
 /// `2^(−y)` for `y` in Q32.32 (`y >= 0`) as `(m, sh)`: the value is `m·2^−(63+sh)`, with `m`
-/// in Q1.63 in (0.5, 1]. Relative error below 2⁻⁶⁰ beyond that of `y` itself.
+/// in Q1.63 in (0.5, 1].
+///
+/// The fraction splits into its top six bits (a table) and a rest `f < 1/64`, for which
+/// `2^(−f) = e^(−f·ln 2)` is summed to the sixth power (error below 2⁻⁵⁴). Relative error below
+/// 2⁻⁵⁰ beyond that of `y` itself (measured against libm in the unit tests).
 pub(crate) fn exp2_neg(y: u64) -> (u64, u32) {
     let int = (y >> 32) as u32;
     let frac = y as u32;
-    let mut m: u64 = 1 << 63;
-    let mut k = 0;
-    while k < 32 {
-        if frac & (1 << (31 - k)) != 0 {
-            // Both factors are at most 2^63, so the product fits u128 and the result u64.
-            m = ((u128::from(m) * u128::from(EXP2_NEG[k])) >> 63) as u64;
-        }
-        k += 1;
-    }
+    let k = (frac >> 26) as usize; // top six bits
+    let rest = u64::from(frac & 0x03FF_FFFF); // Q0.32, < 2^26
+    // x = rest·ln2 in Q0.64 (< 2^58).
+    let x = ((u128::from(rest) * u128::from(LN2_Q64)) >> 32) as u64;
+    // e^(−x) = 1 − x(1 − x/2(1 − x/3(1 − x/4(1 − x/5(1 − x/6))))) in Q0.64, every partial
+    // term < 1 (truncation of the series below 2⁻⁵⁴ for x < ln2/64).
+    let one = u64::MAX; // 1 − 2^−64, close enough to 1 for the bracket terms
+    let mul = |a: u64, b: u64| ((u128::from(a) * u128::from(b)) >> 64) as u64;
+    let mut acc = one - mul(x, one / 6);
+    acc = one - mul(mul(x, acc), one / 5);
+    acc = one - mul(mul(x, acc), one / 4);
+    acc = one - mul(mul(x, acc), one / 3);
+    acc = one - mul(mul(x, acc), one / 2);
+    let e = one - mul(x, acc); // e^(−x), Q0.64, in (0.989, 1]
+    // m = T[k]·e in Q1.63 (exactly T[k] when there is no rest: e would be 1).
+    let m = if rest == 0 {
+        EXP2_NEG_TABLE[k]
+    } else {
+        ((u128::from(EXP2_NEG_TABLE[k]) * u128::from(e)) >> 64) as u64
+    };
     (m, int)
 }
 
@@ -558,6 +677,20 @@ mod tests {
                 let got = t.eval(n).value();
                 let want = one_minus_exp_neg(f64::from(n) * u);
                 prop_assert!((got - want).abs() <= want * 2f64.powi(-24) + 2f64.powi(-32));
+            }
+
+            /// The split 96-bit product of `apply_wide` equals the u128 one.
+            #[test]
+            fn apply_wide_matches_u128(g in log_uniform(1e-30, 1e30), x in any::<u64>()) {
+                let gain = Gain::new(g);
+                prop_assert_eq!(gain.apply_wide(x), gain.apply_u128(u128::from(x)));
+            }
+
+            /// `mul_q32` equals the u128 product, saturated.
+            #[test]
+            fn mul_q32_matches_u128(a in any::<u64>(), b in any::<u64>()) {
+                let want = ((u128::from(a) * u128::from(b)) >> 32).min(u128::from(u64::MAX)) as u64;
+                prop_assert_eq!(mul_q32(a, b), want);
             }
 
             /// log2: absolute error below 2^-29.

@@ -23,7 +23,7 @@
 //! None: configuration is validated; updates use the shared kernels, saturating.
 
 use crate::params::{ConfigError, Field, in_range, non_negative, positive};
-use crate::qmath::{Decay, DecayTable, Gain, mul_exp2_neg, scale};
+use crate::qmath::{Decay, DecayTable, Gain, mul_exp2_neg, mul_q32, scale};
 use crate::units::{Current, Energy};
 use fixed::types::I32F32;
 
@@ -355,8 +355,8 @@ impl CoilReplica {
         Ok(Self {
             per_period: DecayTable::<1>::new(f64::from(period) / tau).eval(1),
             event_rate: Gain::new(core::f64::consts::LOG2_E * 1e-6 / tau * 4_294_967_296.0),
-            // mean square in Q40 (FS²·2^40) → θ Q32: ·(FS/I_B)²·2^−8.
-            square_gain: Gain::new((fs / ib) * (fs / ib) / 256.0),
+            // 3 × mean square in Q40 (FS²·2^40) → θ Q32: ·(FS/I_B)²·2^−8/3.
+            square_gain: Gain::new((fs / ib) * (fs / ib) / 256.0 / 3.0),
             c0: crate::model::q32((1.0 + alpha * (amb - t_ref)) / r_b),
             c1: crate::model::q32(alpha * rise / r_b),
             trip: crate::model::q32(k * k),
@@ -367,18 +367,23 @@ impl CoilReplica {
 
     /// Heating target q for a period with this peak and valley (mean square of a linear ramp).
     fn target(&self, heat: CoilHeat, peak: Current, valley: Current) -> u64 {
-        let p = u128::from(peak.working_bits() as u64);
-        let v = u128::from(valley.working_bits() as u64);
-        let ms = ((p * p + p * v + v * v) / 3) >> 40; // Q40, ≤ 2^82 before the shift
-        let q = self
-            .square_gain
-            .apply_wide(ms.min(u128::from(u64::MAX)) as u64);
+        let p = peak.working_bits() as u64;
+        let v = valley.working_bits() as u64;
+        // 3 × the mean square of the ramp, p² + p·v + v² (the 1/3 is folded into
+        // `square_gain`), in Q40 of full scale squared.
+        let ms = if p < 1 << 43 && v < 1 << 43 {
+            // Below 8 full scale: Q28 operands (< 2^31), u64 products, sum < 2^64.
+            let (pq, vq) = (p >> 12, v >> 12);
+            (pq * pq + pq * vq + vq * vq) >> 16
+        } else {
+            let (p, v) = (u128::from(p), u128::from(v));
+            ((p * p + p * v + v * v) >> 40).min(u128::from(u64::MAX)) as u64
+        };
+        let q = self.square_gain.apply_wide(ms);
         // R(T)/R(T_B) with T from θ; ≥ 0 for validated temperatures.
         let theta = heat.theta.min(1 << 52);
-        let factor = self
-            .c0
-            .saturating_add(((u128::from(self.c1) * u128::from(theta)) >> 32) as u64);
-        ((u128::from(q) * u128::from(factor)) >> 32).min(1 << 62) as u64
+        let factor = self.c0.saturating_add(mul_q32(theta, self.c1));
+        mul_q32(q, factor).min(1 << 62)
     }
 
     /// Adds one control period with the estimate's peak and valley.
@@ -409,7 +414,7 @@ impl CoilReplica {
 
     /// Estimated winding temperature, °C: `T_amb + θ·ΔT_B`.
     pub fn temperature(&self, heat: &CoilHeat) -> I32F32 {
-        let rise = (u128::from(heat.theta) * u128::from(self.rise)) >> 32;
-        I32F32::from_bits(self.ambient.saturating_add(rise.min(1 << 62) as i64))
+        let rise = mul_q32(heat.theta, self.rise).min(1 << 62);
+        I32F32::from_bits(self.ambient.saturating_add(rise as i64))
     }
 }

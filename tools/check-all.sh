@@ -18,18 +18,24 @@ rustup component add rustfmt clippy
 rustup target add "${TARGETS[@]}"
 rustup toolchain install "$MSRV" --profile minimal
 
-if ! command -v ngspice >/dev/null 2>&1; then
-    step "installing ngspice (Debian package)"
+missing=()
+command -v ngspice >/dev/null 2>&1 || missing+=(ngspice)
+command -v qemu-system-arm >/dev/null 2>&1 || missing+=(qemu-system-arm)
+command -v cc >/dev/null 2>&1 || missing+=(gcc)
+if [ ${#missing[@]} -gt 0 ]; then
+    step "installing Debian packages: ${missing[*]}"
     as_root apt-get update -qq
-    DEBIAN_FRONTEND=noninteractive as_root apt-get install -y -qq ngspice
+    DEBIAN_FRONTEND=noninteractive as_root apt-get install -y -qq "${missing[@]}"
 fi
 
 step "format"
 cargo fmt --all -- --check
+(cd firmware && cargo fmt --all -- --check)
 
 step "lints"
 cargo clippy --workspace --all-targets -- -D warnings
 cargo clippy -p coilward --target thumbv7em-none-eabihf --features defmt -- -D warnings
+(cd firmware && cargo clippy --release --target thumbv7em-none-eabihf --workspace --bins -- -D warnings)
 
 step "docs"
 RUSTDOCFLAGS="-D warnings" cargo doc --workspace --no-deps
@@ -45,6 +51,15 @@ cargo "+$MSRV" check -p coilward
 
 step "tests"
 cargo test --workspace
+
+step "on the emulated cores (QEMU): test vectors, golden trace, panic-free link"
+cargo xtask target-test
+
+step "example firmware for a real chip (STM32F401, builds only)"
+(cd firmware && cargo build --release --target thumbv7em-none-eabihf -p coilward-stm32f4-valve)
+
+step "instruction counts and sizes on the emulated cores"
+cargo xtask target-bench
 
 step "examples"
 for ex in demo_coil valve relay; do

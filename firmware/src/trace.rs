@@ -99,7 +99,7 @@ pub fn run(mut sink: impl FnMut(u32, u32)) -> Option<u64> {
     let mut counts: u16 = 2978; // about 24 V
     for k in 0..PERIODS {
         // Duty: held for random stretches, with jumps to 0, 100 % and beyond.
-        if rng.next() % 48 == 0 {
+        if rng.next().is_multiple_of(48) {
             duty = match rng.next() % 6 {
                 0 => 0,
                 1 => 3200,

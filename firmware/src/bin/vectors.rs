@@ -18,7 +18,9 @@ fn panic(info: &core::panic::PanicInfo) -> ! {
         let _ = writeln!(out, "panic: {info}");
     }
     debug::exit(debug::EXIT_FAILURE);
-    loop {}
+    loop {
+        cortex_m::asm::nop();
+    }
 }
 
 /// One named check: prints `check <name> ok|FAILED` and returns whether it passed.
@@ -31,7 +33,9 @@ fn check(out: &mut hio::HostStream, name: &str, pass: bool) -> bool {
 fn main() -> ! {
     let Ok(mut out) = hio::hstdout() else {
         debug::exit(debug::EXIT_FAILURE);
-        loop {}
+        loop {
+            cortex_m::asm::nop();
+        }
     };
     let mut ok = true;
 
@@ -97,5 +101,7 @@ fn main() -> ! {
     } else {
         debug::EXIT_FAILURE
     });
-    loop {}
+    loop {
+        cortex_m::asm::nop();
+    }
 }

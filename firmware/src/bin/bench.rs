@@ -1,0 +1,162 @@
+//! Instruction-count benchmark: each operation runs between two marker functions, and the
+//! counting QEMU plugin of `cargo xtask target-bench` counts the instructions executed between
+//! the markers. The operation names go out over semihosting in the same order.
+#![no_std]
+#![no_main]
+
+use coilward::{Current, Guard, Input, Volts};
+use coilward_firmware::trace;
+use core::fmt::Write;
+use core::hint::black_box;
+use cortex_m_rt::entry;
+use cortex_m_semihosting::{debug, hio};
+
+#[panic_handler]
+fn panic(info: &core::panic::PanicInfo) -> ! {
+    if let Ok(mut out) = hio::hstdout() {
+        let _ = writeln!(out, "panic: {info}");
+    }
+    debug::exit(debug::EXIT_FAILURE);
+    loop {
+        cortex_m::asm::nop();
+    }
+}
+
+/// Counting starts at this function's first instruction.
+#[unsafe(no_mangle)]
+#[inline(never)]
+pub extern "C" fn coilward_bench_start() {
+    black_box(0x5354_4152u32);
+}
+
+/// Counting stops at this function's first instruction.
+#[unsafe(no_mangle)]
+#[inline(never)]
+pub extern "C" fn coilward_bench_end() {
+    black_box(0x454e_4421u32);
+}
+
+fn measure<R>(out: &mut hio::HostStream, name: &str, f: impl FnOnce() -> R) -> R {
+    let _ = writeln!(out, "op {name}");
+    coilward_bench_start();
+    let r = black_box(f());
+    coilward_bench_end();
+    r
+}
+
+#[entry]
+fn main() -> ! {
+    let Ok(mut out) = hio::hstdout() else {
+        debug::exit(debug::EXIT_FAILURE);
+        loop {
+            cortex_m::asm::nop();
+        }
+    };
+    let p = black_box(trace::params());
+    let l = black_box(trace::limits());
+    measure(&mut out, "empty", || ());
+    let Ok(guard) = measure(&mut out, "configure", || Guard::new(&p, &l)) else {
+        debug::exit(debug::EXIT_FAILURE);
+        loop {
+            cortex_m::asm::nop();
+        }
+    };
+    let m = guard.model();
+    let vs = Volts::from_num(24);
+
+    // Estimator step in steady PWM at 85 % (about 0.93 A, continuous conduction).
+    let typical = 2720;
+    let mut coil = coilward::CoilState::idle();
+    for _ in 0..2000 {
+        m.step(&mut coil, typical, vs);
+    }
+    measure(&mut out, "step", || {
+        m.step(black_box(&mut coil), black_box(typical), black_box(vs))
+    });
+
+    // Guard tick, typical: the same steady PWM, under the ceiling, every replica running.
+    let mut s = guard.start_idle();
+    for _ in 0..2000 {
+        guard.tick(&mut s, Input::new(typical, vs));
+    }
+    measure(&mut out, "tick", || {
+        guard.tick(
+            black_box(&mut s),
+            Input::new(black_box(typical), black_box(vs)),
+        )
+    });
+
+    // Discontinuous conduction (at 40 % the 45 V clamp empties the coil every period): the
+    // off-segment's energy is then the exact turn-off energy.
+    let mut d = guard.start_idle();
+    for _ in 0..2000 {
+        guard.tick(&mut d, Input::new(1280, vs));
+    }
+    measure(&mut out, "tick-dcm", || {
+        guard.tick(
+            black_box(&mut d),
+            Input::new(black_box(1280), black_box(vs)),
+        )
+    });
+
+    // Paths that can be the longest: the ceiling's bisection ...
+    let mut s = guard.start_idle();
+    let mut limited = s;
+    for _ in 0..4000 {
+        let before = s;
+        let o = guard.tick(&mut s, Input::new(3200, vs));
+        if o.duty < 3200 && o.duty > 0 {
+            limited = before;
+        }
+    }
+    measure(&mut out, "tick-limit", || {
+        guard.tick(
+            black_box(&mut limited),
+            Input::new(black_box(3200), black_box(vs)),
+        )
+    });
+
+    // ... a commanded turn-off checked against the clamp's pulse rating ...
+    let mut off = s;
+    measure(&mut out, "tick-turnoff", || {
+        guard.tick(black_box(&mut off), Input::new(black_box(0), black_box(vs)))
+    });
+
+    // ... the release interval with its closed-form remaining time ...
+    let mut held = off;
+    measure(&mut out, "tick-release", || {
+        guard.tick(
+            black_box(&mut held),
+            Input::new(black_box(3200), black_box(vs)),
+        )
+    });
+
+    // ... and an off-segment that reaches zero (exact turn-off energy).
+    let mut dcm = guard.start_with_current(m.current_from_amps(0.004).unwrap_or(Current::ZERO));
+    measure(&mut out, "tick-zero", || {
+        guard.tick(black_box(&mut dcm), Input::new(black_box(0), black_box(vs)))
+    });
+
+    // Event mode.
+    let mut e = guard.start_idle();
+    guard.event(&mut e, true, 0, vs);
+    measure(&mut out, "event", || {
+        guard.event(
+            black_box(&mut e),
+            black_box(true),
+            black_box(500),
+            black_box(vs),
+        )
+    });
+
+    let _ = writeln!(
+        out,
+        "state-bytes {}",
+        core::mem::size_of::<coilward::GuardState>()
+    );
+    let _ = writeln!(out, "bench done");
+    debug::exit(debug::EXIT_SUCCESS);
+    loop {
+        cortex_m::asm::nop();
+    }
+}

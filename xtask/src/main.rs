@@ -1,0 +1,346 @@
+//! Project automation for coilward (run as `cargo xtask <command>`):
+//!
+//! - `target-test`: builds the firmware in `firmware/` for the three emulated cores, runs its
+//!   test vectors under QEMU (semihosting for output and exit status), compares the golden trace
+//!   with the host's bit for bit, and links the panic-free build. Fails on any difference.
+//! - `target-bench`: counts instructions per operation on each core with a small QEMU plugin
+//!   (`xtask/plugin/insn_count.c`, built with the system C compiler), and prints
+//!   `insn core=<m0|m4f|m33> op=<operation> n=<count>` and
+//!   `size core=<…> text=<bytes> state=<bytes per channel>` lines (`text`: the guard's run-time
+//!   code; a further `size core=<…> configure-text=<bytes>` line gives the configuration's).
+
+#[path = "../../firmware/src/trace.rs"]
+#[allow(dead_code)]
+mod trace;
+
+use object::{Object, ObjectSection, ObjectSymbol};
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+use std::process::{Command, ExitCode, Stdio};
+use std::time::{Duration, Instant};
+
+/// One emulated core.
+struct Core {
+    name: &'static str,
+    target: &'static str,
+    machine: &'static str,
+}
+
+const CORES: [Core; 3] = [
+    Core {
+        name: "m0",
+        target: "thumbv6m-none-eabi",
+        machine: "microbit",
+    },
+    Core {
+        name: "m4f",
+        target: "thumbv7em-none-eabihf",
+        machine: "mps2-an386",
+    },
+    Core {
+        name: "m33",
+        target: "thumbv8m.main-none-eabihf",
+        machine: "mps2-an505",
+    },
+];
+
+/// Longest a single QEMU run may take.
+const QEMU_TIMEOUT: Duration = Duration::from_secs(300);
+
+fn root() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .parent()
+        .expect("xtask sits in the workspace root")
+        .to_path_buf()
+}
+
+fn firmware() -> PathBuf {
+    root().join("firmware")
+}
+
+fn elf(core: &Core, bin: &str) -> PathBuf {
+    firmware()
+        .join("target")
+        .join(core.target)
+        .join("release")
+        .join(bin)
+}
+
+/// Builds firmware binaries for one core; on failure returns the compiler's output.
+fn build(core: &Core, bins: &[&str]) -> Result<(), String> {
+    let mut cmd = Command::new(std::env::var("CARGO").unwrap_or_else(|_| "cargo".into()));
+    cmd.current_dir(firmware())
+        .args(["build", "--quiet", "--release", "--target", core.target]);
+    for b in bins {
+        cmd.args(["--bin", b]);
+    }
+    let out = cmd.output().map_err(|e| format!("cannot run cargo: {e}"))?;
+    if out.status.success() {
+        Ok(())
+    } else {
+        Err(String::from_utf8_lossy(&out.stderr).into_owned())
+    }
+}
+
+/// Runs a firmware image under QEMU; returns (exit success, standard output).
+fn qemu(core: &Core, image: &Path, plugin: Option<String>) -> Result<(bool, String), String> {
+    let mut cmd = Command::new("qemu-system-arm");
+    cmd.args(["-M", core.machine, "-nographic", "-monitor", "none"])
+        .args(["-semihosting-config", "enable=on,target=native"]);
+    if let Some(p) = plugin {
+        cmd.args(["-plugin", &p]);
+    }
+    cmd.arg("-kernel")
+        .arg(image)
+        .stdin(Stdio::null())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped());
+    let mut child = cmd.spawn().map_err(|e| {
+        format!("cannot start qemu-system-arm ({e}); the test command installs it (Debian package qemu-system-arm)")
+    })?;
+    let stdout = child.stdout.take().expect("piped");
+    let reader = std::thread::spawn(move || std::io::read_to_string(stdout).unwrap_or_default());
+    let start = Instant::now();
+    let status = loop {
+        if let Some(s) = child.try_wait().map_err(|e| e.to_string())? {
+            break s;
+        }
+        if start.elapsed() > QEMU_TIMEOUT {
+            let _ = child.kill();
+            let _ = child.wait();
+            return Err(format!(
+                "{}: QEMU ran longer than {QEMU_TIMEOUT:?}",
+                core.name
+            ));
+        }
+        std::thread::sleep(Duration::from_millis(20));
+    };
+    let text = reader.join().unwrap_or_default();
+    Ok((status.success(), text))
+}
+
+/// The host's golden trace: every period's hash, and the digest.
+fn host_trace() -> (Vec<u32>, u64) {
+    let mut hashes = Vec::with_capacity(trace::PERIODS as usize);
+    let digest = trace::run(|_, h| hashes.push(h)).expect("the trace's configuration is valid");
+    (hashes, digest)
+}
+
+/// Parses the firmware's `h <k> <hash>…` lines and its `digest` line.
+fn parse_trace(text: &str) -> (Vec<u32>, Option<u64>) {
+    let mut hashes = Vec::new();
+    let mut digest = None;
+    for line in text.lines() {
+        let mut w = line.split_whitespace();
+        match w.next() {
+            Some("h") => {
+                let _first = w.next();
+                hashes.extend(w.filter_map(|x| u32::from_str_radix(x, 16).ok()));
+            }
+            Some("digest") => digest = w.next().and_then(|x| u64::from_str_radix(x, 16).ok()),
+            _ => {}
+        }
+    }
+    (hashes, digest)
+}
+
+fn target_test() -> Result<(), String> {
+    let (host, host_digest) = host_trace();
+    println!("host: {} periods, digest {host_digest:016x}", host.len());
+    let mut failures = Vec::new();
+    for core in &CORES {
+        if let Err(e) = build(core, &["vectors"]) {
+            failures.push(format!(
+                "{}: the vectors firmware does not build:\n{e}",
+                core.name
+            ));
+            continue;
+        }
+        // Panic-free: the link fails if any panic path is reachable.
+        match build(core, &["nopanic"]) {
+            Ok(()) => println!("{}: panic-free release build links", core.name),
+            Err(e) => failures.push(format!(
+                "{}: a panic path is reachable (see DEVELOPERS.md, \"Panic-free link\"):\n{e}",
+                core.name
+            )),
+        }
+        let (ok, text) = qemu(core, &elf(core, "vectors"), None)?;
+        for line in text
+            .lines()
+            .filter(|l| l.starts_with("check ") || l.starts_with("panic"))
+        {
+            println!("{}: {line}", core.name);
+        }
+        let (hashes, digest) = parse_trace(&text);
+        let first_diff = host.iter().zip(hashes.iter()).position(|(a, b)| a != b).or(
+            if hashes.len() == host.len() {
+                None
+            } else {
+                Some(hashes.len().min(host.len()))
+            },
+        );
+        match first_diff {
+            None if digest == Some(host_digest) => println!(
+                "{}: golden trace identical to the host ({} periods, digest {host_digest:016x})",
+                core.name,
+                hashes.len()
+            ),
+            None => failures.push(format!("{}: trace matches but the digest does not", core.name)),
+            Some(k) => failures.push(format!(
+                "{}: golden trace differs from the host first at period {k} ({} of {} periods received)",
+                core.name,
+                hashes.len(),
+                host.len()
+            )),
+        }
+        if !ok || !text.contains("all checks passed") {
+            failures.push(format!(
+                "{}: on-target checks failed (exit status or report)",
+                core.name
+            ));
+        }
+    }
+    if failures.is_empty() {
+        println!("target-test: all cores passed");
+        Ok(())
+    } else {
+        Err(failures.join("\n"))
+    }
+}
+
+/// Address of a symbol in an ELF image.
+fn symbol(image: &Path, name: &str) -> Result<u64, String> {
+    let data = std::fs::read(image).map_err(|e| format!("{}: {e}", image.display()))?;
+    let file = object::File::parse(&*data).map_err(|e| e.to_string())?;
+    file.symbols()
+        .find(|s| s.name() == Ok(name))
+        .map(|s| s.address())
+        .ok_or(format!("{}: no symbol {name}", image.display()))
+}
+
+/// Size of the `.text` section of an ELF image.
+fn text_size(image: &Path) -> Result<u64, String> {
+    let data = std::fs::read(image).map_err(|e| format!("{}: {e}", image.display()))?;
+    let file = object::File::parse(&*data).map_err(|e| e.to_string())?;
+    file.section_by_name(".text")
+        .map(|s| s.size())
+        .ok_or(format!("{}: no .text", image.display()))
+}
+
+fn build_plugin() -> Result<PathBuf, String> {
+    let out_dir = root().join("target").join("xtask");
+    std::fs::create_dir_all(&out_dir).map_err(|e| e.to_string())?;
+    let so = out_dir.join("insn_count.so");
+    let src = root().join("xtask").join("plugin").join("insn_count.c");
+    let cc = std::env::var("CC").unwrap_or_else(|_| "cc".into());
+    let st = Command::new(&cc)
+        .args(["-shared", "-fPIC", "-O2", "-Wall", "-o"])
+        .arg(&so)
+        .arg(&src)
+        .status()
+        .map_err(|e| format!("cannot run {cc}: {e}"))?;
+    if st.success() {
+        Ok(so)
+    } else {
+        Err("the counting plugin does not compile".into())
+    }
+}
+
+fn target_bench() -> Result<(), String> {
+    let plugin = build_plugin()?;
+    let mut report = String::new();
+    for core in &CORES {
+        build(core, &["bench", "baseline", "configonly", "nopanic"])?;
+        let image = elf(core, "bench");
+        let start = symbol(&image, "coilward_bench_start")?;
+        let end = symbol(&image, "coilward_bench_end")?;
+        let counts_file = root()
+            .join("target")
+            .join("xtask")
+            .join(format!("counts-{}.txt", core.name));
+        let arg = format!(
+            "{},start={start:#x},end={end:#x},out={}",
+            plugin.display(),
+            counts_file.display()
+        );
+        let (ok, text) = qemu(core, &image, Some(arg))?;
+        if !ok {
+            return Err(format!(
+                "{}: the benchmark firmware failed:\n{text}",
+                core.name
+            ));
+        }
+        let counts: Vec<u64> = std::fs::read_to_string(&counts_file)
+            .map_err(|e| e.to_string())?
+            .lines()
+            .filter_map(|l| l.trim().parse().ok())
+            .collect();
+        let ops: Vec<&str> = text.lines().filter_map(|l| l.strip_prefix("op ")).collect();
+        if ops.len() != counts.len() || ops.first() != Some(&"empty") {
+            return Err(format!(
+                "{}: {} operations named but {} counted",
+                core.name,
+                ops.len(),
+                counts.len()
+            ));
+        }
+        let overhead = counts[0];
+        let mut worst = 0;
+        for (op, n) in ops.iter().zip(&counts).skip(1) {
+            let n = n.saturating_sub(overhead);
+            let _ = writeln!(report, "insn core={} op={op} n={n}", core.name);
+            if op.starts_with("tick") {
+                worst = worst.max(n);
+            }
+        }
+        let _ = writeln!(report, "insn core={} op=tick-worst n={worst}", core.name);
+        let state = text
+            .lines()
+            .find_map(|l| l.strip_prefix("state-bytes "))
+            .unwrap_or("?");
+        // Run-time code: the panic-free build (every per-tick entry point plus configuration)
+        // less the configuration-only build. Configuration itself is reported apart.
+        let all = text_size(&elf(core, "nopanic"))?;
+        let config = text_size(&elf(core, "configonly"))?;
+        let base = text_size(&elf(core, "baseline"))?;
+        let _ = writeln!(
+            report,
+            "size core={} text={} state={state}",
+            core.name,
+            all.saturating_sub(config)
+        );
+        let _ = writeln!(
+            report,
+            "size core={} configure-text={}",
+            core.name,
+            config.saturating_sub(base)
+        );
+    }
+    print!("{report}");
+    Ok(())
+}
+
+fn main() -> ExitCode {
+    let cmd = std::env::args().nth(1);
+    let result = match cmd.as_deref() {
+        Some("target-test") => target_test(),
+        Some("target-bench") => target_bench(),
+        _ => {
+            eprintln!(
+                "usage: cargo xtask <command>\n\n\
+                 commands:\n  \
+                 target-test   run the on-target vectors under QEMU, compare the golden trace \
+                 with the host, link the panic-free build\n  \
+                 target-bench  count instructions per operation and measure sizes on each core"
+            );
+            return ExitCode::from(2);
+        }
+    };
+    match result {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            eprintln!("{e}");
+            ExitCode::FAILURE
+        }
+    }
+}
