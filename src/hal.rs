@@ -12,6 +12,25 @@ use crate::units::Volts;
 use embedded_hal::digital::OutputPin;
 use embedded_hal::pwm::SetDutyCycle;
 
+/// The outcome of a hardware write: on failure, try `turn_off` and keep the higher of the old and
+/// the new duty as the guard's belief (so the estimate can only overstate the current).
+fn settle<E>(
+    state: &mut GuardState,
+    before: u32,
+    out: Output,
+    written: Result<(), E>,
+    turn_off: impl FnOnce(),
+) -> Result<Output, E> {
+    match written {
+        Ok(()) => Ok(out),
+        Err(e) => {
+            turn_off();
+            state.assume_applied(before.max(out.duty));
+            Err(e)
+        }
+    }
+}
+
 /// A PWM channel whose duty is always the guard's decision.
 #[derive(Debug)]
 pub struct GuardedPwm<'g, P> {
@@ -38,17 +57,12 @@ impl<'g, P: SetDutyCycle> GuardedPwm<'g, P> {
             .tick(&mut self.state, Input::new(request, supply));
         let full = self.guard.model().duty_resolution();
         // Both fit u16: the resolution is validated to 1 ..= 65535 and duty <= resolution.
-        match self
+        let written = self
             .pwm
-            .set_duty_cycle_fraction(out.duty as u16, full as u16)
-        {
-            Ok(()) => Ok(out),
-            Err(e) => {
-                let _ = self.pwm.set_duty_cycle_fully_off();
-                self.state.assume_applied(before.max(out.duty));
-                Err(e)
-            }
-        }
+            .set_duty_cycle_fraction(out.duty as u16, full as u16);
+        settle(&mut self.state, before, out, written, || {
+            let _ = self.pwm.set_duty_cycle_fully_off();
+        })
     }
 
     /// The guard state.
@@ -96,19 +110,14 @@ impl<'g, P: OutputPin> GuardedSwitch<'g, P> {
         let out = self
             .guard
             .event(&mut self.state, want_on, elapsed_us, supply);
-        let r = if out.duty > 0 {
+        let written = if out.duty > 0 {
             self.pin.set_high()
         } else {
             self.pin.set_low()
         };
-        match r {
-            Ok(()) => Ok(out),
-            Err(e) => {
-                let _ = self.pin.set_low();
-                self.state.assume_applied(before.max(out.duty));
-                Err(e)
-            }
-        }
+        settle(&mut self.state, before, out, written, || {
+            let _ = self.pin.set_low();
+        })
     }
 
     /// The guard state.

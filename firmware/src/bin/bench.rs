@@ -13,13 +13,7 @@ use cortex_m_semihosting::{debug, hio};
 
 #[panic_handler]
 fn panic(info: &core::panic::PanicInfo) -> ! {
-    if let Ok(mut out) = hio::hstdout() {
-        let _ = writeln!(out, "panic: {info}");
-    }
-    debug::exit(debug::EXIT_FAILURE);
-    loop {
-        cortex_m::asm::nop();
-    }
+    coilward_firmware::report_panic(info)
 }
 
 /// Counting starts at this function's first instruction.

@@ -14,13 +14,7 @@ use cortex_m_semihosting::{debug, hio};
 
 #[panic_handler]
 fn panic(info: &core::panic::PanicInfo) -> ! {
-    if let Ok(mut out) = hio::hstdout() {
-        let _ = writeln!(out, "panic: {info}");
-    }
-    debug::exit(debug::EXIT_FAILURE);
-    loop {
-        cortex_m::asm::nop();
-    }
+    coilward_firmware::report_panic(info)
 }
 
 /// One named check: prints `check <name> ok|FAILED` and returns whether it passed.
