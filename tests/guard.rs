@@ -295,9 +295,9 @@ fn clamp_rating_lowers_the_ceiling_and_flags_a_hot_turn_off() {
     // The same turn-off at 24 V is within the rating (checked at the top of this test).
 }
 
-#[test]
-fn clamp_overheat_holds_until_cooled_by_the_hysteresis() {
-    // A zener freewheel that dissipates every off-time, with a small, fast device.
+/// A zener freewheel that dissipates every off-time, with a small, fast clamp device (20 K/W,
+/// 5 ms) whose overheat ceiling is `ceiling` °C.
+fn zener_guard(ceiling: f32) -> Guard {
     let p = common::valve_with(ClampPath::FreewheelZener {
         forward_drop: 0.7,
         zener_voltage: 24.0,
@@ -311,9 +311,14 @@ fn clamp_overheat_holds_until_cooled_by_the_hysteresis() {
             FosterStage::UNUSED,
         ],
         25.0,
-        60.0,
+        ceiling,
     ));
-    let g = Guard::new(&p, &l).unwrap();
+    Guard::new(&p, &l).unwrap()
+}
+
+#[test]
+fn clamp_overheat_holds_until_cooled_by_the_hysteresis() {
+    let g = zener_guard(60.0);
     let mut s = g.start_idle();
     let mut hot_at = None;
     for k in 0..20_000u32 {
@@ -343,24 +348,7 @@ fn clamp_overheat_holds_until_cooled_by_the_hysteresis() {
 #[test]
 fn clamp_overheat_boundary() {
     // The steady clamp temperature of a 90 % drive, then ceilings just above and just below it.
-    let p = common::valve_with(ClampPath::FreewheelZener {
-        forward_drop: 0.7,
-        zener_voltage: 24.0,
-        resistance: 0.0,
-    });
-    let with_ceiling = |ceiling: f32| {
-        let mut l = GuardLimits::new(1.45, 1.5, 0.05);
-        l.clamp_thermal = Some(ClampThermal::new(
-            [
-                FosterStage::new(20.0, 5e-3),
-                FosterStage::UNUSED,
-                FosterStage::UNUSED,
-            ],
-            25.0,
-            ceiling,
-        ));
-        Guard::new(&p, &l).unwrap()
-    };
+    let with_ceiling = zener_guard;
     let g = with_ceiling(400.0);
     let mut s = g.start_idle();
     run(&g, &mut s, N * 9 / 10, 20_000);
