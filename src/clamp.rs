@@ -32,6 +32,12 @@ use crate::model::{Model, PathKind};
 use crate::qmath::{chi, exp2, exp2_neg, ln_ratio, log2, phi1, phi2, psi};
 use crate::units::{Current, Energy, Volts};
 
+/// `τ·ln` in µs as Q64.64, for a logarithm `ln` (Q32.32) and a time constant `tau_us` (Q32.32 µs).
+#[inline]
+pub(crate) fn time_q64(ln: u64, tau_us: u64) -> u128 {
+    u128::from(ln) * u128::from(tau_us)
+}
+
 /// `(a·b) >> sh` in u128, saturating to u64.
 #[inline]
 fn mul_shr(a: u64, b: u64, sh: u32) -> u64 {
@@ -59,7 +65,7 @@ impl Model {
         }
         // a, i0 and i1 are each below 2^61, so the sums fit.
         let ln = ln_ratio((i0 + a) as u64, (i1 + a) as u64);
-        let t_q64 = u128::from(ln) * u128::from(self.tau_off_us);
+        let t_q64 = time_q64(ln, self.tau_off_us);
         let whole = t_q64 >> 64;
         let frac = t_q64 & u128::from(u64::MAX);
         let t = whole + u128::from(frac != 0);

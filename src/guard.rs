@@ -46,7 +46,7 @@ use crate::condition::{Action, Condition, Conditions};
 use crate::estimate::{CoilState, PeriodEstimate};
 use crate::model::Model;
 use crate::params::{ConfigError, Conflict, Field, Params, positive};
-use crate::qmath::{Gain, ln_ratio, scale};
+use crate::qmath::{ln_ratio, scale};
 use crate::thermal::{ClampHeat, ClampReplica, ClampThermal, CoilHeat, CoilReplica, CoilThermal};
 use crate::units::{Current, Energy, Volts};
 use fixed::types::I32F32;
@@ -640,8 +640,8 @@ impl Guard {
             return Some(0);
         }
         let ln = ln_ratio((a - i) as u64, (a - self.ceiling) as u64);
-        let tau_on_us = Gain::new(f64::from(m.derived().tau_on) * 1e6);
-        let t = (u128::from(tau_on_us.apply_wide(ln))) >> 32;
+        // Rounded down: an event scheduled at this time finds the current at most at the ceiling.
+        let t = crate::clamp::time_q64(ln, m.tau_on_us) >> 64;
         Some(t.min(u128::from(u32::MAX)) as u32)
     }
 

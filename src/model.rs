@@ -101,6 +101,8 @@ pub struct Model {
     pub(crate) path_share: u32,
     /// τ_off in µs, Q32.32.
     pub(crate) tau_off_us: u64,
+    /// τ_on in µs, Q32.32.
+    pub(crate) tau_on_us: u64,
     /// Peak drain voltage at turn-off: `(vs if drain_adds_supply) + drain_base + I0·drain_slope`,
     /// at most `breakdown_bits` (U16F16 bits).
     pub(crate) drain_base: u32,
@@ -390,6 +392,7 @@ impl Model {
             path_drive: q32(v_p / r_off_total / fs),
             path_share: q32(r_p / r_off_total).min(u64::from(u32::MAX)) as u32,
             tau_off_us: q32(tau_off * 1e6),
+            tau_on_us: q32(tau_on * 1e6),
             drain_base,
             drain_adds_supply,
             drain_slope,
