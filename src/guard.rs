@@ -524,6 +524,11 @@ impl Guard {
         crate::qmath::mul_q32(i.max(0) as u64, f).min(Current::LIMIT.to_bits() as u64) as i64
     }
 
+    /// Whether the off-segment energy has a consumer (the pulse rating or the clamp replica).
+    fn uses_clamp_energy(&self) -> bool {
+        self.pulse_rating.is_some() || self.clamp.is_some()
+    }
+
     /// Predicted peak of the coming period at duty `n` from current `i0` (raw).
     fn peak_at(&self, i0: i64, n: u32, vs: u32) -> i64 {
         let a = self.model.on_asymptote(vs);
@@ -565,7 +570,8 @@ impl Guard {
         let was = state.applied.min(n_full);
         let est = m.step(&mut state.coil, was, input.supply);
         // 2. Replicas. Off-segment energy: exact to zero, else the chord bound.
-        let energy = if was >= n_full {
+        // Only worth computing when a pulse rating or a clamp replica will use it.
+        let energy = if was >= n_full || !self.uses_clamp_energy() {
             Energy::ZERO
         } else {
             let off_start = est.peak;
@@ -604,7 +610,7 @@ impl Guard {
         let vs = m.supply(supply);
         let was_on = state.applied > 0;
         let est = m.advance(&mut state.coil, was_on, elapsed_us, supply);
-        let energy = if was_on {
+        let energy = if was_on || !self.uses_clamp_energy() {
             Energy::ZERO
         } else {
             let full = m.turn_off_energy(est.start, supply);
