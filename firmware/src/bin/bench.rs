@@ -9,7 +9,7 @@ use coilward_firmware::trace;
 use core::fmt::Write;
 use core::hint::black_box;
 use cortex_m_rt::entry;
-use cortex_m_semihosting::{debug, hio};
+use cortex_m_semihosting::hio;
 
 #[panic_handler]
 fn panic(info: &core::panic::PanicInfo) -> ! {
@@ -40,20 +40,12 @@ fn measure<R>(out: &mut hio::HostStream, name: &str, f: impl FnOnce() -> R) -> R
 
 #[entry]
 fn main() -> ! {
-    let Ok(mut out) = hio::hstdout() else {
-        debug::exit(debug::EXIT_FAILURE);
-        loop {
-            cortex_m::asm::nop();
-        }
-    };
+    let mut out = coilward_firmware::host_stdout();
     let p = black_box(trace::params());
     let l = black_box(trace::limits());
     measure(&mut out, "empty", || ());
     let Ok(guard) = measure(&mut out, "configure", || Guard::new(&p, &l)) else {
-        debug::exit(debug::EXIT_FAILURE);
-        loop {
-            cortex_m::asm::nop();
-        }
+        coilward_firmware::finish(false)
     };
     let m = guard.model();
     let vs = Volts::from_num(24);
@@ -149,8 +141,5 @@ fn main() -> ! {
         core::mem::size_of::<coilward::GuardState>()
     );
     let _ = writeln!(out, "bench done");
-    debug::exit(debug::EXIT_SUCCESS);
-    loop {
-        cortex_m::asm::nop();
-    }
+    coilward_firmware::finish(true)
 }

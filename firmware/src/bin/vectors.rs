@@ -10,7 +10,7 @@ use coilward::{
 use coilward_firmware::trace;
 use core::fmt::Write;
 use cortex_m_rt::entry;
-use cortex_m_semihosting::{debug, hio};
+use cortex_m_semihosting::hio;
 
 #[panic_handler]
 fn panic(info: &core::panic::PanicInfo) -> ! {
@@ -25,12 +25,7 @@ fn check(out: &mut hio::HostStream, name: &str, pass: bool) -> bool {
 
 #[entry]
 fn main() -> ! {
-    let Ok(mut out) = hio::hstdout() else {
-        debug::exit(debug::EXIT_FAILURE);
-        loop {
-            cortex_m::asm::nop();
-        }
-    };
+    let mut out = coilward_firmware::host_stdout();
     let mut ok = true;
 
     // The golden trace, 50 hashes a line.
@@ -90,12 +85,5 @@ fn main() -> ! {
             "some checks FAILED"
         }
     );
-    debug::exit(if ok {
-        debug::EXIT_SUCCESS
-    } else {
-        debug::EXIT_FAILURE
-    });
-    loop {
-        cortex_m::asm::nop();
-    }
+    coilward_firmware::finish(ok)
 }
