@@ -406,8 +406,7 @@ impl Guard {
             worst_current,
             period_us: (libm::round(f64::from(d.period) * 1e6) as u32).max(1),
             stale_per_kelvin,
-            model_temperature: (f64::from(params.coil.winding_temperature) * 4_294_967_296.0)
-                as i64,
+            model_temperature: crate::model::q32_signed(f64::from(params.coil.winding_temperature)),
             model,
         })
     }

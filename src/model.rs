@@ -132,6 +132,18 @@ pub(crate) fn q32(v: f64) -> u64 {
     }
 }
 
+/// Rounds `v·2^32` to i64 (Q31.32), saturating.
+pub(crate) fn q32_signed(v: f64) -> i64 {
+    let x = libm::round(v * 4_294_967_296.0);
+    if x >= 9.2e18 {
+        i64::MAX
+    } else if x <= -9.2e18 {
+        i64::MIN
+    } else {
+        x as i64
+    }
+}
+
 /// Rounds volts to U16F16 bits, saturating.
 fn volts_bits(v: f64) -> u32 {
     let x = libm::round(v * 65_536.0);
@@ -397,11 +409,7 @@ impl Model {
             drain_adds_supply,
             drain_slope,
             breakdown_bits: volts_bits(bv),
-            tau_gap_over_period: {
-                let g = (tau_off - tau_on) / t;
-                let m = q32(g.abs()).min(i64::MAX as u64) as i64;
-                if g < 0.0 { -m } else { m }
-            },
+            tau_gap_over_period: q32_signed((tau_off - tau_on) / t),
             tau_off_over_period: q32(tau_off / t),
             chord_path: Gain::new(v_p / r_off_total / fs * (count / tau_off) / 256.0),
             chord_share: Gain::new(r_p / r_off_total * (count / tau_off) / 256.0),

@@ -116,18 +116,6 @@ impl CoilThermal {
     }
 }
 
-/// Q32.32 from f64, saturating into i64.
-fn q32s(v: f64) -> i64 {
-    let x = libm::round(v * 4_294_967_296.0);
-    if x >= 9.2e18 {
-        i64::MAX
-    } else if x <= -9.2e18 {
-        i64::MIN
-    } else {
-        x as i64
-    }
-}
-
 #[derive(Debug, Clone, Copy, PartialEq)]
 struct Stage {
     per_period: Decay,
@@ -215,9 +203,9 @@ impl ClampReplica {
         }
         Ok(Self {
             stages,
-            ambient: q32s(ambient),
-            ceiling_rise: q32s(ceiling - ambient),
-            release_rise: q32s((ceiling - hyst - ambient).max(0.0)),
+            ambient: crate::model::q32_signed(ambient),
+            ceiling_rise: crate::model::q32_signed(ceiling - ambient),
+            release_rise: crate::model::q32_signed((ceiling - hyst - ambient).max(0.0)),
         })
     }
 
@@ -360,7 +348,7 @@ impl CoilReplica {
             c0: crate::model::q32((1.0 + alpha * (amb - t_ref)) / r_b),
             c1: crate::model::q32(alpha * rise / r_b),
             trip: crate::model::q32(k * k),
-            ambient: q32s(amb),
+            ambient: crate::model::q32_signed(amb),
             rise: crate::model::q32(rise),
         })
     }
