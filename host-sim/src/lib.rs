@@ -1,0 +1,3 @@
+//! coilward-sim: the coilward guard, unchanged, against a detailed circuit model.
+
+pub mod plant;
