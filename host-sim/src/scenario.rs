@@ -1,0 +1,1367 @@
+//! Scenario files: the circuit, what the firmware believes about it, the guard's settings, a
+//! drive timeline and the spreads for sweeps, in TOML with SI values written with their units
+//! ([`crate::units`]).
+//!
+//! ```toml
+//! name = "irrigation valve"
+//! [supply]    voltage = "24 V"  min = "20 V"  max = "30 V"  source_resistance = "0.2 Ω"
+//! [coil]      inductance = "40 mH"  resistance = "18 Ω"  temperature = "40 °C"
+//! [switch]    on_resistance = "0.1 Ω"  capacitance = "470 pF"  breakdown = "60 V"
+//! [clamp]     path = "freewheel"  forward_voltage = "0.75 V"  resistance = "0.05 Ω"
+//! [control]   period = "50 us"
+//! [guard]     current_ceiling = "1.2 A"  trip_current = "1.4 A"  release_current = "50 mA"
+//! [[drive]]   at = "0 s"  duty = "100 %"
+//! [run]       duration = "200 ms"
+//! [tolerance] inductance = "±20 %"
+//! ```
+//! (one key per line in a real file). The full key list is in the contributor guide. Unknown
+//! keys, values without units and parameter sets the library refuses are errors naming the file,
+//! line and key.
+
+use crate::plant::{Circuit, ClampKind};
+use crate::units::{self, Spread, Unit};
+use coilward::thermal::{ClampThermal, CoilThermal, FosterStage};
+use coilward::{
+    Action, ClampPath, CoilParams, ConfigError, ControlParams, GuardLimits, HeldRequest, Params,
+    Retry, SupplyParams, SwitchParams,
+};
+use serde::Deserialize;
+use std::collections::{BTreeMap, HashMap};
+use std::fmt;
+use std::ops::Range;
+use std::path::{Path, PathBuf};
+use toml::Spanned;
+
+type Text = Option<Spanned<String>>;
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct Raw {
+    name: Option<String>,
+    description: Option<String>,
+    supply: RawSupply,
+    coil: RawCoil,
+    switch: RawSwitch,
+    clamp: RawClamp,
+    control: RawControl,
+    guard: RawGuard,
+    model: Option<BTreeMap<String, Spanned<String>>>,
+    adc: Option<RawAdc>,
+    start: Option<RawStart>,
+    #[serde(default)]
+    drive: Vec<RawDrive>,
+    run: RawRun,
+    tolerance: Option<BTreeMap<String, Spanned<String>>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSupply {
+    voltage: Text,
+    min: Text,
+    max: Text,
+    source_resistance: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawCoil {
+    inductance: Text,
+    resistance: Text,
+    temperature: Text,
+    reference_temperature: Text,
+    temperature_coefficient: Text,
+    saturation_current: Text,
+    saturated_inductance: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSwitch {
+    on_resistance: Text,
+    capacitance: Text,
+    breakdown: Text,
+    body_diode_voltage: Text,
+    avalanche_resistance: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawClamp {
+    path: Text,
+    forward_voltage: Text,
+    zener_voltage: Text,
+    clamp_voltage: Text,
+    resistance: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawControl {
+    period: Text,
+    duty_resolution: Option<Spanned<i64>>,
+    current_full_scale: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawGuard {
+    current_ceiling: Text,
+    trip_current: Text,
+    release_current: Text,
+    clamp_pulse_energy: Text,
+    retry_cooldown: Text,
+    max_retries: Option<Spanned<i64>>,
+    overcurrent: Text,
+    clamp_pulse: Text,
+    clamp_overheat: Text,
+    coil_overheat: Text,
+    supply_low: Text,
+    supply_high: Text,
+    held_request: Text,
+    clamp_thermal_resistance: Option<Spanned<Vec<String>>>,
+    clamp_thermal_time_constant: Option<Spanned<Vec<String>>>,
+    clamp_ambient: Text,
+    clamp_max_temperature: Text,
+    clamp_hysteresis: Text,
+    coil_time_constant: Text,
+    coil_basic_current: Text,
+    coil_overload_factor: Option<Spanned<f64>>,
+    coil_ambient: Text,
+    coil_rise: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawAdc {
+    bits: Option<Spanned<i64>>,
+    full_scale: Text,
+    noise: Text,
+    offset: Text,
+    seed: Option<Spanned<i64>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawStart {
+    current: Text,
+    guard: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawDrive {
+    at: Text,
+    duty: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawRun {
+    duration: Text,
+}
+
+/// A scenario that could not be used: where and why.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ScenarioError {
+    /// The file.
+    pub file: PathBuf,
+    /// 1-based line and column, when known.
+    pub at: Option<(usize, usize)>,
+    /// The key (`section.key`), when one is to blame.
+    pub key: Option<String>,
+    /// What is wrong.
+    pub message: String,
+}
+
+impl fmt::Display for ScenarioError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{}", self.file.display())?;
+        if let Some((line, col)) = self.at {
+            write!(f, ":{line}:{col}")?;
+        }
+        f.write_str(": ")?;
+        if let Some(k) = &self.key {
+            write!(f, "{k}: ")?;
+        }
+        f.write_str(&self.message)
+    }
+}
+
+impl std::error::Error for ScenarioError {}
+
+/// A circuit value that [`[model]`](Scenario::beliefs) may override and `[tolerance]` may spread.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum Knob {
+    /// `supply.voltage`
+    Voltage,
+    /// `supply.source_resistance`
+    SourceResistance,
+    /// `coil.inductance`
+    Inductance,
+    /// `coil.resistance`
+    Resistance,
+    /// `coil.temperature`
+    Temperature,
+    /// `coil.saturation_current`
+    SaturationCurrent,
+    /// `coil.saturated_inductance`
+    SaturatedInductance,
+    /// `switch.on_resistance`
+    OnResistance,
+    /// `switch.capacitance`
+    Capacitance,
+    /// `switch.breakdown`
+    Breakdown,
+    /// `switch.body_diode_voltage`
+    BodyDiodeVoltage,
+    /// `clamp.forward_voltage`
+    ForwardVoltage,
+    /// `clamp.zener_voltage`
+    ZenerVoltage,
+    /// `clamp.clamp_voltage`
+    ClampVoltage,
+    /// `clamp.resistance`
+    ClampResistance,
+}
+
+impl Knob {
+    /// Every knob.
+    pub const ALL: [Knob; 15] = [
+        Knob::Voltage,
+        Knob::SourceResistance,
+        Knob::Inductance,
+        Knob::Resistance,
+        Knob::Temperature,
+        Knob::SaturationCurrent,
+        Knob::SaturatedInductance,
+        Knob::OnResistance,
+        Knob::Capacitance,
+        Knob::Breakdown,
+        Knob::BodyDiodeVoltage,
+        Knob::ForwardVoltage,
+        Knob::ZenerVoltage,
+        Knob::ClampVoltage,
+        Knob::ClampResistance,
+    ];
+
+    /// The key in `[model]` and `[tolerance]`.
+    pub const fn name(self) -> &'static str {
+        match self {
+            Knob::Voltage => "voltage",
+            Knob::SourceResistance => "source_resistance",
+            Knob::Inductance => "inductance",
+            Knob::Resistance => "resistance",
+            Knob::Temperature => "temperature",
+            Knob::SaturationCurrent => "saturation_current",
+            Knob::SaturatedInductance => "saturated_inductance",
+            Knob::OnResistance => "on_resistance",
+            Knob::Capacitance => "capacitance",
+            Knob::Breakdown => "breakdown",
+            Knob::BodyDiodeVoltage => "body_diode_voltage",
+            Knob::ForwardVoltage => "forward_voltage",
+            Knob::ZenerVoltage => "zener_voltage",
+            Knob::ClampVoltage => "clamp_voltage",
+            Knob::ClampResistance => "clamp_resistance",
+        }
+    }
+
+    /// Where the nominal value is written (`section.key`).
+    pub const fn home(self) -> &'static str {
+        match self {
+            Knob::Voltage => "supply.voltage",
+            Knob::SourceResistance => "supply.source_resistance",
+            Knob::Inductance => "coil.inductance",
+            Knob::Resistance => "coil.resistance",
+            Knob::Temperature => "coil.temperature",
+            Knob::SaturationCurrent => "coil.saturation_current",
+            Knob::SaturatedInductance => "coil.saturated_inductance",
+            Knob::OnResistance => "switch.on_resistance",
+            Knob::Capacitance => "switch.capacitance",
+            Knob::Breakdown => "switch.breakdown",
+            Knob::BodyDiodeVoltage => "switch.body_diode_voltage",
+            Knob::ForwardVoltage => "clamp.forward_voltage",
+            Knob::ZenerVoltage => "clamp.zener_voltage",
+            Knob::ClampVoltage => "clamp.clamp_voltage",
+            Knob::ClampResistance => "clamp.resistance",
+        }
+    }
+
+    /// Its unit.
+    pub const fn unit(self) -> Unit {
+        match self {
+            Knob::Voltage
+            | Knob::Breakdown
+            | Knob::BodyDiodeVoltage
+            | Knob::ForwardVoltage
+            | Knob::ZenerVoltage
+            | Knob::ClampVoltage => Unit::Volt,
+            Knob::SourceResistance
+            | Knob::Resistance
+            | Knob::OnResistance
+            | Knob::ClampResistance => Unit::Ohm,
+            Knob::Inductance | Knob::SaturatedInductance => Unit::Henry,
+            Knob::Temperature => Unit::Celsius,
+            Knob::SaturationCurrent => Unit::Ampere,
+            Knob::Capacitance => Unit::Farad,
+        }
+    }
+
+    fn from_name(s: &str) -> Option<Knob> {
+        Knob::ALL.into_iter().find(|k| k.name() == s)
+    }
+}
+
+/// The clamp path's kind.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum PathName {
+    /// `none`
+    None,
+    /// `freewheel`
+    Freewheel,
+    /// `freewheel-zener`
+    FreewheelZener,
+    /// `switch-clamp`
+    SwitchClamp,
+}
+
+impl PathName {
+    /// The scenario spelling.
+    pub const fn name(self) -> &'static str {
+        match self {
+            PathName::None => "none",
+            PathName::Freewheel => "freewheel",
+            PathName::FreewheelZener => "freewheel-zener",
+            PathName::SwitchClamp => "switch-clamp",
+        }
+    }
+}
+
+/// The circuit's values (SI), as the plant has them or as the firmware believes them.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Values {
+    /// Supply voltage, V.
+    pub voltage: f64,
+    /// Lowest specified supply, V.
+    pub supply_min: f64,
+    /// Highest specified supply, V.
+    pub supply_max: f64,
+    /// Source resistance, Ω.
+    pub source_resistance: f64,
+    /// Inductance, H.
+    pub inductance: f64,
+    /// Winding resistance at the reference temperature, Ω.
+    pub resistance: f64,
+    /// Winding temperature, °C.
+    pub temperature: f64,
+    /// Reference temperature of `resistance`, °C.
+    pub reference_temperature: f64,
+    /// Temperature coefficient of resistance, 1/K.
+    pub temperature_coefficient: f64,
+    /// Saturation current, A (with `saturated_inductance`).
+    pub saturation_current: Option<f64>,
+    /// Incremental inductance above the saturation current, H.
+    pub saturated_inductance: Option<f64>,
+    /// Switch on-resistance, Ω.
+    pub on_resistance: f64,
+    /// Switch-node capacitance, F.
+    pub capacitance: f64,
+    /// Switch breakdown, V.
+    pub breakdown: f64,
+    /// Switch dynamic resistance in avalanche, Ω.
+    pub avalanche_resistance: f64,
+    /// Body-diode drop, V.
+    pub body_diode_voltage: f64,
+    /// Clamp path.
+    pub path: PathName,
+    /// Freewheel diode drop, V.
+    pub forward_voltage: f64,
+    /// Zener voltage, V.
+    pub zener_voltage: f64,
+    /// Clamp voltage (switch clamp), V.
+    pub clamp_voltage: f64,
+    /// Series resistance of the clamp path, Ω.
+    pub clamp_resistance: f64,
+}
+
+impl Values {
+    /// Winding resistance at the winding temperature, Ω.
+    pub fn hot_resistance(&self) -> f64 {
+        self.resistance
+            * (1.0 + self.temperature_coefficient * (self.temperature - self.reference_temperature))
+    }
+
+    /// Reads a knob.
+    pub fn get(&self, k: Knob) -> f64 {
+        match k {
+            Knob::Voltage => self.voltage,
+            Knob::SourceResistance => self.source_resistance,
+            Knob::Inductance => self.inductance,
+            Knob::Resistance => self.resistance,
+            Knob::Temperature => self.temperature,
+            Knob::SaturationCurrent => self.saturation_current.unwrap_or(f64::NAN),
+            Knob::SaturatedInductance => self.saturated_inductance.unwrap_or(f64::NAN),
+            Knob::OnResistance => self.on_resistance,
+            Knob::Capacitance => self.capacitance,
+            Knob::Breakdown => self.breakdown,
+            Knob::BodyDiodeVoltage => self.body_diode_voltage,
+            Knob::ForwardVoltage => self.forward_voltage,
+            Knob::ZenerVoltage => self.zener_voltage,
+            Knob::ClampVoltage => self.clamp_voltage,
+            Knob::ClampResistance => self.clamp_resistance,
+        }
+    }
+
+    /// Sets a knob.
+    pub fn set(&mut self, k: Knob, x: f64) {
+        match k {
+            Knob::Voltage => self.voltage = x,
+            Knob::SourceResistance => self.source_resistance = x,
+            Knob::Inductance => self.inductance = x,
+            Knob::Resistance => self.resistance = x,
+            Knob::Temperature => self.temperature = x,
+            Knob::SaturationCurrent => self.saturation_current = Some(x),
+            Knob::SaturatedInductance => self.saturated_inductance = Some(x),
+            Knob::OnResistance => self.on_resistance = x,
+            Knob::Capacitance => self.capacitance = x,
+            Knob::Breakdown => self.breakdown = x,
+            Knob::BodyDiodeVoltage => self.body_diode_voltage = x,
+            Knob::ForwardVoltage => self.forward_voltage = x,
+            Knob::ZenerVoltage => self.zener_voltage = x,
+            Knob::ClampVoltage => self.clamp_voltage = x,
+            Knob::ClampResistance => self.clamp_resistance = x,
+        }
+    }
+
+    /// Whether the knob means anything for this circuit.
+    pub fn applies(&self, k: Knob) -> bool {
+        match k {
+            Knob::SaturationCurrent | Knob::SaturatedInductance => {
+                self.saturation_current.is_some()
+            }
+            Knob::ForwardVoltage => {
+                matches!(self.path, PathName::Freewheel | PathName::FreewheelZener)
+            }
+            Knob::ZenerVoltage => self.path == PathName::FreewheelZener,
+            Knob::ClampVoltage => self.path == PathName::SwitchClamp,
+            Knob::ClampResistance => self.path != PathName::None,
+            _ => true,
+        }
+    }
+
+    /// The plant's circuit.
+    pub fn circuit(&self) -> Circuit {
+        let clamp = match self.path {
+            PathName::None => ClampKind::None,
+            PathName::Freewheel => ClampKind::Freewheel {
+                drop: self.forward_voltage,
+                resistance: self.clamp_resistance,
+            },
+            PathName::FreewheelZener => ClampKind::Freewheel {
+                drop: self.forward_voltage + self.zener_voltage,
+                resistance: self.clamp_resistance,
+            },
+            PathName::SwitchClamp => ClampKind::Switch {
+                voltage: self.clamp_voltage,
+                resistance: self.clamp_resistance,
+            },
+        };
+        Circuit {
+            supply: self.voltage,
+            source_resistance: self.source_resistance,
+            inductance: self.inductance,
+            saturation: self.saturation_current.zip(self.saturated_inductance),
+            resistance: self.hot_resistance(),
+            on_resistance: self.on_resistance,
+            capacitance: self.capacitance,
+            breakdown: self.breakdown,
+            avalanche_resistance: self.avalanche_resistance,
+            body_diode_drop: self.body_diode_voltage,
+            clamp,
+        }
+    }
+}
+
+/// The ADC that reads the supply for the guard.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Adc {
+    /// Resolution, bits (`None`: exact, the guard sees the true supply).
+    pub bits: Option<u32>,
+    /// Supply voltage that reads as the full count, V.
+    pub full_scale: f64,
+    /// Gaussian noise, V rms.
+    pub noise: f64,
+    /// Offset added to every reading, V.
+    pub offset: f64,
+    /// Seed of the noise.
+    pub seed: u64,
+}
+
+/// How the run starts.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Start {
+    /// Coil current at t = 0, A.
+    pub current: f64,
+    /// Whether the guard is told that current (`false`: it starts as after a reset, assuming
+    /// the worst).
+    pub guard_told: bool,
+}
+
+/// One step of the drive timeline.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Step {
+    /// Start of the step, s.
+    pub at: f64,
+    /// Requested duty, 0 ..= 1.
+    pub duty: f64,
+}
+
+/// A validated scenario.
+#[derive(Debug, Clone)]
+pub struct Scenario {
+    /// The file it came from.
+    pub file: PathBuf,
+    /// Its name (the file stem if it gives none).
+    pub name: String,
+    /// Its description.
+    pub description: Option<String>,
+    /// The circuit as it is.
+    pub plant: Values,
+    /// The circuit as the firmware believes it (`[model]` overrides; else the same).
+    pub beliefs: Values,
+    /// Keys `[model]` overrode.
+    pub overridden: Vec<Knob>,
+    /// Control period, s.
+    pub period: f64,
+    /// Timer counts per period.
+    pub duty_resolution: u32,
+    /// Full scale of the estimate, A.
+    pub current_full_scale: f64,
+    /// The guard's settings.
+    pub limits: GuardLimits,
+    /// Supply ADC.
+    pub adc: Adc,
+    /// Initial conditions.
+    pub start: Start,
+    /// Drive timeline, ascending.
+    pub drive: Vec<Step>,
+    /// Run length, s.
+    pub duration: f64,
+    /// Spreads for sweeps.
+    pub tolerance: Vec<(Knob, Spread)>,
+    /// Defaults the file left to the simulator, as `key = value` notes.
+    pub assumed: Vec<String>,
+    spans: HashMap<String, Range<usize>>,
+    source: String,
+}
+
+/// Parsing context: file, text, spans.
+struct Cx<'a> {
+    file: &'a Path,
+    text: &'a str,
+    spans: HashMap<String, Range<usize>>,
+}
+
+impl Cx<'_> {
+    fn position(&self, offset: usize) -> (usize, usize) {
+        let before = &self.text[..offset.min(self.text.len())];
+        let line = before.matches('\n').count() + 1;
+        let col = before.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
+        (line, col)
+    }
+
+    fn error(
+        &self,
+        key: &str,
+        span: Option<Range<usize>>,
+        message: impl Into<String>,
+    ) -> ScenarioError {
+        let span = span.or_else(|| self.spans.get(key).cloned());
+        ScenarioError {
+            file: self.file.to_path_buf(),
+            at: span.map(|s| self.position(s.start)),
+            key: Some(key.to_string()),
+            message: message.into(),
+        }
+    }
+
+    /// A value with its unit; records the span under `key`.
+    fn value(&mut self, key: &str, raw: &Text, unit: Unit) -> Result<Option<f64>, ScenarioError> {
+        let Some(s) = raw else { return Ok(None) };
+        self.spans.insert(key.to_string(), s.span());
+        units::parse(s.get_ref(), unit)
+            .map(Some)
+            .map_err(|e| self.error(key, Some(s.span()), e.0))
+    }
+
+    fn required(&mut self, key: &str, raw: &Text, unit: Unit) -> Result<f64, ScenarioError> {
+        self.value(key, raw, unit)?.ok_or_else(|| {
+            self.error(
+                key,
+                None,
+                format!("missing; give it with its unit, e.g. {}", unit.example()),
+            )
+        })
+    }
+
+    fn word<'s>(
+        &mut self,
+        key: &str,
+        raw: &'s Text,
+        allowed: &[&str],
+    ) -> Result<Option<&'s str>, ScenarioError> {
+        let Some(s) = raw else { return Ok(None) };
+        self.spans.insert(key.to_string(), s.span());
+        if allowed.contains(&s.get_ref().as_str()) {
+            Ok(Some(s.get_ref().as_str()))
+        } else {
+            Err(self.error(
+                key,
+                Some(s.span()),
+                format!("`{}` is not one of {}", s.get_ref(), allowed.join(", ")),
+            ))
+        }
+    }
+
+    fn action(&mut self, key: &str, raw: &Text, default: Action) -> Result<Action, ScenarioError> {
+        Ok(match self.word(key, raw, &["report", "hold", "trip"])? {
+            Some("report") => Action::Report,
+            Some("hold") => Action::Hold,
+            Some("trip") => Action::Trip,
+            _ => default,
+        })
+    }
+
+    fn count(
+        &mut self,
+        key: &str,
+        raw: &Option<Spanned<i64>>,
+        range: Range<i64>,
+    ) -> Result<Option<i64>, ScenarioError> {
+        let Some(s) = raw else { return Ok(None) };
+        self.spans.insert(key.to_string(), s.span());
+        let v = *s.get_ref();
+        if range.contains(&v) {
+            Ok(Some(v))
+        } else {
+            Err(self.error(
+                key,
+                Some(s.span()),
+                format!("{v} is outside {} ..= {}", range.start, range.end - 1),
+            ))
+        }
+    }
+
+    fn check(&self, key: &str, ok: bool, message: &str) -> Result<(), ScenarioError> {
+        if ok {
+            Ok(())
+        } else {
+            Err(self.error(key, None, message))
+        }
+    }
+}
+
+/// The scenario key that holds the library field `field` (as [`coilward::Field::name`] spells
+/// it).
+fn scenario_key(field: &str) -> &str {
+    match field {
+        "supply.nominal" => "supply.voltage",
+        "coil.winding_temperature" => "coil.temperature",
+        "coil.node_capacitance" => "switch.capacitance",
+        "clamp.forward_drop" => "clamp.forward_voltage",
+        "clamp.zener_voltage" => "clamp.zener_voltage",
+        "clamp.clamp_voltage" => "clamp.clamp_voltage",
+        "clamp_thermal.stages" => "guard.clamp_thermal_resistance",
+        "clamp_thermal.ambient" => "guard.clamp_ambient",
+        "clamp_thermal.ceiling" => "guard.clamp_max_temperature",
+        "clamp_thermal.hysteresis" => "guard.clamp_hysteresis",
+        "coil_thermal.time_constant" => "guard.coil_time_constant",
+        "coil_thermal.basic_current" => "guard.coil_basic_current",
+        "coil_thermal.overload_factor" => "guard.coil_overload_factor",
+        "coil_thermal.ambient" => "guard.coil_ambient",
+        "coil_thermal.rise_at_basic" => "guard.coil_rise",
+        other => other,
+    }
+}
+
+impl Scenario {
+    /// Reads and validates a scenario file.
+    pub fn load(path: &Path) -> Result<Self, ScenarioError> {
+        let text = std::fs::read_to_string(path).map_err(|e| ScenarioError {
+            file: path.to_path_buf(),
+            at: None,
+            key: None,
+            message: format!("cannot read: {e}"),
+        })?;
+        Self::parse(path, &text)
+    }
+
+    /// Validates scenario text (`path` names it in messages).
+    pub fn parse(path: &Path, text: &str) -> Result<Self, ScenarioError> {
+        let mut cx = Cx {
+            file: path,
+            text,
+            spans: HashMap::new(),
+        };
+        let raw: Raw = toml::from_str(text).map_err(|e| {
+            let at = e.span().map(|s| cx.position(s.start));
+            let mut message = e.message().trim().to_string();
+            if let Some(line) = at.and_then(|(l, _)| text.lines().nth(l - 1)) {
+                message.push_str(&format!(" (in `{}`)", line.trim()));
+            }
+            ScenarioError {
+                file: path.to_path_buf(),
+                at,
+                key: None,
+                message,
+            }
+        })?;
+        let s = &raw.supply;
+        let voltage = cx.required("supply.voltage", &s.voltage, Unit::Volt)?;
+        let supply_min = cx.value("supply.min", &s.min, Unit::Volt)?;
+        let supply_max = cx.value("supply.max", &s.max, Unit::Volt)?;
+        let mut assumed = Vec::new();
+        if supply_min.is_none() {
+            assumed.push(format!("supply.min = supply.voltage ({voltage} V)"));
+        }
+        if supply_max.is_none() {
+            assumed.push(format!("supply.max = supply.voltage ({voltage} V)"));
+        }
+        let source_resistance = cx
+            .value("supply.source_resistance", &s.source_resistance, Unit::Ohm)?
+            .unwrap_or(0.0);
+        cx.check(
+            "supply.source_resistance",
+            source_resistance >= 0.0,
+            "must not be negative",
+        )?;
+
+        let c = &raw.coil;
+        let inductance = cx.required("coil.inductance", &c.inductance, Unit::Henry)?;
+        let resistance = cx.required("coil.resistance", &c.resistance, Unit::Ohm)?;
+        let reference_temperature = cx
+            .value(
+                "coil.reference_temperature",
+                &c.reference_temperature,
+                Unit::Celsius,
+            )?
+            .unwrap_or(20.0);
+        let temperature = cx
+            .value("coil.temperature", &c.temperature, Unit::Celsius)?
+            .unwrap_or(reference_temperature);
+        let temperature_coefficient = cx
+            .value(
+                "coil.temperature_coefficient",
+                &c.temperature_coefficient,
+                Unit::PerKelvin,
+            )?
+            .unwrap_or(f64::from(coilward::COPPER_TEMPERATURE_COEFFICIENT));
+        let saturation_current = cx.value(
+            "coil.saturation_current",
+            &c.saturation_current,
+            Unit::Ampere,
+        )?;
+        let saturated_inductance = cx.value(
+            "coil.saturated_inductance",
+            &c.saturated_inductance,
+            Unit::Henry,
+        )?;
+        match (saturation_current, saturated_inductance) {
+            (Some(_), None) => {
+                return Err(cx.error(
+                    "coil.saturated_inductance",
+                    cx.spans.get("coil.saturation_current").cloned(),
+                    "missing: saturation_current needs saturated_inductance",
+                ));
+            }
+            (None, Some(_)) => {
+                return Err(cx.error(
+                    "coil.saturation_current",
+                    cx.spans.get("coil.saturated_inductance").cloned(),
+                    "missing: saturated_inductance needs saturation_current",
+                ));
+            }
+            (Some(i), Some(l)) => {
+                cx.check("coil.saturation_current", i > 0.0, "must be positive")?;
+                cx.check(
+                    "coil.saturated_inductance",
+                    l > 0.0 && l <= inductance,
+                    "must be positive and at most coil.inductance",
+                )?;
+            }
+            (None, None) => {}
+        }
+
+        let w = &raw.switch;
+        let on_resistance = cx.required("switch.on_resistance", &w.on_resistance, Unit::Ohm)?;
+        let capacitance = match cx.value("switch.capacitance", &w.capacitance, Unit::Farad)? {
+            Some(c) => c,
+            None => {
+                assumed.push("switch.capacitance = 100 pF".to_string());
+                100e-12
+            }
+        };
+        cx.check(
+            "switch.capacitance",
+            capacitance > 0.0 && capacitance <= 1e-3,
+            "must be above 0 and at most 1 mF",
+        )?;
+        let breakdown = cx.required("switch.breakdown", &w.breakdown, Unit::Volt)?;
+        let body_diode_voltage = match cx.value(
+            "switch.body_diode_voltage",
+            &w.body_diode_voltage,
+            Unit::Volt,
+        )? {
+            Some(v) => v,
+            None => {
+                assumed.push("switch.body_diode_voltage = 0.8 V".to_string());
+                0.8
+            }
+        };
+        cx.check(
+            "switch.body_diode_voltage",
+            body_diode_voltage >= 0.0,
+            "must not be negative",
+        )?;
+        let avalanche_resistance = cx
+            .value(
+                "switch.avalanche_resistance",
+                &w.avalanche_resistance,
+                Unit::Ohm,
+            )?
+            .unwrap_or(0.0);
+        cx.check(
+            "switch.avalanche_resistance",
+            avalanche_resistance >= 0.0,
+            "must not be negative",
+        )?;
+
+        let k = &raw.clamp;
+        let kind = match cx.word(
+            "clamp.path",
+            &k.path,
+            &["none", "freewheel", "freewheel-zener", "switch-clamp"],
+        )? {
+            Some("none") => PathName::None,
+            Some("freewheel") => PathName::Freewheel,
+            Some("freewheel-zener") => PathName::FreewheelZener,
+            Some(_) => PathName::SwitchClamp,
+            None => {
+                return Err(cx.error(
+                    "clamp.path",
+                    None,
+                    "missing; one of none, freewheel, freewheel-zener, switch-clamp",
+                ));
+            }
+        };
+        let forward_voltage = cx.value("clamp.forward_voltage", &k.forward_voltage, Unit::Volt)?;
+        let zener_voltage = cx.value("clamp.zener_voltage", &k.zener_voltage, Unit::Volt)?;
+        let clamp_voltage = cx.value("clamp.clamp_voltage", &k.clamp_voltage, Unit::Volt)?;
+        let clamp_resistance = cx.value("clamp.resistance", &k.resistance, Unit::Ohm)?;
+        let needs = |key: &str, v: Option<f64>, cx: &Cx| -> Result<f64, ScenarioError> {
+            v.ok_or_else(|| {
+                cx.error(
+                    key,
+                    cx.spans.get("clamp.path").cloned(),
+                    format!("missing: path \"{}\" needs it", kind.name()),
+                )
+            })
+        };
+        let refuse = |key: &str, v: Option<f64>, cx: &Cx| -> Result<(), ScenarioError> {
+            if v.is_some() {
+                Err(cx.error(
+                    key,
+                    None,
+                    format!("does not apply to path \"{}\"", kind.name()),
+                ))
+            } else {
+                Ok(())
+            }
+        };
+        let (fv, zv, kv) = match kind {
+            PathName::None => {
+                refuse("clamp.forward_voltage", forward_voltage, &cx)?;
+                refuse("clamp.zener_voltage", zener_voltage, &cx)?;
+                refuse("clamp.clamp_voltage", clamp_voltage, &cx)?;
+                refuse("clamp.resistance", clamp_resistance, &cx)?;
+                (0.0, 0.0, 0.0)
+            }
+            PathName::Freewheel => {
+                refuse("clamp.zener_voltage", zener_voltage, &cx)?;
+                refuse("clamp.clamp_voltage", clamp_voltage, &cx)?;
+                (
+                    needs("clamp.forward_voltage", forward_voltage, &cx)?,
+                    0.0,
+                    0.0,
+                )
+            }
+            PathName::FreewheelZener => {
+                refuse("clamp.clamp_voltage", clamp_voltage, &cx)?;
+                (
+                    needs("clamp.forward_voltage", forward_voltage, &cx)?,
+                    needs("clamp.zener_voltage", zener_voltage, &cx)?,
+                    0.0,
+                )
+            }
+            PathName::SwitchClamp => {
+                refuse("clamp.forward_voltage", forward_voltage, &cx)?;
+                refuse("clamp.zener_voltage", zener_voltage, &cx)?;
+                (0.0, 0.0, needs("clamp.clamp_voltage", clamp_voltage, &cx)?)
+            }
+        };
+
+        let mut plant = Values {
+            voltage,
+            supply_min: supply_min.unwrap_or(voltage),
+            supply_max: supply_max.unwrap_or(voltage),
+            source_resistance,
+            inductance,
+            resistance,
+            temperature,
+            reference_temperature,
+            temperature_coefficient,
+            saturation_current,
+            saturated_inductance,
+            on_resistance,
+            capacitance,
+            breakdown,
+            avalanche_resistance,
+            body_diode_voltage,
+            path: kind,
+            forward_voltage: fv,
+            zener_voltage: zv,
+            clamp_voltage: kv,
+            clamp_resistance: clamp_resistance.unwrap_or(0.0),
+        };
+        cx.check(
+            "clamp.resistance",
+            plant.clamp_resistance >= 0.0,
+            "must not be negative",
+        )?;
+
+        // [model]: the firmware's beliefs.
+        let mut beliefs = plant;
+        let mut overridden = Vec::new();
+        for (key, value) in raw.model.iter().flatten() {
+            let name = format!("model.{key}");
+            let knob = Knob::from_name(key).ok_or_else(|| {
+                cx.error(
+                    &name,
+                    Some(value.span()),
+                    format!(
+                        "unknown key; [model] takes {}",
+                        Knob::ALL.map(Knob::name).join(", ")
+                    ),
+                )
+            })?;
+            if !plant.applies(knob) {
+                return Err(cx.error(&name, Some(value.span()), "does not apply to this circuit"));
+            }
+            let x = cx.required(&name, &Some(value.clone()), knob.unit())?;
+            beliefs.set(knob, x);
+            overridden.push(knob);
+        }
+
+        // [control]
+        let ct = &raw.control;
+        let period = cx.required("control.period", &ct.period, Unit::Second)?;
+        let duty_resolution =
+            match cx.count("control.duty_resolution", &ct.duty_resolution, 1..65_536)? {
+                Some(n) => u32::try_from(n).unwrap_or(1000),
+                None => {
+                    assumed.push("control.duty_resolution = 1000".to_string());
+                    1000
+                }
+            };
+
+        // [guard]
+        let g = &raw.guard;
+        let ceiling = cx.required("guard.current_ceiling", &g.current_ceiling, Unit::Ampere)?;
+        let trip = cx.required("guard.trip_current", &g.trip_current, Unit::Ampere)?;
+        let release = cx.required("guard.release_current", &g.release_current, Unit::Ampere)?;
+        let current_full_scale = match cx.value(
+            "control.current_full_scale",
+            &ct.current_full_scale,
+            Unit::Ampere,
+        )? {
+            Some(a) => a,
+            None => {
+                assumed.push(format!(
+                    "control.current_full_scale = guard.trip_current ({trip} A)"
+                ));
+                trip
+            }
+        };
+        let mut limits = GuardLimits::new(ceiling as f32, trip as f32, release as f32);
+        limits.clamp_pulse_energy = cx
+            .value(
+                "guard.clamp_pulse_energy",
+                &g.clamp_pulse_energy,
+                Unit::Joule,
+            )?
+            .map(|x| x as f32);
+        let cooldown = cx.value("guard.retry_cooldown", &g.retry_cooldown, Unit::Second)?;
+        let retries = cx.count("guard.max_retries", &g.max_retries, 0..256)?;
+        limits.retry = match (cooldown, retries) {
+            (Some(c), r) => Some(Retry::new(
+                c as f32,
+                u8::try_from(r.unwrap_or(3)).unwrap_or(3),
+            )),
+            (None, Some(_)) => {
+                return Err(cx.error(
+                    "guard.retry_cooldown",
+                    cx.spans.get("guard.max_retries").cloned(),
+                    "missing: max_retries needs retry_cooldown",
+                ));
+            }
+            (None, None) => None,
+        };
+        let mut policy = limits.policy;
+        policy.overcurrent = cx.action("guard.overcurrent", &g.overcurrent, policy.overcurrent)?;
+        policy.clamp_pulse = cx.action("guard.clamp_pulse", &g.clamp_pulse, policy.clamp_pulse)?;
+        policy.clamp_overheat = cx.action(
+            "guard.clamp_overheat",
+            &g.clamp_overheat,
+            policy.clamp_overheat,
+        )?;
+        policy.coil_overheat = cx.action(
+            "guard.coil_overheat",
+            &g.coil_overheat,
+            policy.coil_overheat,
+        )?;
+        policy.supply_low = cx.action("guard.supply_low", &g.supply_low, policy.supply_low)?;
+        policy.supply_high = cx.action("guard.supply_high", &g.supply_high, policy.supply_high)?;
+        policy.held_request =
+            match cx.word("guard.held_request", &g.held_request, &["defer", "drop"])? {
+                Some("drop") => HeldRequest::Drop,
+                _ => HeldRequest::Defer,
+            };
+        limits.policy = policy;
+        limits.clamp_thermal = clamp_thermal(&mut cx, g)?;
+        limits.coil_thermal = coil_thermal(&mut cx, g)?;
+
+        // [adc]
+        let adc = match &raw.adc {
+            None => Adc {
+                bits: None,
+                full_scale: 0.0,
+                noise: 0.0,
+                offset: 0.0,
+                seed: 0,
+            },
+            Some(a) => {
+                let bits = cx
+                    .count("adc.bits", &a.bits, 1..25)?
+                    .map(|b| u32::try_from(b).unwrap_or(12));
+                let full_scale = cx.value("adc.full_scale", &a.full_scale, Unit::Volt)?;
+                if bits.is_some() && full_scale.is_none() {
+                    return Err(cx.error(
+                        "adc.full_scale",
+                        cx.spans.get("adc.bits").cloned(),
+                        "missing: adc.bits needs the supply voltage that reads as the full count",
+                    ));
+                }
+                let noise = cx.value("adc.noise", &a.noise, Unit::Volt)?.unwrap_or(0.0);
+                cx.check("adc.noise", noise >= 0.0, "must not be negative")?;
+                let fs = full_scale.unwrap_or(0.0);
+                cx.check(
+                    "adc.full_scale",
+                    full_scale.is_none() || fs > 0.0,
+                    "must be positive",
+                )?;
+                Adc {
+                    bits,
+                    full_scale: fs,
+                    noise,
+                    offset: cx
+                        .value("adc.offset", &a.offset, Unit::Volt)?
+                        .unwrap_or(0.0),
+                    seed: cx
+                        .count("adc.seed", &a.seed, 0..i64::MAX)?
+                        .map_or(1, |s| s as u64),
+                }
+            }
+        };
+
+        // [start]
+        let start = match &raw.start {
+            None => Start {
+                current: 0.0,
+                guard_told: true,
+            },
+            Some(st) => Start {
+                current: cx
+                    .value("start.current", &st.current, Unit::Ampere)?
+                    .unwrap_or(0.0),
+                guard_told: cx.word("start.guard", &st.guard, &["told", "reset"])? != Some("reset"),
+            },
+        };
+
+        // [[drive]]
+        let mut drive = Vec::new();
+        for (n, d) in raw.drive.iter().enumerate() {
+            let key_at = format!("drive[{n}].at");
+            let key_duty = format!("drive[{n}].duty");
+            let at = cx.required(&key_at, &d.at, Unit::Second)?;
+            let duty = cx.required(&key_duty, &d.duty, Unit::Percent)?;
+            cx.check(
+                &key_duty,
+                (0.0..=1.0).contains(&duty),
+                "must be within 0 % ..= 100 %",
+            )?;
+            cx.check(&key_at, at >= 0.0, "must not be negative")?;
+            if let Some(prev) = drive.last().map(|s: &Step| s.at) {
+                cx.check(&key_at, at >= prev, "the drive steps must be in time order")?;
+            }
+            drive.push(Step { at, duty });
+        }
+        if drive.is_empty() {
+            return Err(ScenarioError { file: path.to_path_buf(), at: None, key: Some("drive".into()), message: "no [[drive]] steps: give at least one, e.g. [[drive]] at = \"0 s\" duty = \"100 %\"".into() });
+        }
+
+        // [run]
+        let duration = cx.required("run.duration", &raw.run.duration, Unit::Second)?;
+        cx.check(
+            "run.duration",
+            duration > 0.0 && duration <= 3600.0,
+            "must be above 0 s and at most 1 h",
+        )?;
+        cx.check(
+            "run.duration",
+            duration / period <= 1e8,
+            "more than 10⁸ control periods",
+        )?;
+
+        // [tolerance]
+        let mut tolerance = Vec::new();
+        for (key, value) in raw.tolerance.iter().flatten() {
+            let name = format!("tolerance.{key}");
+            let knob = Knob::from_name(key).ok_or_else(|| {
+                cx.error(
+                    &name,
+                    Some(value.span()),
+                    format!(
+                        "unknown key; [tolerance] takes {}",
+                        Knob::ALL.map(Knob::name).join(", ")
+                    ),
+                )
+            })?;
+            if !plant.applies(knob) {
+                return Err(cx.error(&name, Some(value.span()), "does not apply to this circuit"));
+            }
+            let spread = units::parse_spread(value.get_ref(), knob.unit())
+                .map_err(|e| cx.error(&name, Some(value.span()), e.0))?;
+            cx.spans.insert(name, value.span());
+            tolerance.push((knob, spread));
+        }
+        plant.supply_min = plant.supply_min.min(plant.voltage);
+        let scenario = Scenario {
+            file: path.to_path_buf(),
+            name: raw.name.clone().unwrap_or_else(|| {
+                path.file_stem()
+                    .map_or_else(String::new, |s| s.to_string_lossy().into_owned())
+            }),
+            description: raw.description.clone(),
+            plant,
+            beliefs,
+            overridden,
+            period,
+            duty_resolution,
+            current_full_scale,
+            limits,
+            adc,
+            start,
+            drive,
+            duration,
+            tolerance,
+            assumed,
+            spans: cx.spans,
+            source: text.to_string(),
+        };
+        // The library's own validation, once, with its refusal mapped to the key.
+        scenario.guard().map_err(|e| scenario.config_error(&e))?;
+        Ok(scenario)
+    }
+
+    /// The library parameters the firmware would be built with (the beliefs).
+    pub fn params(&self) -> Params {
+        let b = &self.beliefs;
+        let clamp = match b.path {
+            PathName::None => ClampPath::None,
+            PathName::Freewheel => ClampPath::Freewheel {
+                forward_drop: b.forward_voltage as f32,
+                resistance: b.clamp_resistance as f32,
+            },
+            PathName::FreewheelZener => ClampPath::FreewheelZener {
+                forward_drop: b.forward_voltage as f32,
+                zener_voltage: b.zener_voltage as f32,
+                resistance: b.clamp_resistance as f32,
+            },
+            PathName::SwitchClamp => ClampPath::SwitchClamp {
+                clamp_voltage: b.clamp_voltage as f32,
+                resistance: b.clamp_resistance as f32,
+            },
+        };
+        let mut coil = CoilParams::new(b.inductance as f32, b.resistance as f32);
+        coil.reference_temperature = b.reference_temperature as f32;
+        coil.temperature_coefficient = b.temperature_coefficient as f32;
+        coil.winding_temperature = b.temperature as f32;
+        coil.node_capacitance = Some(b.capacitance as f32);
+        Params::new(
+            SupplyParams::new(b.voltage as f32, b.supply_min as f32, b.supply_max as f32),
+            coil,
+            SwitchParams::new(b.on_resistance as f32, b.breakdown as f32),
+            clamp,
+            ControlParams::new(
+                self.period as f32,
+                self.duty_resolution,
+                self.current_full_scale as f32,
+            ),
+        )
+    }
+
+    /// The guard, built as the firmware would build it.
+    pub fn guard(&self) -> Result<coilward::Guard, ConfigError> {
+        coilward::Guard::new(&self.params(), &self.limits)
+    }
+
+    /// A library refusal as a scenario error at the key that holds the field.
+    pub fn config_error(&self, e: &ConfigError) -> ScenarioError {
+        let key = scenario_key(e.field.name()).to_string();
+        // A belief overridden in [model] is blamed there.
+        let key = Knob::ALL
+            .into_iter()
+            .find(|k| k.home() == key && self.overridden.contains(k))
+            .map_or(key, |k| format!("model.{}", k.name()));
+        let cx = Cx {
+            file: &self.file,
+            text: &self.source,
+            spans: self.spans.clone(),
+        };
+        cx.error(&key, None, format!("refused by the library: {e}"))
+    }
+
+    /// The first control period at or after a step's time (a step at 10 ms with a 50 µs period
+    /// starts period 200 exactly, whatever the rounding of 10 ms / 50 µs).
+    pub fn step_period(&self, at: f64) -> u64 {
+        let k = at / self.period;
+        let near = k.round();
+        if (k - near).abs() <= 1e-6 {
+            near as u64
+        } else {
+            k.ceil() as u64
+        }
+    }
+
+    /// Requested duty (0 ..= 1) in control period `k`.
+    pub fn duty_in_period(&self, k: u64) -> f64 {
+        let n = self.drive.partition_point(|s| self.step_period(s.at) <= k);
+        if n == 0 { 0.0 } else { self.drive[n - 1].duty }
+    }
+}
+
+fn stage_list(
+    cx: &mut Cx,
+    key: &str,
+    raw: &Option<Spanned<Vec<String>>>,
+    unit: Unit,
+) -> Result<Option<Vec<f64>>, ScenarioError> {
+    let Some(list) = raw else { return Ok(None) };
+    cx.spans.insert(key.to_string(), list.span());
+    let mut out = Vec::new();
+    for s in list.get_ref() {
+        out.push(units::parse(s, unit).map_err(|e| cx.error(key, Some(list.span()), e.0))?);
+    }
+    if out.is_empty() || out.len() > 3 {
+        return Err(cx.error(key, Some(list.span()), "give one to three stages"));
+    }
+    Ok(Some(out))
+}
+
+fn clamp_thermal(cx: &mut Cx, g: &RawGuard) -> Result<Option<ClampThermal>, ScenarioError> {
+    let r = stage_list(
+        cx,
+        "guard.clamp_thermal_resistance",
+        &g.clamp_thermal_resistance,
+        Unit::KelvinPerWatt,
+    )?;
+    let tau = stage_list(
+        cx,
+        "guard.clamp_thermal_time_constant",
+        &g.clamp_thermal_time_constant,
+        Unit::Second,
+    )?;
+    let ambient = cx.value("guard.clamp_ambient", &g.clamp_ambient, Unit::Celsius)?;
+    let ceiling = cx.value(
+        "guard.clamp_max_temperature",
+        &g.clamp_max_temperature,
+        Unit::Celsius,
+    )?;
+    let hysteresis = cx.value("guard.clamp_hysteresis", &g.clamp_hysteresis, Unit::Kelvin)?;
+    let any = r.is_some()
+        || tau.is_some()
+        || ambient.is_some()
+        || ceiling.is_some()
+        || hysteresis.is_some();
+    if !any {
+        return Ok(None);
+    }
+    let missing = |key: &str, cx: &Cx| {
+        cx.error(key, None, "missing: the clamp's thermal model needs clamp_thermal_resistance, clamp_thermal_time_constant, clamp_ambient and clamp_max_temperature")
+    };
+    let r = r.ok_or_else(|| missing("guard.clamp_thermal_resistance", cx))?;
+    let tau = tau.ok_or_else(|| missing("guard.clamp_thermal_time_constant", cx))?;
+    if r.len() != tau.len() {
+        return Err(cx.error(
+            "guard.clamp_thermal_time_constant",
+            None,
+            "needs as many entries as clamp_thermal_resistance",
+        ));
+    }
+    let mut stages = [FosterStage::UNUSED; 3];
+    for (s, (r, t)) in stages.iter_mut().zip(r.iter().zip(&tau)) {
+        *s = FosterStage::new(*r as f32, *t as f32);
+    }
+    let mut t = ClampThermal::new(
+        stages,
+        ambient.ok_or_else(|| missing("guard.clamp_ambient", cx))? as f32,
+        ceiling.ok_or_else(|| missing("guard.clamp_max_temperature", cx))? as f32,
+    );
+    if let Some(h) = hysteresis {
+        t.hysteresis = h as f32;
+    }
+    Ok(Some(t))
+}
+
+fn coil_thermal(cx: &mut Cx, g: &RawGuard) -> Result<Option<CoilThermal>, ScenarioError> {
+    let tau = cx.value(
+        "guard.coil_time_constant",
+        &g.coil_time_constant,
+        Unit::Second,
+    )?;
+    let basic = cx.value(
+        "guard.coil_basic_current",
+        &g.coil_basic_current,
+        Unit::Ampere,
+    )?;
+    let ambient = cx.value("guard.coil_ambient", &g.coil_ambient, Unit::Celsius)?;
+    let rise = cx.value("guard.coil_rise", &g.coil_rise, Unit::Kelvin)?;
+    let k = g.coil_overload_factor.as_ref().map(|s| {
+        cx.spans
+            .insert("guard.coil_overload_factor".into(), s.span());
+        *s.get_ref()
+    });
+    if tau.is_none() && basic.is_none() && ambient.is_none() && rise.is_none() && k.is_none() {
+        return Ok(None);
+    }
+    let missing = |key: &str, cx: &Cx| {
+        cx.error(key, None, "missing: the winding's thermal image needs coil_time_constant, coil_basic_current, coil_ambient and coil_rise (coil_overload_factor defaults to 1.05)")
+    };
+    Ok(Some(CoilThermal::new(
+        tau.ok_or_else(|| missing("guard.coil_time_constant", cx))? as f32,
+        basic.ok_or_else(|| missing("guard.coil_basic_current", cx))? as f32,
+        k.unwrap_or(1.05) as f32,
+        ambient.ok_or_else(|| missing("guard.coil_ambient", cx))? as f32,
+        rise.ok_or_else(|| missing("guard.coil_rise", cx))? as f32,
+    )))
+}
