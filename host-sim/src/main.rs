@@ -1,14 +1,403 @@
-//! `coilward-sim`: the host simulator for coilward drive profiles.
+//! `coilward-sim`: validate a drive profile against a detailed circuit before flashing it.
 //!
-//! Not built yet. The package exists so the workspace has its final shape; the circuit plant,
-//! scenario files, co-simulation and reports arrive with the simulator's own issue. Until then
-//! the binary says so and exits with status 2 (bad input), so no script mistakes it for a pass.
+//! Exit status: 0 the profile passed; 1 a limit was exceeded or the guard had to act; 2 bad
+//! input (the message names the file, line and key).
 
-fn main() {
-    eprintln!(
-        "coilward-sim {}: the simulator is not implemented yet; see `cargo run --example demo_coil` \
-         for the estimate of a demo coil",
-        env!("CARGO_PKG_VERSION")
+use clap::{Parser, Subcommand};
+use coilward_sim::cosim::{self, Options};
+use coilward_sim::report::{self, si};
+use coilward_sim::scenario::Scenario;
+use coilward_sim::sweep::{self, Shard};
+use indicatif::{ProgressBar, ProgressStyle};
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+#[derive(Parser)]
+#[command(
+    name = "coilward-sim",
+    version,
+    about = "Run the coilward guard against a detailed circuit model of an inductive load",
+    after_help = "Examples:\n  coilward-sim check examples/scenarios/irrigation-valve.toml\n  coilward-sim run examples/scenarios/irrigation-valve.toml --svg valve.svg\n  coilward-sim sweep examples/scenarios/irrigation-valve.toml --samples 1000\n\nExit status: 0 pass, 1 a limit was exceeded or the guard had to act, 2 bad input."
+)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Simulate the scenario and print a summary; optionally write JSON, CSV and SVG reports.
+    #[command(
+        after_help = "Examples:\n  coilward-sim run valve.toml\n  coilward-sim run valve.toml --json out.json --csv out.csv --svg out.svg"
+    )]
+    Run {
+        /// Scenario file (TOML).
+        file: PathBuf,
+        /// Write the JSON report here.
+        #[arg(long, value_name = "PATH")]
+        json: Option<PathBuf>,
+        /// Write one CSV row per control period here.
+        #[arg(long, value_name = "PATH")]
+        csv: Option<PathBuf>,
+        /// Write the plot here (SVG).
+        #[arg(long, value_name = "PATH")]
+        svg: Option<PathBuf>,
+    },
+    /// Validate the scenario only and print the figures a designer would work out by hand.
+    #[command(after_help = "Example:\n  coilward-sim check examples/scenarios/relay-zener.toml")]
+    Check {
+        /// Scenario file (TOML).
+        file: PathBuf,
+    },
+    /// Monte Carlo over the scenario's [tolerance] spreads, in parallel.
+    #[command(
+        after_help = "Examples:\n  coilward-sim sweep valve.toml --samples 1000\n  coilward-sim sweep valve.toml --samples 100000 --seed 7 --shard 3/16 --json part3.json\n\nA sample is the same on every machine and shard: the shards' results together are the\nunsharded sweep's."
+    )]
+    Sweep {
+        /// Scenario file (TOML).
+        file: PathBuf,
+        /// Number of samples in the whole sweep.
+        #[arg(long)]
+        samples: u64,
+        /// Seed of the draws.
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+        /// Run only part K of N (samples with index mod N = K − 1).
+        #[arg(long, value_name = "K/N")]
+        shard: Option<String>,
+        /// Write every sample's outcome and the worst cases here (JSON).
+        #[arg(long, value_name = "PATH")]
+        json: Option<PathBuf>,
+    },
+}
+
+fn load(file: &Path) -> Result<Scenario, ExitCode> {
+    Scenario::load(file).map_err(|e| {
+        eprintln!("error: {e}");
+        ExitCode::from(2)
+    })
+}
+
+fn write_file(
+    path: &Path,
+    what: &str,
+    f: impl FnOnce(&Path) -> Result<(), String>,
+) -> Result<(), ExitCode> {
+    f(path).map_err(|e| {
+        eprintln!("error: cannot write the {what} to {}: {e}", path.display());
+        ExitCode::from(2)
+    })
+}
+
+fn run(
+    file: &Path,
+    json: Option<&Path>,
+    csv: Option<&Path>,
+    svg: Option<&Path>,
+) -> Result<ExitCode, ExitCode> {
+    let s = load(file)?;
+    let r = cosim::run(
+        &s,
+        Options {
+            rows: csv.is_some() || svg.is_some(),
+        },
     );
-    std::process::exit(2);
+    print!("{}", report::summary(&s, &r));
+    if let Some(p) = json {
+        write_file(p, "JSON report", |p| {
+            let text = serde_json::to_string_pretty(&report::json::report(&s, &r))
+                .map_err(|e| e.to_string())?;
+            std::fs::write(p, text + "\n").map_err(|e| e.to_string())
+        })?;
+    }
+    if let Some(p) = csv {
+        write_file(p, "CSV report", |p| {
+            let f = std::fs::File::create(p).map_err(|e| e.to_string())?;
+            report::csv::write(&r.rows, std::io::BufWriter::new(f)).map_err(|e| e.to_string())
+        })?;
+    }
+    if let Some(p) = svg {
+        write_file(p, "plot", |p| {
+            report::svg::write(&s, &r, p).map_err(|e| e.to_string())
+        })?;
+        println!("  plot: {}", p.display());
+    }
+    Ok(if r.passed() {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::from(1)
+    })
+}
+
+fn check(file: &Path) -> Result<ExitCode, ExitCode> {
+    let s = load(file)?;
+    let guard = s.guard().map_err(|e| {
+        eprintln!("error: {}", s.config_error(&e));
+        ExitCode::from(2)
+    })?;
+    let m = guard.model();
+    let d = m.derived();
+    let vs = coilward::Volts::saturating_from_num(s.beliefs.voltage);
+    let amps = |a: f32| m.current_from_amps(a);
+    println!("{} ({}): valid", s.name, s.file.display());
+    for a in &s.assumed {
+        println!("  assumed: {a}");
+    }
+    println!("\n  as the firmware believes the circuit (the guard's model):");
+    println!(
+        "  time constant, switch on        {}",
+        si(f64::from(d.tau_on), "s", 4)
+    );
+    println!(
+        "  time constant, freewheeling     {}",
+        si(f64::from(d.tau_off), "s", 4)
+    );
+    println!(
+        "  clamp path                      {} + {}",
+        si(f64::from(d.path_voltage), "V", 4),
+        si(f64::from(d.path_resistance), "Ω", 3)
+    );
+    let r_on = f64::from(d.resistance) + s.beliefs.on_resistance;
+    for (label, v) in [
+        ("minimum", s.beliefs.supply_min),
+        ("nominal", s.beliefs.voltage),
+        ("maximum", s.beliefs.supply_max),
+    ] {
+        println!(
+            "  steady current at 100 %, {label:<7} {} (at {})",
+            si(v / r_on, "A", 4),
+            si(v, "V", 3)
+        );
+    }
+    println!(
+        "  effective current ceiling       {}",
+        si(f64::from(m.amps(guard.ceiling())), "A", 4)
+    );
+    let trip = s.limits.trip_current;
+    let release = s.limits.release_current;
+    if let (Some(i_trip), Some(i_rel)) = (amps(trip), amps(release)) {
+        println!(
+            "\n  turning off at the trip current, {}:",
+            si(f64::from(trip), "A", 4)
+        );
+        match m.decay_time_us(i_trip, i_rel, vs) {
+            Some(us) => println!(
+                "  decay to the release current    {} (to {})",
+                si(f64::from(us) * 1e-6, "s", 4),
+                si(f64::from(release), "A", 3)
+            ),
+            None => {
+                println!("  decay to the release current    never (the path holds the current up)")
+            }
+        }
+        println!(
+            "  energy into the clamp path      {}",
+            si(f64::from(m.joules(m.turn_off_energy(i_trip, vs))), "J", 4)
+        );
+        println!(
+            "  switch-node peak                {}",
+            si(m.peak_drain_voltage(i_trip, vs).to_num::<f64>(), "V", 4)
+        );
+        if let Some(e) = s.limits.clamp_pulse_energy {
+            println!(
+                "  clamp pulse rating              {}",
+                si(f64::from(e), "J", 3)
+            );
+        }
+        let ceiling = guard.ceiling();
+        if let Some(us) = m.decay_time_us(ceiling, i_rel, vs) {
+            println!(
+                "  release interval from the ceiling {}",
+                si(f64::from(us) * 1e-6, "s", 4)
+            );
+        }
+    }
+    if !s.tolerance.is_empty() {
+        println!("\n  tolerance spreads (for sweep):");
+        for (k, sp) in &s.tolerance {
+            let (lo, hi) = sp.bounds(s.plant.get(*k));
+            println!(
+                "  {:<20} {} ..= {}",
+                k.name(),
+                si(lo, k.unit().symbol(), 4),
+                si(hi, k.unit().symbol(), 4)
+            );
+        }
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+fn sweep_cmd(
+    file: &Path,
+    samples: u64,
+    seed: u64,
+    shard: Option<&str>,
+    json: Option<&Path>,
+) -> Result<ExitCode, ExitCode> {
+    let s = load(file)?;
+    let shard = match shard {
+        Some(t) => Shard::parse(t).map_err(|e| {
+            eprintln!("error: --shard {e}");
+            ExitCode::from(2)
+        })?,
+        None => Shard::ALL,
+    };
+    if samples == 0 {
+        eprintln!("error: --samples must be at least 1");
+        return Err(ExitCode::from(2));
+    }
+    if s.tolerance.is_empty() {
+        eprintln!(
+            "error: {}: no [tolerance] section, so every sample would be the same; add spreads such as inductance = \"±20 %\"",
+            file.display()
+        );
+        return Err(ExitCode::from(2));
+    }
+    let mine = (0..samples).filter(|&i| shard.owns(i)).count() as u64;
+    let bar = ProgressBar::new(mine);
+    bar.set_style(
+        ProgressStyle::with_template("{bar:40} {pos}/{len} samples, {eta} left")
+            .unwrap_or_else(|_| ProgressStyle::default_bar()),
+    );
+    let t0 = std::time::Instant::now();
+    let results = sweep::run(&s, samples, seed, shard, || bar.inc(1));
+    bar.finish_and_clear();
+    let failed = results.iter().filter(|r| r.verdict == "fail").count();
+    println!(
+        "{} ({}): {} samples (shard {}/{} of {samples}, seed {seed}) in {:.2} s",
+        s.name,
+        s.file.display(),
+        results.len(),
+        shard.k,
+        shard.n,
+        t0.elapsed().as_secs_f64()
+    );
+    println!("  passed {}, failed {failed}", results.len() - failed);
+    let worst: Vec<(&str, Option<&sweep::Sample>, String)> = vec![
+        (
+            "peak current",
+            sweep::worst_by(&results, |x| x.peak_current_a),
+            "A".into(),
+        ),
+        (
+            "switch-node peak",
+            sweep::worst_by(&results, |x| x.peak_drain_voltage_v),
+            "V".into(),
+        ),
+        (
+            "clamp pulse",
+            sweep::worst_by(&results, |x| x.max_pulse_energy_j),
+            "J".into(),
+        ),
+        (
+            "decay time",
+            sweep::worst_by(&results, |x| x.longest_decay_s.unwrap_or(f64::INFINITY)),
+            "s".into(),
+        ),
+        (
+            "estimate error",
+            sweep::worst_by(&results, |x| x.max_estimate_error_a),
+            "A".into(),
+        ),
+    ];
+    println!("\n  worst cases:");
+    let mut worst_json = serde_json::Map::new();
+    for (what, w, unit) in &worst {
+        if let Some(w) = w {
+            let value = match *what {
+                "peak current" => w.peak_current_a,
+                "switch-node peak" => w.peak_drain_voltage_v,
+                "clamp pulse" => w.max_pulse_energy_j,
+                "decay time" => w.longest_decay_s.unwrap_or(f64::INFINITY),
+                _ => w.max_estimate_error_a,
+            };
+            let params: Vec<String> = w
+                .parameters
+                .iter()
+                .map(|(k, v)| format!("{k} {}", fmt_param(k, *v)))
+                .collect();
+            let shown = if value.is_finite() {
+                si(value, unit, 4)
+            } else {
+                "not reached".into()
+            };
+            println!(
+                "  {what:<17} {shown:>11}  sample {} ({}): {}",
+                w.index,
+                w.verdict,
+                params.join(", ")
+            );
+            worst_json.insert(what.replace([' ', '-'], "_"), serde_json::json!({"value": if value.is_finite() { Some(value) } else { None }, "sample": w.index}));
+        }
+    }
+    let mut kinds: Vec<&str> = results
+        .iter()
+        .flat_map(|r| r.findings.iter().copied())
+        .collect();
+    kinds.sort_unstable();
+    kinds.dedup();
+    if !kinds.is_empty() {
+        println!("\n  findings among the failed samples:");
+        for k in kinds {
+            println!(
+                "  {k:<26} {} samples",
+                results.iter().filter(|r| r.findings.contains(&k)).count()
+            );
+        }
+    }
+    if let Some(p) = json {
+        write_file(p, "JSON results", |p| {
+            let v = serde_json::json!({
+                "scenario": { "name": s.name, "file": s.file.display().to_string() },
+                "samples": samples, "seed": seed, "shard": format!("{}/{}", shard.k, shard.n),
+                "verdict": if failed == 0 { "pass" } else { "fail" },
+                "passed": results.len() - failed, "failed": failed,
+                "worst": worst_json,
+                "results": results,
+            });
+            std::fs::write(
+                p,
+                serde_json::to_string_pretty(&v).map_err(|e| e.to_string())? + "\n",
+            )
+            .map_err(|e| e.to_string())
+        })?;
+    }
+    Ok(if failed == 0 {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::from(1)
+    })
+}
+
+fn fmt_param(key: &str, v: f64) -> String {
+    let unit = coilward_sim::scenario::Knob::ALL
+        .iter()
+        .find(|k| k.name() == key)
+        .map_or("", |k| k.unit().symbol());
+    if unit == "°C" {
+        format!("{v:.1} °C")
+    } else {
+        si(v, unit, 4)
+    }
+}
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    let r = match &cli.command {
+        Command::Run {
+            file,
+            json,
+            csv,
+            svg,
+        } => run(file, json.as_deref(), csv.as_deref(), svg.as_deref()),
+        Command::Check { file } => check(file),
+        Command::Sweep {
+            file,
+            samples,
+            seed,
+            shard,
+            json,
+        } => sweep_cmd(file, *samples, *seed, shard.as_deref(), json.as_deref()),
+    };
+    r.unwrap_or_else(|code| code)
 }

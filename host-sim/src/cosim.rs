@@ -1,0 +1,468 @@
+//! Co-simulation: the real `coilward` guard at the control period against the [`crate::plant`].
+//!
+//! Each control period k (t_k = k·T):
+//! 1. the ADC reads the supply rail (the coil's supply terminal, after the source resistance) at
+//!    t_k — exact by default, or quantised with offset and seeded Gaussian noise;
+//! 2. the guard's `tick` is called with the drive's requested duty and that reading, exactly as
+//!    firmware calls it: it accounts for the period just ended and returns the duty to apply;
+//! 3. the switch is on for duty × T from t_k (edge-aligned PWM), then off until t_{k+1}; the
+//!    plant resolves every path change inside the period.
+//!
+//! The run begins one period before t = 0 with the switch off from the start state (a coil at
+//! rest, or carrying the start current), so the guard's first update accounts for a period the
+//! plant really had. Rows and events are reported from t = 0.
+
+use crate::plant::{Circuit, Plant, PlantError, State, Tally};
+use crate::scenario::Scenario;
+use coilward::{Condition, Conditions, Guard, Input, Volts};
+use rand::SeedableRng;
+use rand_distr::{Distribution, StandardNormal};
+use serde::Serialize;
+
+/// One control period, as the CSV report has it.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Row {
+    /// Start of the period, s.
+    pub t_s: f64,
+    /// Requested duty, 0 ..= 1.
+    pub duty_requested: f64,
+    /// Duty the guard applied, 0 ..= 1.
+    pub duty_applied: f64,
+    /// True supply rail at the start of the period, V.
+    pub supply_v: f64,
+    /// True coil current at the start of the period, A.
+    pub current_a: f64,
+    /// True mean current over the period, A.
+    pub mean_current_a: f64,
+    /// True peak current over the period, A.
+    pub peak_current_a: f64,
+    /// The guard's estimate of the current at the start of the period, A.
+    pub estimated_current_a: f64,
+    /// The guard's predicted peak for the period, A.
+    pub estimated_peak_a: f64,
+    /// Highest switch-node voltage in the period, V.
+    pub drain_peak_v: f64,
+    /// Active conditions (bit set; names via [`Conditions`]).
+    #[serde(skip)]
+    pub conditions: Conditions,
+    /// Supply as the guard read it, V.
+    pub supply_read_v: f64,
+    /// Energy taken by the clamp path and the switch in avalanche in the period, J.
+    pub clamp_energy_j: f64,
+}
+
+/// One turn-off: a drive step to duty 0, or the guard forcing the output off.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct TurnOff {
+    /// When the switch opened, s.
+    pub t_s: f64,
+    /// True current at that instant, A.
+    pub current_a: f64,
+    /// Time until the true current was below the release current, s (`None`: not reached
+    /// before the next turn-on or the end of the run).
+    pub decay_time_s: Option<f64>,
+    /// Energy absorbed by the clamp path and by the switch in avalanche until the next turn-on
+    /// or the end of the run, J.
+    pub clamp_energy_j: f64,
+    /// Of which the switch in avalanche, J.
+    pub avalanche_energy_j: f64,
+    /// Highest switch-node voltage after the opening, V.
+    pub peak_drain_voltage_v: f64,
+    /// Whether the guard forced it (the drive still requested a duty).
+    pub forced: bool,
+}
+
+/// A guard condition raised or cleared.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct EventRecord {
+    /// When, s.
+    pub t_s: f64,
+    /// The condition's stable name.
+    pub condition: &'static str,
+    /// What happened.
+    pub detail: String,
+}
+
+/// A limit the run exceeded, or an action the guard had to take.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Finding {
+    /// Stable identifier: `current-above-trip`, `clamp-pulse-above-rating`,
+    /// `avalanche-with-clamp`, `on-before-release`, `guard-acted`, `plant-stopped`.
+    pub kind: &'static str,
+    /// First time it happened, s.
+    pub t_s: f64,
+    /// Human-readable detail.
+    pub detail: String,
+}
+
+/// The guard's estimate against the true current.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Default)]
+pub struct EstimateError {
+    /// Largest |estimate − true| at the period starts, A.
+    pub max_abs_error_a: f64,
+    /// RMS of the same, A.
+    pub rms_error_a: f64,
+    /// Largest (estimate − true) shortfall, A: how far the guard underestimated at worst.
+    pub max_underestimate_a: f64,
+}
+
+/// What a run produced.
+#[derive(Debug, Clone, Default)]
+pub struct Run {
+    /// Per-period rows (empty unless recorded).
+    pub rows: Vec<Row>,
+    /// Turn-offs.
+    pub turn_offs: Vec<TurnOff>,
+    /// Guard events.
+    pub events: Vec<EventRecord>,
+    /// Limits exceeded and actions taken; empty means pass.
+    pub findings: Vec<Finding>,
+    /// True peak current over the run, A.
+    pub peak_current_a: f64,
+    /// True peak switch-node voltage over the run, V.
+    pub peak_drain_voltage_v: f64,
+    /// Largest single pulse into the clamp path: one PWM off-segment, or one whole turn-off, J.
+    pub max_pulse_energy_j: f64,
+    /// Total energy into the clamp path and avalanche, J.
+    pub clamp_energy_total_j: f64,
+    /// Estimate error.
+    pub estimate: EstimateError,
+    /// Periods simulated.
+    pub periods: u64,
+    /// Path changes resolved by the plant.
+    pub plant_events: u64,
+    /// Periods in which the applied duty differed from the request.
+    pub acted_periods: u64,
+}
+
+impl Run {
+    /// Whether the profile passed.
+    pub fn passed(&self) -> bool {
+        self.findings.is_empty()
+    }
+}
+
+/// Options of a run.
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct Options {
+    /// Keep one [`Row`] per period.
+    pub rows: bool,
+}
+
+/// The supply ADC.
+struct Adc {
+    cfg: crate::scenario::Adc,
+    rng: rand_chacha::ChaCha8Rng,
+}
+
+impl Adc {
+    fn read(&mut self, volts: f64) -> f64 {
+        let mut v = volts + self.cfg.offset;
+        if self.cfg.noise > 0.0 {
+            let n: f64 = StandardNormal.sample(&mut self.rng);
+            v += self.cfg.noise * n;
+        }
+        if let Some(bits) = self.cfg.bits {
+            let top = f64::from((1u32 << bits) - 1);
+            let code = (v / self.cfg.full_scale * top).round().clamp(0.0, top);
+            v = code * self.cfg.full_scale / top;
+        }
+        v.max(0.0)
+    }
+}
+
+/// Records the first pulse above the rating.
+fn pulse_over(out: &mut Run, rating: Option<f64>, pulse: f64, t: f64) {
+    if let Some(r) = rating
+        && pulse > r
+        && !out
+            .findings
+            .iter()
+            .any(|f| f.kind == "clamp-pulse-above-rating")
+    {
+        out.findings.push(Finding {
+            kind: "clamp-pulse-above-rating",
+            t_s: t,
+            detail: format!(
+                "one turn-off put {pulse:.4e} J into the clamp path (rating {r:.4e} J)"
+            ),
+        });
+    }
+}
+
+/// Runs a scenario with its own circuit.
+pub fn run(s: &Scenario, opts: Options) -> Run {
+    run_with(s, &s.plant.circuit(), opts)
+}
+
+/// Runs a scenario's guard, beliefs and drive against `circuit` (a sweep's sample).
+pub fn run_with(s: &Scenario, circuit: &Circuit, opts: Options) -> Run {
+    let mut out = Run::default();
+    let guard = match s.guard() {
+        Ok(g) => g,
+        Err(e) => {
+            out.findings.push(Finding {
+                kind: "plant-stopped",
+                t_s: 0.0,
+                detail: format!("guard refused: {e}"),
+            });
+            return out;
+        }
+    };
+    if let Err(e) = simulate(s, &guard, circuit, opts, &mut out) {
+        out.findings.push(Finding {
+            kind: "plant-stopped",
+            t_s: 0.0,
+            detail: e.to_string(),
+        });
+    }
+    out
+}
+
+fn simulate(
+    s: &Scenario,
+    guard: &Guard,
+    circuit: &Circuit,
+    opts: Options,
+    out: &mut Run,
+) -> Result<(), PlantError> {
+    let model = guard.model();
+    let t = s.period;
+    let res = f64::from(s.duty_resolution);
+    let release = f64::from(s.limits.release_current);
+    let trip = f64::from(s.limits.trip_current);
+    let rating = s.limits.clamp_pulse_energy.map(f64::from);
+    let has_clamp = s.plant.path != crate::scenario::PathName::None;
+
+    let start = State {
+        current: s.start.current,
+        node: if s.start.current > 0.0 {
+            0.0
+        } else {
+            circuit.supply
+        },
+    };
+    let mut plant = Plant::new(*circuit, start);
+    let mut gs = if !s.start.guard_told {
+        guard.start_after_reset()
+    } else {
+        match model.current_from_amps(s.start.current as f32) {
+            Some(c) if s.start.current > 0.0 => guard.start_with_current(c),
+            _ => guard.start_idle(),
+        }
+    };
+    let mut adc = Adc {
+        cfg: s.adc,
+        rng: rand_chacha::ChaCha8Rng::seed_from_u64(s.adc.seed),
+    };
+    let mut lead = Tally::starting(plant.state);
+    plant.run(false, t, &mut lead)?;
+
+    let n = (s.duration / t).round().max(1.0) as u64;
+    if opts.rows {
+        out.rows.reserve(usize::try_from(n).unwrap_or(0));
+    }
+    out.peak_current_a = plant.state.current;
+    out.peak_drain_voltage_v = plant.state.node;
+    let (mut sum_sq, mut count) = (0.0, 0u64);
+    let mut prev_applied = 0u32;
+    // The open turn-off: its record and whether its decay has been seen.
+    let mut open: Option<usize> = None;
+    // The last opening of the switch in PWM: (time, current, off-segment tally).
+    let mut last_open: Option<(f64, f64, Tally)> = None;
+    // Inside a release (after a turn-off record opened): whether the current has been below the
+    // release current since.
+    let mut releasing: Option<bool> = None;
+    for k in 0..n {
+        let tk = k as f64 * t;
+        let rail = plant.rail();
+        let read = adc.read(rail);
+        let duty_req = s.duty_in_period(k);
+        let counts = (duty_req * res).round() as u32;
+        let o = guard.tick(
+            &mut gs,
+            Input::new(counts, Volts::saturating_from_num(read)),
+        );
+        let est_now = f64::from(model.amps(o.estimate.end));
+        let err = est_now - plant.state.current;
+        out.estimate.max_abs_error_a = out.estimate.max_abs_error_a.max(err.abs());
+        out.estimate.max_underestimate_a = out.estimate.max_underestimate_a.max(-err);
+        sum_sq += err * err;
+        count += 1;
+        if o.duty != counts {
+            out.acted_periods += 1;
+            if out.acted_periods == 1 {
+                out.findings.push(Finding {
+                    kind: "guard-acted",
+                    t_s: tk,
+                    detail: format!(
+                        "applied {:.1} % where {:.1} % was requested ({})",
+                        f64::from(o.duty) / res * 100.0,
+                        duty_req * 100.0,
+                        o.active
+                    ),
+                });
+            }
+        }
+        for c in Condition::ALL {
+            let (raised, cleared) = (o.raised.contains(c), o.cleared.contains(c));
+            if raised || cleared {
+                let detail = if raised {
+                    let mut d = format!(
+                        "raised: estimate {est_now:.4} A, predicted peak {:.4} A",
+                        model.amps(o.predicted_peak)
+                    );
+                    if o.latched.contains(c) {
+                        d.push_str(", latched");
+                    }
+                    if let (Condition::ReleaseHold, Some(us)) = (c, o.release_in_us) {
+                        d.push_str(&format!(", release in {us} µs"));
+                    }
+                    d
+                } else {
+                    "cleared".to_string()
+                };
+                out.events.push(EventRecord {
+                    t_s: tk,
+                    condition: c.name(),
+                    detail,
+                });
+            }
+        }
+
+        let applied = o.duty.min(s.duty_resolution);
+        // A turn-off: the switch stays off this period after being on in the last one.
+        if applied == 0
+            && prev_applied > 0
+            && let Some((t_open, i_open, tally)) = last_open
+        {
+            out.turn_offs.push(TurnOff {
+                t_s: t_open,
+                current_a: i_open,
+                decay_time_s: tally.below_at.map(|x| x - t_open),
+                clamp_energy_j: tally.clamp_energy + tally.avalanche_energy,
+                avalanche_energy_j: tally.avalanche_energy,
+                peak_drain_voltage_v: tally.peak_node,
+                forced: counts > 0,
+            });
+            open = Some(out.turn_offs.len() - 1);
+            releasing = Some(tally.below_at.is_some());
+        }
+        if applied > 0 {
+            // Turning on again: before the freewheel current has decayed?
+            if releasing == Some(false)
+                && plant.state.current > release
+                && !out.findings.iter().any(|f| f.kind == "on-before-release")
+            {
+                out.findings.push(Finding {
+                    kind: "on-before-release",
+                    t_s: tk,
+                    detail: format!(
+                        "switched on with {:.4} A still flowing (release current {release} A)",
+                        plant.state.current
+                    ),
+                });
+            }
+            open = None;
+            releasing = None;
+        }
+        let i_start = plant.state.current;
+        let on_time = f64::from(applied) / res * t;
+        let mut on = Tally::starting(plant.state);
+        on.time_offset = tk;
+        if on_time > 0.0 {
+            plant.run(true, on_time, &mut on)?;
+        }
+        let t_open = tk + on_time;
+        let i_open = plant.state.current;
+        let mut off = Tally::starting(plant.state);
+        off.time_offset = t_open;
+        off.watch = Some(release);
+        if i_open <= release {
+            off.below_at = Some(t_open);
+        }
+        if on_time < t {
+            plant.run(false, t - on_time, &mut off)?;
+        }
+        if applied > 0 {
+            last_open = Some((t_open, i_open, off));
+        } else if let Some(idx) = open {
+            let r = &mut out.turn_offs[idx];
+            r.clamp_energy_j += off.clamp_energy + off.avalanche_energy;
+            r.avalanche_energy_j += off.avalanche_energy;
+            r.peak_drain_voltage_v = r.peak_drain_voltage_v.max(off.peak_node);
+            if r.decay_time_s.is_none() {
+                r.decay_time_s = off.below_at.map(|x| x - r.t_s);
+            }
+            if off.below_at.is_some() {
+                releasing = Some(true);
+            }
+        }
+        prev_applied = applied;
+
+        let pulse = off.clamp_energy + off.avalanche_energy;
+        out.max_pulse_energy_j = out.max_pulse_energy_j.max(pulse);
+        out.clamp_energy_total_j += pulse + on.clamp_energy + on.avalanche_energy;
+        let peak_i = on.peak_current.max(off.peak_current);
+        let peak_v = on.peak_node.max(off.peak_node);
+        out.peak_current_a = out.peak_current_a.max(peak_i);
+        out.peak_drain_voltage_v = out.peak_drain_voltage_v.max(peak_v);
+        out.plant_events += on.events + off.events;
+        if peak_i > trip && !out.findings.iter().any(|f| f.kind == "current-above-trip") {
+            out.findings.push(Finding {
+                kind: "current-above-trip",
+                t_s: tk,
+                detail: format!("true current reached {peak_i:.4} A (trip current {trip} A)"),
+            });
+        }
+        // A PWM period's off-segment is one pulse into the clamp; a release's pulse is the
+        // whole turn-off, checked below once it is complete.
+        if applied > 0 {
+            pulse_over(out, rating, pulse, t_open);
+        }
+        if has_clamp
+            && on.avalanche_time + off.avalanche_time > 0.0
+            && !out
+                .findings
+                .iter()
+                .any(|f| f.kind == "avalanche-with-clamp")
+        {
+            out.findings.push(Finding {
+                kind: "avalanche-with-clamp",
+                t_s: t_open,
+                detail: format!(
+                    "the switch avalanched at {:.1} V although a clamp path is fitted",
+                    circuit.breakdown
+                ),
+            });
+        }
+        if opts.rows {
+            out.rows.push(Row {
+                t_s: tk,
+                duty_requested: duty_req,
+                duty_applied: f64::from(applied) / res,
+                supply_v: rail,
+                current_a: i_start,
+                mean_current_a: (on.charge + off.charge) / t,
+                peak_current_a: peak_i,
+                estimated_current_a: est_now,
+                estimated_peak_a: f64::from(model.amps(o.predicted_peak)),
+                drain_peak_v: peak_v,
+                conditions: o.active,
+                supply_read_v: read,
+                clamp_energy_j: pulse + on.clamp_energy + on.avalanche_energy,
+            });
+        }
+        out.periods += 1;
+    }
+    for i in 0..out.turn_offs.len() {
+        let t = out.turn_offs[i];
+        out.max_pulse_energy_j = out.max_pulse_energy_j.max(t.clamp_energy_j);
+        pulse_over(out, rating, t.clamp_energy_j, t.t_s);
+    }
+    if count > 0 {
+        out.estimate.rms_error_a = (sum_sq / count as f64).sqrt();
+    }
+    out.findings.sort_by(|a, b| a.t_s.total_cmp(&b.t_s));
+    Ok(())
+}

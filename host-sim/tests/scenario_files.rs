@@ -1,0 +1,252 @@
+//! Scenario files: the schema's keys, its errors (file, line, key), and the command line's exit
+//! statuses. The demo scenarios in examples/scenarios/ must load and behave as their comments
+//! say.
+
+use coilward_sim::scenario::Scenario;
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+fn demo(name: &str) -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("../examples/scenarios")
+        .join(name)
+}
+
+fn valve_text() -> String {
+    std::fs::read_to_string(demo("irrigation-valve.toml")).unwrap()
+}
+
+fn refuse(text: &str) -> coilward_sim::scenario::ScenarioError {
+    Scenario::parse(Path::new("case.toml"), text).expect_err("must be refused")
+}
+
+fn line_of(text: &str, needle: &str) -> usize {
+    text.lines()
+        .position(|l| l.contains(needle))
+        .expect("needle in text")
+        + 1
+}
+
+#[test]
+fn every_demo_scenario_loads() {
+    for entry in std::fs::read_dir(demo("")).unwrap() {
+        let p = entry.unwrap().path();
+        if p.extension().is_some_and(|e| e == "toml") {
+            Scenario::load(&p).unwrap_or_else(|e| panic!("{e}"));
+        }
+    }
+}
+
+#[test]
+fn a_value_without_its_unit_names_file_line_and_key() {
+    let text = valve_text().replace("voltage = \"24 V\"", "voltage = \"24\"");
+    let e = refuse(&text);
+    let msg = e.to_string();
+    assert_eq!(e.key.as_deref(), Some("supply.voltage"), "{msg}");
+    assert_eq!(e.at.unwrap().0, line_of(&text, "voltage = \"24\""), "{msg}");
+    assert!(
+        msg.starts_with("case.toml:") && msg.contains("no unit"),
+        "{msg}"
+    );
+}
+
+#[test]
+fn the_wrong_unit_is_refused() {
+    let text = valve_text().replace("inductance = \"40 mH\"", "inductance = \"40 mA\"");
+    let e = refuse(&text);
+    assert_eq!(e.key.as_deref(), Some("coil.inductance"));
+    assert!(e.message.contains("expected a value in H"), "{e}");
+}
+
+#[test]
+fn an_unknown_key_names_its_line() {
+    let text = valve_text().replace("inductance = \"40 mH\"", "inductanse = \"40 mH\"");
+    let e = refuse(&text);
+    assert_eq!(e.at.unwrap().0, line_of(&text, "inductanse"), "{e}");
+    assert!(e.message.contains("inductanse"), "{e}");
+    let text = valve_text() + "\n[tolerance.extra]\n";
+    let e = refuse(&text);
+    assert_eq!(e.at.unwrap().0, line_of(&text, "[tolerance.extra]"));
+    assert!(e.to_string().contains("[tolerance.extra]"), "{e}");
+}
+
+#[test]
+fn a_parameter_the_library_refuses_is_blamed_on_its_key() {
+    // The switch must block the maximum supply: a 25 V breakdown under a 28 V maximum.
+    let text = valve_text().replace("breakdown = \"60 V\"", "breakdown = \"25 V\"");
+    let e = refuse(&text);
+    assert_eq!(e.key.as_deref(), Some("switch.breakdown"), "{e}");
+    assert_eq!(e.at.unwrap().0, line_of(&text, "breakdown = \"25 V\""));
+    assert!(e.message.contains("refused by the library"), "{e}");
+    // A release current at or above the trip current.
+    let text = valve_text().replace("release_current = \"50 mA\"", "release_current = \"2 A\"");
+    assert_eq!(refuse(&text).key.as_deref(), Some("guard.release_current"));
+}
+
+#[test]
+fn a_model_override_that_the_library_refuses_is_blamed_on_the_model_key() {
+    let text = valve_text() + "\n[model]\ninductance = \"-4 mH\"\n";
+    let e = refuse(&text);
+    assert_eq!(e.key.as_deref(), Some("model.inductance"), "{e}");
+    assert_eq!(e.at.unwrap().0, line_of(&text, "\"-4 mH\""));
+}
+
+#[test]
+fn clamp_keys_must_fit_the_path() {
+    let text = valve_text().replace("path = \"freewheel\"", "path = \"switch-clamp\"");
+    let e = refuse(&text);
+    assert!(e.message.contains("does not apply"), "{e}");
+    let text = valve_text().replace("forward_voltage = \"0.7 V\"", "");
+    assert_eq!(refuse(&text).key.as_deref(), Some("clamp.forward_voltage"));
+}
+
+#[test]
+fn drive_steps_in_order_and_duty_in_range() {
+    let text = valve_text().replace("at = \"140 ms\"", "at = \"100 ms\"");
+    assert_eq!(refuse(&text).key.as_deref(), Some("drive[3].at"));
+    let text = valve_text().replace("duty = \"35 %\"", "duty = \"135 %\"");
+    assert_eq!(refuse(&text).key.as_deref(), Some("drive[1].duty"));
+}
+
+#[test]
+fn drive_steps_start_on_their_period() {
+    let s = Scenario::load(&demo("irrigation-valve.toml")).unwrap();
+    // 15 ms / 50 µs = period 300 exactly; the step must not slip to 301 by rounding.
+    assert_eq!(s.step_period(0.015), 300);
+    assert!((s.duty_in_period(299) - 1.0).abs() < 1e-12);
+    assert!((s.duty_in_period(300) - 0.35).abs() < 1e-12);
+}
+
+fn sim() -> Command {
+    Command::new(env!("CARGO_BIN_EXE_coilward-sim"))
+}
+
+#[test]
+fn exit_status_pass_fail_bad_input() {
+    let ok = sim()
+        .args(["run"])
+        .arg(demo("irrigation-valve.toml"))
+        .output()
+        .unwrap();
+    assert_eq!(
+        ok.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&ok.stdout)
+    );
+    assert!(String::from_utf8_lossy(&ok.stdout).contains("verdict: PASS"));
+    let acted = sim()
+        .args(["run"])
+        .arg(demo("unclamped-avalanche.toml"))
+        .output()
+        .unwrap();
+    assert_eq!(acted.status.code(), Some(1));
+    let dir = tempfile::tempdir().unwrap();
+    let bad = dir.path().join("bad.toml");
+    std::fs::write(&bad, valve_text().replace("\"24 V\"", "\"24\"")).unwrap();
+    let out = sim().arg("run").arg(&bad).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("bad.toml:") && err.contains("supply.voltage"),
+        "{err}"
+    );
+    let check = sim()
+        .arg("check")
+        .arg(demo("relay-zener.toml"))
+        .output()
+        .unwrap();
+    assert_eq!(check.status.code(), Some(0));
+    assert!(String::from_utf8_lossy(&check.stdout).contains("decay to the release current"));
+    for cmd in ["run", "check", "sweep"] {
+        let help = sim().args([cmd, "--help"]).output().unwrap();
+        assert_eq!(help.status.code(), Some(0));
+        assert!(
+            String::from_utf8_lossy(&help.stdout).contains("Example"),
+            "{cmd} --help has examples"
+        );
+    }
+}
+
+#[test]
+fn reports_keep_their_contract() {
+    let dir = tempfile::tempdir().unwrap();
+    let (j, c, s) = (
+        dir.path().join("r.json"),
+        dir.path().join("r.csv"),
+        dir.path().join("r.svg"),
+    );
+    let out = sim()
+        .arg("run")
+        .arg(demo("relay-zener.toml"))
+        .arg("--json")
+        .arg(&j)
+        .arg("--csv")
+        .arg(&c)
+        .arg("--svg")
+        .arg(&s)
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(0));
+    let v: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&j).unwrap()).unwrap();
+    assert_eq!(v["verdict"], "pass");
+    for key in [
+        "peak_current_a",
+        "peak_drain_voltage_v",
+        "turn_offs",
+        "events",
+        "estimate",
+    ] {
+        assert!(!v[key].is_null(), "{key}");
+    }
+    let t = &v["turn_offs"][0];
+    for key in [
+        "t_s",
+        "current_a",
+        "decay_time_s",
+        "clamp_energy_j",
+        "peak_drain_voltage_v",
+    ] {
+        assert!(t.get(key).is_some(), "turn_offs[].{key}");
+    }
+    assert!(v["estimate"]["max_abs_error_a"].is_f64() && v["estimate"]["rms_error_a"].is_f64());
+    let csv = std::fs::read_to_string(&c).unwrap();
+    let header = csv.lines().next().unwrap();
+    assert!(header.starts_with(
+        "t_s,duty_requested,duty_applied,supply_v,current_a,mean_current_a,peak_current_a,\
+         estimated_current_a,estimated_peak_a,drain_peak_v,conditions"
+    ));
+    assert_eq!(
+        csv.lines().count(),
+        1 + 1300,
+        "a header and one row per period"
+    );
+    let svg = std::fs::read_to_string(&s).unwrap();
+    assert!(svg.starts_with("<svg") && svg.contains("estimate") && svg.contains("verdict: pass"));
+}
+
+#[test]
+fn sweep_shards_reassemble_the_whole_sweep() {
+    let s = Scenario::load(&demo("relay-zener.toml")).unwrap();
+    use coilward_sim::sweep::{self, Shard};
+    let whole = sweep::run(&s, 12, 9, Shard::ALL, || {});
+    let mut parts = Vec::new();
+    for k in 1..=3 {
+        parts.extend(sweep::run(&s, 12, 9, Shard { k, n: 3 }, || {}));
+    }
+    parts.sort_by_key(|x| x.index);
+    assert_eq!(whole.len(), 12);
+    for (a, b) in whole.iter().zip(&parts) {
+        assert_eq!(a.index, b.index);
+        assert_eq!(a.peak_current_a.to_bits(), b.peak_current_a.to_bits());
+        assert_eq!(a.parameters, b.parameters);
+    }
+    // Draws stay inside the spreads.
+    for x in &whole {
+        for (k, v) in &x.parameters {
+            let (knob, spread) = s.tolerance.iter().find(|(kn, _)| kn.name() == *k).unwrap();
+            let (lo, hi) = spread.bounds(s.plant.get(*knob));
+            assert!(*v >= lo && *v <= hi, "{k} {v} outside {lo} ..= {hi}");
+        }
+    }
+}
