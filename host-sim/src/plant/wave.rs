@@ -43,6 +43,9 @@ fn phi(mu: C, t: f64) -> C {
 impl Wave {
     /// g(t).
     pub fn at(&self, t: f64) -> f64 {
+        if t == 0.0 {
+            return self.alpha + self.z[0].re + self.z[1].re;
+        }
         if self.terms == 2 {
             // Real modes: no complex exponential (its sine and cosine would be wasted).
             return self.alpha
@@ -317,6 +320,13 @@ impl Solution {
     /// x(t).
     pub fn at(&self, t: f64) -> [f64; 2] {
         let mut x = self.xp;
+        if t == 0.0 {
+            for z in &self.z[..self.terms] {
+                x[0] += z[0].re;
+                x[1] += z[1].re;
+            }
+            return x;
+        }
         if self.terms == 2 {
             for k in 0..2 {
                 let e = (self.mu[k].re * t).exp();
