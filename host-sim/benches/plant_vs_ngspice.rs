@@ -1,1 +1,104 @@
-fn main() {}
+//! Wall time of the plant against ngspice for 1 s of 20 kHz PWM on the demo valve circuit
+//! (24 V, 40 mH, 18 Ω, diode freewheel, 470 pF at the node), at the agreement the cross-check
+//! tests require (2 % on currents, decay time and energy; 3 % on the node peak) — the bench
+//! checks that agreement on the very runs it times. Then the sweep goal: 1000 samples of the
+//! 200 ms irrigation-valve scenario, all cores.
+//!
+//! Run: `cargo bench -p coilward-sim --bench plant_vs_ngspice` (ngspice from Debian's package).
+//! A benchmark, not a test: the figures go to the README by hand.
+
+use coilward_sim::plant::{Circuit, ClampKind};
+use coilward_sim::scenario::Scenario;
+use coilward_sim::spice::{self, Case};
+use coilward_sim::sweep::{self, Shard};
+use std::time::Instant;
+
+fn valve() -> Circuit {
+    Circuit {
+        supply: 24.0,
+        source_resistance: 0.2,
+        inductance: 0.040,
+        saturation: None,
+        resistance: 18.0,
+        on_resistance: 0.1,
+        capacitance: 470e-12,
+        breakdown: 60.0,
+        avalanche_resistance: 0.0,
+        body_diode_drop: 0.8,
+        clamp: ClampKind::Freewheel {
+            drop: 0.7,
+            resistance: 0.05,
+        },
+    }
+}
+
+fn agree(what: &str, got: f64, want: f64, tol: f64) -> bool {
+    let rel = (got - want).abs() / want.abs();
+    println!(
+        "  {what:<18} plant {got:.6e}  ngspice {want:.6e}  ({:.3} %, limit {:.0} %)",
+        rel * 100.0,
+        tol * 100.0
+    );
+    rel <= tol
+}
+
+fn main() {
+    let case = Case {
+        name: "bench-valve-1s",
+        c: valve(),
+        period: 50e-6,
+        on: 17.5e-6,
+        periods: 20_000,
+        rest: 10e-3,
+        release: 0.05,
+    };
+    // The plant: best of five.
+    let mut best = f64::INFINITY;
+    let mut m = None;
+    for _ in 0..5 {
+        let t0 = Instant::now();
+        m = Some(spice::plant(&case).expect("plant runs"));
+        best = best.min(t0.elapsed().as_secs_f64());
+    }
+    let (ipk, imean, tdec, energy, vpk) = m.unwrap();
+    let t0 = Instant::now();
+    let ng = spice::ngspice(case.name, &spice::netlist(&case)).expect("ngspice runs");
+    let t_ng = t0.elapsed().as_secs_f64();
+    println!("1 s of 20 kHz PWM (35 %) on the valve circuit, then the release:");
+    let mut ok = agree("peak current", ipk, ng["ipk"], 0.02);
+    ok &= agree("mean current", imean, ng["imean"], 0.02);
+    ok &= agree(
+        "decay time",
+        tdec.expect("decays") - case.t_off(),
+        ng["tdec"],
+        0.02,
+    );
+    ok &= agree("clamp energy", energy, ng["ecl"] + ng["eav"], 0.02);
+    ok &= agree("node peak", vpk, ng["vpk"], 0.03);
+    println!(
+        "  plant   {:.4} s (best of 5; the plant run twice: the measured run and the mean-current probe)",
+        best
+    );
+    println!("  ngspice {t_ng:.2} s");
+    println!(
+        "  ratio   {:.0}× {}",
+        t_ng / best,
+        if ok {
+            "at the required agreement"
+        } else {
+            "BUT OUTSIDE THE REQUIRED AGREEMENT"
+        }
+    );
+
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("../examples/scenarios/irrigation-valve.toml");
+    let s = Scenario::load(&path).expect("demo scenario");
+    let t0 = Instant::now();
+    let r = sweep::run(&s, 1000, 1, Shard::ALL, || {});
+    let t = t0.elapsed().as_secs_f64();
+    println!(
+        "sweep: 1000 samples of the 200 ms irrigation-valve scenario (guard + plant) on {} threads: {t:.2} s (goal: under 10 s); {} failed",
+        rayon::current_num_threads(),
+        r.iter().filter(|x| x.verdict == "fail").count()
+    );
+}

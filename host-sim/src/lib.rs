@@ -9,5 +9,6 @@ pub mod cosim;
 pub mod plant;
 pub mod report;
 pub mod scenario;
+pub mod spice;
 pub mod sweep;
 pub mod units;
