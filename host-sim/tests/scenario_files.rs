@@ -250,3 +250,20 @@ fn sweep_shards_reassemble_the_whole_sweep() {
         }
     }
 }
+
+#[test]
+fn sweep_samples_never_stop_the_plant() {
+    // Regression: sample 0 of seed 1 put the node exactly on the freewheel diode's threshold at
+    // a turn-off and the two modes disagreed on the sign by one rounding, toggling the diode
+    // 100 000 times at one instant.
+    let s = Scenario::load(&demo("irrigation-valve.toml")).unwrap();
+    let r = coilward_sim::sweep::run(&s, 48, 1, coilward_sim::sweep::Shard::ALL, || {});
+    for x in &r {
+        assert!(
+            !x.findings.contains(&"plant-stopped"),
+            "sample {}: {:?}",
+            x.index,
+            x.findings
+        );
+    }
+}

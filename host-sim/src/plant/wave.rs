@@ -22,6 +22,11 @@ use num_complex::Complex64 as C;
 #[derive(Debug, Clone, Copy)]
 pub struct Wave {
     alpha: f64,
+    /// g(0), evaluated directly from the segment's starting state (c·x0 + d) rather than
+    /// through the modal sum: every mode then agrees exactly on the sign of a conduction
+    /// function at the instant a segment starts, so a part sitting on its threshold cannot
+    /// toggle back and forth at one instant.
+    start: f64,
     z: [C; 2],
     mu: [C; 2],
     /// Number of terms: 2 for real eigenvalues, 1 for a complex pair.
@@ -44,7 +49,7 @@ impl Wave {
     /// g(t).
     pub fn at(&self, t: f64) -> f64 {
         if t == 0.0 {
-            return self.alpha + self.z[0].re + self.z[1].re;
+            return self.start;
         }
         if self.terms == 2 {
             // Real modes: no complex exponential (its sine and cosine would be wasted).
@@ -228,6 +233,7 @@ impl Wave {
 /// The solution of x′ = A·x + b from x(0) = x0.
 #[derive(Debug, Clone, Copy)]
 pub struct Solution {
+    x0: [f64; 2],
     xp: [f64; 2],
     z: [[C; 2]; 2],
     mu: [C; 2],
@@ -286,6 +292,7 @@ impl Solution {
                 C::new(half * dx[1] - ad[1] / gap, 0.0),
             ];
             Ok(Self {
+                x0,
                 xp,
                 z: [z1, z2],
                 mu: [C::new(l1, 0.0), C::new(l2, 0.0)],
@@ -295,6 +302,7 @@ impl Solution {
             let w = (-disc).sqrt();
             let z = [C::new(dx[0], -ad[0] / w), C::new(dx[1], -ad[1] / w)];
             Ok(Self {
+                x0,
                 xp,
                 z: [z, [C::new(0.0, 0.0); 2]],
                 mu: [C::new(m, w), C::new(0.0, 0.0)],
@@ -311,6 +319,7 @@ impl Solution {
         }
         Wave {
             alpha: c[0] * self.xp[0] + c[1] * self.xp[1] + d,
+            start: c[0] * self.x0[0] + c[1] * self.x0[1] + d,
             z,
             mu: self.mu,
             terms: self.terms,
@@ -319,14 +328,10 @@ impl Solution {
 
     /// x(t).
     pub fn at(&self, t: f64) -> [f64; 2] {
-        let mut x = self.xp;
         if t == 0.0 {
-            for z in &self.z[..self.terms] {
-                x[0] += z[0].re;
-                x[1] += z[1].re;
-            }
-            return x;
+            return self.x0;
         }
+        let mut x = self.xp;
         if self.terms == 2 {
             for k in 0..2 {
                 let e = (self.mu[k].re * t).exp();
