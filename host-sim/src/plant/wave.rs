@@ -120,6 +120,15 @@ impl Wave {
         if ga > 0.0 {
             return Some(0.0);
         }
+        // Every mode decays (Re μ ≤ 0), so |g − α| ≤ Σ|z_k|: a wave that cannot reach zero
+        // needs no search (|re| + |im| bounds |z| without a square root).
+        let reach: f64 = self.z[..self.terms]
+            .iter()
+            .map(|z| z.re.abs() + z.im.abs())
+            .sum();
+        if self.alpha + reach <= 0.0 && self.mu[..self.terms].iter().all(|m| m.re <= 0.0) {
+            return None;
+        }
         let mut tp = [0.0; 64];
         let n = self.turning_points(t_end, &mut tp);
         for &b in tp[..n].iter().chain(core::iter::once(&t_end)) {
@@ -153,10 +162,16 @@ impl Wave {
     }
 
     /// Narrows a bracket with g(a) ≤ 0 < g(b) on a monotonic stretch by Newton steps kept
-    /// inside the bracket (bisection whenever a step would leave it or not shrink it by half);
+    /// inside the bracket (bisection — geometric across decades — whenever a step would leave it
+    /// or not shrink it by half);
     /// returns a point where g > 0 within a relative 10⁻¹³ (or 10⁻¹⁸ s) of the crossing.
     fn bracket(&self, mut a: f64, _ga: f64, mut b: f64, _gb: f64) -> f64 {
-        let mut t = 0.5 * (a + b);
+        let lo = if a > 0.0 { a } else { b * 1e-20 };
+        let mut t = if b > 8.0 * lo {
+            (lo * b).sqrt()
+        } else {
+            0.5 * (a + b)
+        };
         let mut last_width = f64::INFINITY;
         for _ in 0..200 {
             let width = b - a;
@@ -175,7 +190,14 @@ impl Wave {
             t = if newton > a && newton < b && shrinking {
                 newton
             } else {
-                0.5 * (a + b)
+                // Bisect in log t while the bracket spans decades (a stiff mode's crossing can
+                // sit picoseconds into a segment of microseconds), else in t.
+                let lo = if a > 0.0 { a } else { b * 1e-20 };
+                if b > 8.0 * lo {
+                    (lo * b).sqrt()
+                } else {
+                    0.5 * (a + b)
+                }
             };
             // Once Newton has landed within the tolerance, probe just past it so the bracket
             // closes from both sides.
