@@ -66,5 +66,35 @@ for ex in demo_coil valve relay; do
     cargo run --quiet --example "$ex" >/dev/null
 done
 
+step "simulator: the demo scenarios, their reports, a sweep"
+cargo build --quiet --release -p coilward-sim
+SIM=target/release/coilward-sim
+OUT=$(mktemp -d)
+trap 'rm -rf "$OUT"' EXIT
+expect() { # expect STATUS COMMAND...: the command must exit with STATUS
+    local want=$1 got=0
+    shift
+    "$@" >"$OUT/last.txt" 2>&1 || got=$?
+    if [ "$got" -ne "$want" ]; then
+        cat "$OUT/last.txt"
+        echo "expected exit status $want from: $*, got $got" >&2
+        exit 1
+    fi
+}
+for f in examples/scenarios/*.toml; do
+    expect 0 "$SIM" check "$f"
+done
+# The README's main command: the valve passes and its plot is written.
+expect 0 "$SIM" run examples/scenarios/irrigation-valve.toml --svg "$OUT/valve.svg" \
+    --json "$OUT/valve.json" --csv "$OUT/valve.csv"
+test -s "$OUT/valve.svg" && test -s "$OUT/valve.json" && test -s "$OUT/valve.csv"
+expect 0 "$SIM" run examples/scenarios/relay-zener.toml
+# Nothing across the coil: the guard has to cut the current, so the verdict is fail.
+expect 1 "$SIM" run examples/scenarios/unclamped-avalanche.toml
+expect 0 "$SIM" sweep examples/scenarios/relay-zener.toml --samples 200 --json "$OUT/sweep.json"
+
+step "simulator against ngspice: wall time for 1 s of 20 kHz PWM, and the sweep goal"
+cargo bench --quiet -p coilward-sim --bench plant_vs_ngspice
+
 echo
 echo "all checks passed"
