@@ -109,12 +109,14 @@ fn run(
                 .map_err(|e| e.to_string())?;
             std::fs::write(p, text + "\n").map_err(|e| e.to_string())
         })?;
+        println!("  json: {}", p.display());
     }
     if let Some(p) = csv {
         write_file(p, "CSV report", |p| {
             let f = std::fs::File::create(p).map_err(|e| e.to_string())?;
             report::csv::write(&r.rows, std::io::BufWriter::new(f)).map_err(|e| e.to_string())
         })?;
+        println!("  csv: {}", p.display());
     }
     if let Some(p) = svg {
         write_file(p, "plot", |p| {
@@ -159,12 +161,12 @@ fn check(file: &Path) -> Result<ExitCode, ExitCode> {
     );
     let r_on = f64::from(d.resistance) + s.beliefs.on_resistance;
     for (label, v) in [
-        ("minimum", s.beliefs.supply_min),
+        ("min", s.beliefs.supply_min),
         ("nominal", s.beliefs.voltage),
-        ("maximum", s.beliefs.supply_max),
+        ("max", s.beliefs.supply_max),
     ] {
         println!(
-            "  steady current at 100 %, {label:<7} {} (at {})",
+            "  steady current, 100 %, {label:<8} {} (at {})",
             si(v / r_on, "A", 4),
             si(v, "V", 3)
         );
@@ -207,7 +209,7 @@ fn check(file: &Path) -> Result<ExitCode, ExitCode> {
         let ceiling = guard.ceiling();
         if let Some(us) = m.decay_time_us(ceiling, i_rel, vs) {
             println!(
-                "  release interval from the ceiling {}",
+                "  release from the ceiling        {}",
                 si(f64::from(us) * 1e-6, "s", 4)
             );
         }
