@@ -5,7 +5,9 @@
 //! exact piecewise-linear [`plant`] and produces a [`cosim::Run`], which [`report`] turns into
 //! a terminal summary, JSON, CSV and an SVG plot; [`sweep`] repeats it over tolerances.
 
+pub mod capture;
 pub mod cosim;
+pub mod fit;
 pub mod plant;
 pub mod report;
 pub mod scenario;

@@ -17,7 +17,7 @@ use std::process::ExitCode;
     name = "coilward-sim",
     version,
     about = "Run the coilward guard against a detailed circuit model of an inductive load",
-    after_help = "Examples:\n  coilward-sim check examples/scenarios/irrigation-valve.toml\n  coilward-sim run examples/scenarios/irrigation-valve.toml --svg valve.svg\n  coilward-sim sweep examples/scenarios/irrigation-valve.toml --samples 1000\n\nExit status: 0 pass, 1 a limit was exceeded or the guard had to act, 2 bad input."
+    after_help = "Examples:\n  coilward-sim check examples/scenarios/irrigation-valve.toml\n  coilward-sim run examples/scenarios/irrigation-valve.toml --svg valve.svg\n  coilward-sim sweep examples/scenarios/irrigation-valve.toml --samples 1000\n  coilward-sim fit examples/captures/valve-pull-in.csv --supply \"24 V\" --on-resistance \"0.1 Ω\"\n\nExit status: 0 pass, 1 a limit was exceeded or the guard had to act, 2 bad input."
 )]
 struct Cli {
     #[command(subcommand)]
@@ -68,6 +68,35 @@ enum Command {
         /// Write every sample's outcome and the worst cases here (JSON).
         #[arg(long, value_name = "PATH")]
         json: Option<PathBuf>,
+    },
+    /// Fit a coil's inductance and resistance to a captured current trace (CSV).
+    #[command(
+        after_help = "Examples:\n  coilward-sim fit examples/captures/valve-pull-in.csv --supply \"24 V\" --on-resistance \"0.1 Ω\"\n  coilward-sim fit scope.csv --supply \"12 V\" --column t=Time,i=CH2 --units t=s,i=V --shunt \"0.1 Ω\" --svg fit.svg\n\nThe capture must start before the switch-on (or switch-off) edge. Exit status: 0 a trustworthy\nfit, 1 the capture cannot give one (the message says why), 2 bad input."
+    )]
+    Fit {
+        /// Capture file (CSV; comma, semicolon or tab separated).
+        file: PathBuf,
+        /// Supply across the coil and its series parts while on, e.g. "24 V".
+        #[arg(long)]
+        supply: String,
+        /// Everything in series with the winding while on (switch, shunt, wiring), e.g. "0.1 Ω".
+        #[arg(long, default_value = "0 Ω")]
+        on_resistance: String,
+        /// Which columns: t=NAME,i=NAME (header names or 1-based numbers).
+        #[arg(long, value_name = "t=NAME,i=NAME")]
+        column: Option<String>,
+        /// Units when the header has none: t=UNIT,i=UNIT (e.g. t=ms,i=mA; i=V with --shunt).
+        #[arg(long, value_name = "t=UNIT,i=UNIT")]
+        units: Option<String>,
+        /// The shunt the current column was measured across, when it is a voltage.
+        #[arg(long)]
+        shunt: Option<String>,
+        /// The inductance, for a capture of a switch-off alone (to get the path's drop).
+        #[arg(long)]
+        inductance: Option<String>,
+        /// Write the plot (capture, fit, residual) here (SVG).
+        #[arg(long, value_name = "PATH")]
+        svg: Option<PathBuf>,
     },
 }
 
@@ -371,6 +400,88 @@ fn sweep_cmd(
     })
 }
 
+/// `t=A,i=B` into its two parts.
+fn pair(text: &str, option: &str) -> Result<(Option<String>, Option<String>), ExitCode> {
+    let (mut t, mut i) = (None, None);
+    for part in text.split(',') {
+        match part.split_once('=') {
+            Some(("t", v)) => t = Some(v.trim().to_string()),
+            Some(("i", v)) => i = Some(v.trim().to_string()),
+            _ => {
+                eprintln!("error: {option} `{text}`: write it as t=...,i=...");
+                return Err(ExitCode::from(2));
+            }
+        }
+    }
+    Ok((t, i))
+}
+
+fn quantity(text: &str, unit: coilward_sim::units::Unit, option: &str) -> Result<f64, ExitCode> {
+    coilward_sim::units::parse(text, unit).map_err(|e| {
+        eprintln!("error: {option}: {e}");
+        ExitCode::from(2)
+    })
+}
+
+#[allow(clippy::too_many_arguments)]
+fn fit_cmd(
+    file: &Path,
+    supply: &str,
+    on_resistance: &str,
+    column: Option<&str>,
+    units: Option<&str>,
+    shunt: Option<&str>,
+    inductance: Option<&str>,
+    svg: Option<&Path>,
+) -> Result<ExitCode, ExitCode> {
+    use coilward_sim::units::Unit;
+    let supply = quantity(supply, Unit::Volt, "--supply")?;
+    let series = quantity(on_resistance, Unit::Ohm, "--on-resistance")?;
+    let (time_column, current_column) = column
+        .map(|c| pair(c, "--column"))
+        .transpose()?
+        .unwrap_or_default();
+    let (time_unit, current_unit) = units
+        .map(|c| pair(c, "--units"))
+        .transpose()?
+        .unwrap_or_default();
+    let opts = coilward_sim::capture::ReadOptions {
+        time_column,
+        current_column,
+        time_unit,
+        current_unit,
+        shunt: shunt
+            .map(|s| quantity(s, Unit::Ohm, "--shunt"))
+            .transpose()?,
+    };
+    let capture = coilward_sim::capture::Capture::read(file, &opts).map_err(|e| {
+        eprintln!("error: {e}");
+        ExitCode::from(2)
+    })?;
+    let fo = coilward_sim::fit::FitOptions {
+        supply,
+        series_resistance: series,
+        inductance: inductance
+            .map(|l| quantity(l, Unit::Henry, "--inductance"))
+            .transpose()?,
+    };
+    let fitted = coilward_sim::fit::fit(&capture, &fo);
+    print!("{}", report::fit::summary(&capture, &fo, &fitted));
+    if let Some(p) = svg {
+        write_file(p, "plot", |p| {
+            report::fit::svg(&capture, &fitted, p).map_err(|e| e.to_string())
+        })?;
+        println!("  plot: {}", p.display());
+    }
+    Ok(
+        if fitted.problems.is_empty() && (fitted.rise.is_some() || fitted.fall.is_some()) {
+            ExitCode::SUCCESS
+        } else {
+            ExitCode::from(1)
+        },
+    )
+}
+
 fn fmt_param(key: &str, v: f64) -> String {
     let unit = coilward_sim::scenario::Knob::ALL
         .iter()
@@ -400,6 +511,25 @@ fn main() -> ExitCode {
             shard,
             json,
         } => sweep_cmd(file, *samples, *seed, shard.as_deref(), json.as_deref()),
+        Command::Fit {
+            file,
+            supply,
+            on_resistance,
+            column,
+            units,
+            shunt,
+            inductance,
+            svg,
+        } => fit_cmd(
+            file,
+            supply,
+            on_resistance,
+            column.as_deref(),
+            units.as_deref(),
+            shunt.as_deref(),
+            inductance.as_deref(),
+            svg.as_deref(),
+        ),
     };
     r.unwrap_or_else(|code| code)
 }

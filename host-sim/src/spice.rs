@@ -184,3 +184,41 @@ pub fn plant(k: &Case) -> Result<(f64, f64, Option<f64>, f64, f64), PlantError> 
         off.peak_node,
     ))
 }
+
+/// Runs a netlist whose control block writes one vector with `wrdata FILE` (the netlist must
+/// name the file as `{out}`, replaced here) and returns its (time, value) pairs.
+pub fn ngspice_trace(name: &str, netlist: &str) -> Result<Vec<(f64, f64)>, String> {
+    let dir = std::env::temp_dir().join(format!("coilward-sim-ngspice-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).map_err(|e| e.to_string())?;
+    let data = dir.join(format!("{name}.data"));
+    let path = dir.join(format!("{name}.cir"));
+    std::fs::write(&path, netlist.replace("{out}", &data.display().to_string()))
+        .map_err(|e| e.to_string())?;
+    let out = Command::new("ngspice")
+        .arg("-b")
+        .arg(&path)
+        .output()
+        .map_err(|e| format!("cannot run ngspice (apt-get install ngspice): {e}"))?;
+    let log =
+        String::from_utf8_lossy(&out.stdout).into_owned() + &String::from_utf8_lossy(&out.stderr);
+    if log.contains("aborted") || log.contains("too small") || log.contains("Error") {
+        return Err(format!("ngspice failed on {name}:\n{log}"));
+    }
+    let text = std::fs::read_to_string(&data).map_err(|e| {
+        format!(
+            "ngspice wrote no data for {name} ({e}):\n{}{}",
+            String::from_utf8_lossy(&out.stdout),
+            String::from_utf8_lossy(&out.stderr)
+        )
+    })?;
+    Ok(text
+        .lines()
+        .filter_map(|l| {
+            let mut f = l.split_whitespace().map(str::parse::<f64>);
+            match (f.next(), f.next()) {
+                (Some(Ok(t)), Some(Ok(v))) => Some((t, v)),
+                _ => None,
+            }
+        })
+        .collect())
+}

@@ -3,6 +3,7 @@
 //! the contributor guide): fields may be added, none renamed or removed.
 
 pub mod csv;
+pub mod fit;
 pub mod json;
 pub mod svg;
 
