@@ -66,7 +66,7 @@ for ex in demo_coil valve relay; do
     cargo run --quiet --example "$ex" >/dev/null
 done
 
-step "simulator: the demo scenarios, their reports, a sweep"
+step "simulator: the demo scenarios, their reports, a sweep, a fit"
 cargo build --quiet --release -p coilward-sim
 SIM=target/release/coilward-sim
 OUT=$(mktemp -d)
@@ -92,6 +92,9 @@ expect 0 "$SIM" run examples/scenarios/relay-zener.toml
 # Nothing across the coil: the guard has to cut the current, so the verdict is fail.
 expect 1 "$SIM" run examples/scenarios/unclamped-avalanche.toml
 expect 0 "$SIM" sweep examples/scenarios/relay-zener.toml --samples 200 --json "$OUT/sweep.json"
+expect 0 "$SIM" fit examples/captures/valve-pull-in.csv --supply "24 V" --on-resistance "0.1 Ω" \
+    --svg "$OUT/fit.svg"
+test -s "$OUT/fit.svg"
 
 step "simulator against ngspice: wall time for 1 s of 20 kHz PWM, and the sweep goal"
 cargo bench --quiet -p coilward-sim --bench plant_vs_ngspice

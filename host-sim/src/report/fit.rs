@@ -130,6 +130,13 @@ pub fn coil_section(r: &crate::fit::Rise) -> String {
         si(r.inductance.value, "H", digits(r.inductance)),
         si(r.resistance.value, "Ω", digits(r.resistance))
     );
+    if let Some((l_after, _)) = r.dip.as_ref().and_then(|d| d.after) {
+        let _ = writeln!(
+            s,
+            "# with the plunger closed: inductance = \"{}\" — the release decays with this one, so a\n# guard that releases a held coil should believe the larger",
+            si(l_after.value, "H", 4)
+        );
+    }
     if let Some((at, l)) = r.saturation {
         let _ = write!(
             s,
