@@ -72,7 +72,7 @@ impl Case {
 /// the clamp path and into the avalanche after the turn-off) and `vpk` (node peak after it).
 pub fn netlist(k: &Case) -> String {
     let c = &k.c;
-    let r = |x: f64| x.max(1e-6);
+    let r = |x: f64| x.max(crate::plant::MIN_RESISTANCE);
     let t_off = f64::from(k.periods - 1) * k.period + k.on;
     let t_end = f64::from(k.periods) * k.period + k.rest;
     let mut n = String::new();
@@ -104,7 +104,7 @@ pub fn netlist(k: &Case) -> String {
     }
     // Body diode: conducts from ground into the node below −V_b.
     writeln!(n, "Vbody 0 bb DC {}", c.body_diode_drop).unwrap();
-    writeln!(n, "Rbody bb bc 1e-6").unwrap();
+    writeln!(n, "Rbody bb bc {}", crate::plant::MIN_RESISTANCE).unwrap();
     writeln!(n, "Dbody bc drain dideal").unwrap();
     // Avalanche of the switch at its breakdown.
     writeln!(n, "Vav drain aa DC {}", c.breakdown).unwrap();

@@ -170,7 +170,7 @@ fn rl_rise_one_three_five_tau() {
 fn saturating_coil_follows_its_two_slopes() {
     // Piecewise-linear flux: L0 up to I_s, then L_s. From rest the current is the RL
     // exponential with τ0 = L0/R until I_s at t1 = −τ0·ln(1 − I_s/I∞), then approaches I∞
-    // with τ_s = L_s/R (the RL equation on each piece).
+    // with τ_s = L_s/R (the RL equation on each piece; R includes the switch's 0.05 Ω).
     let mut c = coil(
         0.040,
         18.0,
@@ -182,10 +182,12 @@ fn saturating_coil_follows_its_two_slopes() {
         60.0,
     );
     c.saturation = Some((0.8, 0.010));
-    let i_inf: f64 = 24.0 / 18.0;
-    let t1 = -(0.040 / 18.0) * (1.0 - 0.8 / i_inf).ln();
+    c.on_resistance = 0.05;
+    let r: f64 = 18.05;
+    let i_inf: f64 = 24.0 / r;
+    let t1 = -(0.040 / r) * (1.0 - 0.8 / i_inf).ln();
     let dt: f64 = 0.3e-3;
-    let want = i_inf - (i_inf - 0.8) * (-dt / (0.010 / 18.0)).exp();
+    let want = i_inf - (i_inf - 0.8) * (-dt / (0.010 / r)).exp();
     let mut p = Plant::new(c, State::at_rest(24.0));
     let mut t = Tally::starting(p.state);
     p.run(true, t1 + dt, &mut t).unwrap();

@@ -11,7 +11,7 @@
 //! over, the ring of L with the node capacitance when nothing clamps, and the body diode catching
 //! a ring below ground.
 //!
-//! Ideal elements are given the resistance [`MIN_RESISTANCE`] (1 µΩ) so every mode keeps both
+//! Ideal elements are given the resistance [`MIN_RESISTANCE`] (0.1 mΩ) so every mode keeps both
 //! states; the resulting fast modes decay in picoseconds and are solved exactly like the rest.
 
 pub mod wave;
@@ -19,7 +19,17 @@ pub mod wave;
 use wave::{Singular, Solution, Wave};
 
 /// The resistance given to a path the scenario calls ideal (0 Ω), Ω.
-pub const MIN_RESISTANCE: f64 = 1e-6;
+///
+/// Low enough to be ideal at every current the plant meets (1 mV at 10 A), high enough that a
+/// part's current, read from its conduction function (the voltage across the part over this
+/// resistance), is resolved to about 10⁻¹⁰ A at a few hundred volts.
+pub const MIN_RESISTANCE: f64 = 1e-4;
+
+/// How far past its threshold a part must be driven to start conducting, relative to the
+/// threshold (1 + |threshold|): far below anything physical (0.2 nV at 200 V), far above the
+/// rounding of the conduction function, so a part whose current has just fallen to zero at its
+/// threshold does not toggle back on at the next rounding.
+const START_MARGIN: f64 = 1e-12;
 
 /// Most path changes allowed in one call before the plant reports that it is stuck.
 const MAX_EVENTS: usize = 100_000;
@@ -271,7 +281,7 @@ impl Plant {
         let mut m = Mode::default();
         for p in PARTS {
             if let Some((c, d)) = self.conduction(p)
-                && c[0] * x[0] + c[1] * x[1] + d > 0.0
+                && c[0] * x[0] + c[1] * x[1] + d > START_MARGIN * (1.0 + d.abs())
             {
                 m.toggle(p);
             }
@@ -357,7 +367,7 @@ impl Plant {
                     let (c, d) = if self.mode.has(p) {
                         ([-c[0], -c[1]], -d)
                     } else {
-                        (c, d)
+                        (c, d - START_MARGIN * (1.0 + d.abs()))
                     };
                     if let Some(t) = sol.wave(c, d).first_rise(end) {
                         end = t;
@@ -477,7 +487,7 @@ impl Plant {
         let magnetic = match c.saturation {
             Some((at, l_sat)) if i > at => {
                 0.5 * c.inductance * at * at
-                    + c.inductance * at * (i - at)
+                    + l_sat * at * (i - at)
                     + 0.5 * l_sat * (i - at) * (i - at)
             }
             _ => 0.5 * c.inductance * i * i,
