@@ -275,6 +275,9 @@ fn simulate(
     let mut releasing: Option<bool> = None;
     for k in 0..n {
         let tk = k as f64 * t;
+        if !s.supply_profile.is_constant() {
+            plant.set_supply(s.supply_profile.at(tk, s.plant.voltage, circuit.supply));
+        }
         let rail = plant.rail();
         let read = adc.read(rail);
         let duty_req = s.duty_in_period(k);

@@ -50,6 +50,8 @@ struct Raw {
     start: Option<RawStart>,
     #[serde(default)]
     drive: Vec<RawDrive>,
+    #[serde(default)]
+    supply_change: Vec<RawSupplyChange>,
     run: RawRun,
     tolerance: Option<BTreeMap<String, Spanned<String>>>,
 }
@@ -61,6 +63,15 @@ struct RawSupply {
     min: Text,
     max: Text,
     source_resistance: Text,
+    ripple: Text,
+    ripple_frequency: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSupplyChange {
+    at: Text,
+    voltage: Text,
 }
 
 #[derive(Deserialize)]
@@ -516,6 +527,37 @@ pub struct Step {
     pub duty: f64,
 }
 
+/// How the source voltage moves during the run.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct SupplyProfile {
+    /// Steps: from `.0` seconds the source is `.1` volts (before the first: `supply.voltage`).
+    pub changes: Vec<(f64, f64)>,
+    /// Sinusoidal ripple: peak amplitude, V, and frequency, Hz.
+    pub ripple: Option<(f64, f64)>,
+}
+
+impl SupplyProfile {
+    /// The source voltage at `t` for a nominal `nominal` (steps scale with a sample's drawn
+    /// supply: `drawn/nominal` times the written value).
+    pub fn at(&self, t: f64, nominal: f64, drawn: f64) -> f64 {
+        let n = self.changes.partition_point(|c| c.0 <= t);
+        let base = if n == 0 {
+            drawn
+        } else {
+            self.changes[n - 1].1 * drawn / nominal
+        };
+        let ripple = self
+            .ripple
+            .map_or(0.0, |(a, f)| a * (std::f64::consts::TAU * f * t).sin());
+        (base + ripple).max(0.0)
+    }
+
+    /// Whether the source is constant.
+    pub fn is_constant(&self) -> bool {
+        self.changes.is_empty() && self.ripple.is_none()
+    }
+}
+
 /// A validated scenario.
 #[derive(Debug, Clone)]
 pub struct Scenario {
@@ -547,6 +589,8 @@ pub struct Scenario {
     pub drive: Vec<Step>,
     /// Run length, s.
     pub duration: f64,
+    /// Supply steps and ripple.
+    pub supply_profile: SupplyProfile,
     /// Spreads for sweeps.
     pub tolerance: Vec<(Knob, Spread)>,
     /// Defaults the file left to the simulator, as `key = value` notes.
@@ -1119,6 +1163,51 @@ impl Scenario {
             return Err(ScenarioError { file: path.to_path_buf(), at: None, key: Some("drive".into()), message: "no [[drive]] steps: give at least one, e.g. [[drive]] at = \"0 s\" duty = \"100 %\"".into() });
         }
 
+        // The supply's steps and ripple.
+        let ripple = cx.value("supply.ripple", &s.ripple, Unit::Volt)?;
+        let ripple_frequency =
+            cx.value("supply.ripple_frequency", &s.ripple_frequency, Unit::Hertz)?;
+        let ripple = match (ripple, ripple_frequency) {
+            (Some(a), Some(f)) => {
+                cx.check("supply.ripple", a >= 0.0, "must not be negative")?;
+                cx.check("supply.ripple_frequency", f > 0.0, "must be positive")?;
+                Some((a, f))
+            }
+            (None, None) => None,
+            (Some(_), None) => {
+                return Err(cx.error(
+                    "supply.ripple_frequency",
+                    cx.spans.get("supply.ripple").cloned(),
+                    "missing: supply.ripple needs its frequency",
+                ));
+            }
+            (None, Some(_)) => {
+                return Err(cx.error(
+                    "supply.ripple",
+                    cx.spans.get("supply.ripple_frequency").cloned(),
+                    "missing: supply.ripple_frequency needs the ripple's amplitude",
+                ));
+            }
+        };
+        let mut changes: Vec<(f64, f64)> = Vec::new();
+        for (n, c) in raw.supply_change.iter().enumerate() {
+            let key_at = format!("supply_change[{n}].at");
+            let key_v = format!("supply_change[{n}].voltage");
+            let at = cx.required(&key_at, &c.at, Unit::Second)?;
+            let v = cx.required(&key_v, &c.voltage, Unit::Volt)?;
+            cx.check(&key_at, at >= 0.0, "must not be negative")?;
+            cx.check(&key_v, v >= 0.0, "must not be negative")?;
+            if let Some(&(prev, _)) = changes.last() {
+                cx.check(
+                    &key_at,
+                    at >= prev,
+                    "the supply changes must be in time order",
+                )?;
+            }
+            changes.push((at, v));
+        }
+        let supply_profile = SupplyProfile { changes, ripple };
+
         // [run]
         let duration = cx.required("run.duration", &raw.run.duration, Unit::Second)?;
         cx.check(
@@ -1173,6 +1262,7 @@ impl Scenario {
             start,
             drive,
             duration,
+            supply_profile,
             tolerance,
             assumed,
             spans: cx.spans,

@@ -35,6 +35,8 @@ pub enum Unit {
     PerKelvin,
     /// A fraction written in percent.
     Percent,
+    /// Hertz.
+    Hertz,
 }
 
 impl Unit {
@@ -53,6 +55,7 @@ impl Unit {
             Unit::KelvinPerWatt => "K/W",
             Unit::PerKelvin => "/K",
             Unit::Percent => "%",
+            Unit::Hertz => "Hz",
         }
     }
 
@@ -71,6 +74,7 @@ impl Unit {
             Unit::KelvinPerWatt => "\"2 K/W\"",
             Unit::PerKelvin => "\"0.393 %/K\" or \"0.00393 /K\"",
             Unit::Percent => "\"60 %\"",
+            Unit::Hertz => "\"100 Hz\"",
         }
     }
 
@@ -88,6 +92,7 @@ impl Unit {
             Unit::KelvinPerWatt => &["K/W"],
             Unit::PerKelvin => &["/K", "1/K"],
             Unit::Percent => &["%"],
+            Unit::Hertz => &["Hz"],
         }
     }
 

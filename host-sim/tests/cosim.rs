@@ -179,3 +179,52 @@ fn adc_noise_is_seeded_and_quantisation_shows_in_the_readings() {
         );
     }
 }
+
+#[test]
+fn supply_steps_and_ripple_reach_the_plant_and_the_guard() {
+    // A sag to 18 V (below the 20 V minimum) at 60 ms, back at 90 ms, with 0.5 V of 100 Hz
+    // ripple throughout.
+    let t = text("irrigation-valve.toml").replace(
+        "source_resistance = \"0.2 Ω\"",
+        "ripple = \"0.5 V\"\nripple_frequency = \"100 Hz\"",
+    ) + "\n[[supply_change]]\nat = \"60 ms\"\nvoltage = \"18 V\"\n\n[[supply_change]]\nat = \"90 ms\"\nvoltage = \"24 V\"\n";
+    let r = cosim::run(&scenario(&t), Options { rows: true });
+    let at = |t_s: f64| r.rows.iter().find(|x| x.t_s >= t_s - 1e-9).unwrap();
+    for (t_s, want) in [(0.0525, 24.0), (0.0725, 18.0), (0.1025, 24.0)] {
+        // 100 Hz ripple: at t = 52.5 ms, 72.5 ms and 102.5 ms it is at its crest (+0.5 V).
+        let row = at(t_s);
+        assert!(
+            (row.supply_read_v - (want + 0.5)).abs() < 0.01,
+            "{t_s}: {}",
+            row.supply_read_v
+        );
+    }
+    let raised: Vec<_> = r
+        .events
+        .iter()
+        .filter(|e| e.condition == "supply-range")
+        .collect();
+    assert!(
+        raised
+            .iter()
+            .any(|e| (e.t_s - 0.060).abs() < 1e-4 && e.detail.starts_with("raised")),
+        "{raised:?}"
+    );
+    assert!(
+        raised
+            .iter()
+            .any(|e| (e.t_s - 0.090).abs() < 1e-4 && e.detail == "cleared"),
+        "{raised:?}"
+    );
+    // The hold current follows the supply (≈ duty·V/R): about 18/24 of its value in the sag.
+    let ratio = at(0.085).mean_current_a / at(0.055).mean_current_a;
+    assert!((ratio - 18.0 / 24.0).abs() < 0.03, "{ratio}");
+}
+
+#[test]
+fn an_incomplete_ripple_is_refused() {
+    let t = text("irrigation-valve.toml")
+        .replace("source_resistance = \"0.2 Ω\"", "ripple = \"0.5 V\"");
+    let e = Scenario::parse(Path::new("case.toml"), &t).unwrap_err();
+    assert_eq!(e.key.as_deref(), Some("supply.ripple_frequency"), "{e}");
+}
