@@ -15,7 +15,7 @@
 use crate::plant::{Circuit, Plant, PlantError, State, Tally};
 use crate::scenario::Scenario;
 use coilward::{Condition, Conditions, Guard, Input, Volts};
-use rand::SeedableRng;
+use rand::{Rng, SeedableRng};
 use rand_distr::{Distribution, StandardNormal};
 use serde::Serialize;
 
@@ -133,6 +133,10 @@ pub struct Run {
     pub plant_events: u64,
     /// Periods in which the applied duty differed from the request.
     pub acted_periods: u64,
+    /// Periods whose tick was missed (`[ticks] missed`).
+    pub missed_ticks: u64,
+    /// Periods whose tick came too late for the timer (`[ticks] late`).
+    pub late_ticks: u64,
 }
 
 impl Run {
@@ -157,6 +161,9 @@ struct Adc {
 
 impl Adc {
     fn read(&mut self, volts: f64) -> f64 {
+        if let Some(v) = self.cfg.stuck {
+            return v;
+        }
         let mut v = volts + self.cfg.offset;
         if self.cfg.noise > 0.0 {
             let n: f64 = StandardNormal.sample(&mut self.rng);
@@ -169,6 +176,37 @@ impl Adc {
         }
         v.max(0.0)
     }
+}
+
+/// One period of the plant at `applied` counts: (current at the start, current when the switch
+/// opened, on tally, off tally with the release current watched, time the switch opened).
+fn run_period(
+    plant: &mut Plant,
+    applied: u32,
+    res: f64,
+    t: f64,
+    tk: f64,
+    release: f64,
+) -> Result<(f64, f64, Tally, Tally, f64), PlantError> {
+    let i_start = plant.state.current;
+    let on_time = f64::from(applied) / res * t;
+    let mut on = Tally::starting(plant.state);
+    on.time_offset = tk;
+    if on_time > 0.0 {
+        plant.run(true, on_time, &mut on)?;
+    }
+    let t_open = tk + on_time;
+    let i_open = plant.state.current;
+    let mut off = Tally::starting(plant.state);
+    off.time_offset = t_open;
+    off.watch = Some(release);
+    if i_open <= release {
+        off.below_at = Some(t_open);
+    }
+    if on_time < t {
+        plant.run(false, t - on_time, &mut off)?;
+    }
+    Ok((i_start, i_open, on, off, t_open))
 }
 
 /// Records the first pulse above the rating.
@@ -255,6 +293,7 @@ fn simulate(
         cfg: s.adc,
         rng: rand_chacha::ChaCha8Rng::seed_from_u64(s.adc.seed),
     };
+    let mut tick_rng = rand_chacha::ChaCha8Rng::seed_from_u64(s.ticks.seed);
     let mut lead = Tally::starting(plant.state);
     plant.run(false, t, &mut lead)?;
 
@@ -282,58 +321,82 @@ fn simulate(
         let read = adc.read(rail);
         let duty_req = s.duty_in_period(k);
         let counts = (duty_req * res).round() as u32;
-        let o = guard.tick(
-            &mut gs,
-            Input::new(counts, Volts::saturating_from_num(read)),
-        );
-        let est_now = f64::from(model.amps(o.estimate.end));
-        let err = est_now - plant.state.current;
-        out.estimate.max_abs_error_a = out.estimate.max_abs_error_a.max(err.abs());
-        out.estimate.max_underestimate_a = out.estimate.max_underestimate_a.max(-err);
-        sum_sq += err * err;
-        count += 1;
-        if o.duty != counts {
-            out.acted_periods += 1;
-            if out.acted_periods == 1 {
-                out.findings.push(Finding {
-                    kind: "guard-acted",
-                    t_s: tk,
-                    detail: format!(
-                        "applied {:.1} % where {:.1} % was requested ({})",
-                        f64::from(o.duty) / res * 100.0,
-                        duty_req * 100.0,
-                        o.active
-                    ),
-                });
+        let fault: f64 = if s.ticks.missed + s.ticks.late > 0.0 {
+            tick_rng.random()
+        } else {
+            1.0
+        };
+        // A missed tick: no interrupt this period, the timer repeats the last duty, the guard
+        // learns nothing and its next update accounts for one period where two passed.
+        let missed = fault < s.ticks.missed;
+        let late = !missed && fault < s.ticks.missed + s.ticks.late;
+        let o = if missed {
+            out.missed_ticks += 1;
+            None
+        } else {
+            Some(guard.tick(
+                &mut gs,
+                Input::new(counts, Volts::saturating_from_num(read)),
+            ))
+        };
+        if let Some(o) = &o {
+            let est_now = f64::from(model.amps(o.estimate.end));
+            let err = est_now - plant.state.current;
+            out.estimate.max_abs_error_a = out.estimate.max_abs_error_a.max(err.abs());
+            out.estimate.max_underestimate_a = out.estimate.max_underestimate_a.max(-err);
+            sum_sq += err * err;
+            count += 1;
+            if o.duty != counts {
+                out.acted_periods += 1;
+                if out.acted_periods == 1 {
+                    out.findings.push(Finding {
+                        kind: "guard-acted",
+                        t_s: tk,
+                        detail: format!(
+                            "applied {:.1} % where {:.1} % was requested ({})",
+                            f64::from(o.duty) / res * 100.0,
+                            duty_req * 100.0,
+                            o.active
+                        ),
+                    });
+                }
             }
-        }
-        for c in Condition::ALL {
-            let (raised, cleared) = (o.raised.contains(c), o.cleared.contains(c));
-            if raised || cleared {
-                let detail = if raised {
-                    let mut d = format!(
-                        "raised: estimate {est_now:.4} A, predicted peak {:.4} A",
-                        model.amps(o.predicted_peak)
-                    );
-                    if o.latched.contains(c) {
-                        d.push_str(", latched");
-                    }
-                    if let (Condition::ReleaseHold, Some(us)) = (c, o.release_in_us) {
-                        d.push_str(&format!(", release in {us} µs"));
-                    }
-                    d
-                } else {
-                    "cleared".to_string()
-                };
-                out.events.push(EventRecord {
-                    t_s: tk,
-                    condition: c.name(),
-                    detail,
-                });
+            for c in Condition::ALL {
+                let (raised, cleared) = (o.raised.contains(c), o.cleared.contains(c));
+                if raised || cleared {
+                    let detail = if raised {
+                        let mut d = format!(
+                            "raised: estimate {est_now:.4} A, predicted peak {:.4} A",
+                            model.amps(o.predicted_peak)
+                        );
+                        if o.latched.contains(c) {
+                            d.push_str(", latched");
+                        }
+                        if let (Condition::ReleaseHold, Some(us)) = (c, o.release_in_us) {
+                            d.push_str(&format!(", release in {us} µs"));
+                        }
+                        d
+                    } else {
+                        "cleared".to_string()
+                    };
+                    out.events.push(EventRecord {
+                        t_s: tk,
+                        condition: c.name(),
+                        detail,
+                    });
+                }
             }
         }
 
-        let applied = o.duty.min(s.duty_resolution);
+        let applied = match &o {
+            None => prev_applied,
+            Some(_) if late => {
+                // The write came after the timer's update: this period repeats the last duty.
+                out.late_ticks += 1;
+                prev_applied
+            }
+            Some(o) => o.duty.min(s.duty_resolution),
+        };
         // A turn-off: the switch stays off this period after being on in the last one.
         if applied == 0
             && prev_applied > 0
@@ -369,24 +432,8 @@ fn simulate(
             open = None;
             releasing = None;
         }
-        let i_start = plant.state.current;
-        let on_time = f64::from(applied) / res * t;
-        let mut on = Tally::starting(plant.state);
-        on.time_offset = tk;
-        if on_time > 0.0 {
-            plant.run(true, on_time, &mut on)?;
-        }
-        let t_open = tk + on_time;
-        let i_open = plant.state.current;
-        let mut off = Tally::starting(plant.state);
-        off.time_offset = t_open;
-        off.watch = Some(release);
-        if i_open <= release {
-            off.below_at = Some(t_open);
-        }
-        if on_time < t {
-            plant.run(false, t - on_time, &mut off)?;
-        }
+        let (i_start, i_open, on, off, t_open) =
+            run_period(&mut plant, applied, res, t, tk, release)?;
         if applied > 0 {
             last_open = Some((t_open, i_open, off));
         } else if let Some(idx) = open {
@@ -440,6 +487,18 @@ fn simulate(
             });
         }
         if opts.rows {
+            // After a missed tick the guard's figures are those it last gave.
+            let last = out.rows.last();
+            let (est, est_peak, conditions) = match &o {
+                Some(o) => (
+                    f64::from(model.amps(o.estimate.end)),
+                    f64::from(model.amps(o.predicted_peak)),
+                    o.active,
+                ),
+                None => last.map_or((0.0, 0.0, Conditions::NONE), |r| {
+                    (r.estimated_current_a, r.estimated_peak_a, r.conditions)
+                }),
+            };
             out.rows.push(Row {
                 t_s: tk,
                 duty_requested: duty_req,
@@ -448,10 +507,10 @@ fn simulate(
                 current_a: i_start,
                 mean_current_a: (on.charge + off.charge) / t,
                 peak_current_a: peak_i,
-                estimated_current_a: est_now,
-                estimated_peak_a: f64::from(model.amps(o.predicted_peak)),
+                estimated_current_a: est,
+                estimated_peak_a: est_peak,
                 drain_peak_v: peak_v,
-                conditions: o.active,
+                conditions,
                 supply_read_v: read,
                 clamp_energy_j: pulse + on.clamp_energy + on.avalanche_energy,
             });

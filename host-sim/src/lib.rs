@@ -7,6 +7,7 @@
 
 pub mod capture;
 pub mod cosim;
+pub mod faults;
 pub mod fit;
 pub mod plant;
 pub mod report;

@@ -47,6 +47,7 @@ struct Raw {
     guard: RawGuard,
     model: Option<BTreeMap<String, Spanned<String>>>,
     adc: Option<RawAdc>,
+    ticks: Option<RawTicks>,
     start: Option<RawStart>,
     #[serde(default)]
     drive: Vec<RawDrive>,
@@ -149,6 +150,15 @@ struct RawAdc {
     full_scale: Text,
     noise: Text,
     offset: Text,
+    seed: Option<Spanned<i64>>,
+    stuck: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawTicks {
+    missed: Text,
+    late: Text,
     seed: Option<Spanned<i64>>,
 }
 
@@ -506,6 +516,22 @@ pub struct Adc {
     pub offset: f64,
     /// Seed of the noise.
     pub seed: u64,
+    /// A failed ADC: every reading is this many volts (0 for `"zero"`, the full scale for
+    /// `"full"`).
+    pub stuck: Option<f64>,
+}
+
+/// Control ticks that go wrong (interrupt latency).
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct Ticks {
+    /// Fraction of periods whose tick is missed: the guard is not called and the timer repeats
+    /// the last duty.
+    pub missed: f64,
+    /// Fraction of periods whose tick comes too late for the timer's update: the guard runs and
+    /// believes its duty applied, but the timer repeats the last one for that period.
+    pub late: f64,
+    /// Seed of the draws.
+    pub seed: u64,
 }
 
 /// How the run starts.
@@ -583,6 +609,8 @@ pub struct Scenario {
     pub limits: GuardLimits,
     /// Supply ADC.
     pub adc: Adc,
+    /// Control-tick faults.
+    pub ticks: Ticks,
     /// Initial conditions.
     pub start: Start,
     /// Drive timeline, ascending.
@@ -1092,6 +1120,7 @@ impl Scenario {
                 noise: 0.0,
                 offset: 0.0,
                 seed: 0,
+                stuck: None,
             },
             Some(a) => {
                 let bits = cx
@@ -1122,6 +1151,53 @@ impl Scenario {
                         .unwrap_or(0.0),
                     seed: cx
                         .count("adc.seed", &a.seed, 0..i64::MAX)?
+                        .map_or(1, |s| s as u64),
+                    stuck: match cx.word("adc.stuck", &a.stuck, &["zero", "full"])? {
+                        Some("zero") => Some(0.0),
+                        Some(_) if full_scale.is_some() => Some(fs),
+                        Some(_) => {
+                            return Err(cx.error(
+                                "adc.stuck",
+                                None,
+                                "\"full\" needs adc.full_scale (the reading at the top code)",
+                            ));
+                        }
+                        None => None,
+                    },
+                }
+            }
+        };
+
+        // [ticks]
+        let ticks = match &raw.ticks {
+            None => Ticks::default(),
+            Some(k) => {
+                let missed = cx
+                    .value("ticks.missed", &k.missed, Unit::Percent)?
+                    .unwrap_or(0.0);
+                let late = cx
+                    .value("ticks.late", &k.late, Unit::Percent)?
+                    .unwrap_or(0.0);
+                cx.check(
+                    "ticks.missed",
+                    (0.0..=1.0).contains(&missed),
+                    "must be within 0 % ..= 100 %",
+                )?;
+                cx.check(
+                    "ticks.late",
+                    (0.0..=1.0).contains(&late),
+                    "must be within 0 % ..= 100 %",
+                )?;
+                cx.check(
+                    "ticks.late",
+                    missed + late <= 1.0,
+                    "missed and late together exceed 100 %",
+                )?;
+                Ticks {
+                    missed,
+                    late,
+                    seed: cx
+                        .count("ticks.seed", &k.seed, 0..i64::MAX)?
                         .map_or(1, |s| s as u64),
                 }
             }
@@ -1259,6 +1335,7 @@ impl Scenario {
             current_full_scale,
             limits,
             adc,
+            ticks,
             start,
             drive,
             duration,

@@ -24,6 +24,8 @@ pub fn report(s: &Scenario, r: &Run) -> Value {
         "period_s": s.period,
         "plant_events": r.plant_events,
         "acted_periods": r.acted_periods,
+        "missed_ticks": r.missed_ticks,
+        "late_ticks": r.late_ticks,
         "assumed": s.assumed,
     })
 }
