@@ -31,6 +31,7 @@ fi
 step "format"
 cargo fmt --all -- --check
 (cd firmware && cargo fmt --all -- --check)
+(cd fuzz && cargo fmt --all -- --check)
 
 step "lints"
 cargo clippy --workspace --all-targets -- -D warnings
@@ -91,10 +92,31 @@ test -s "$OUT/valve.svg" && test -s "$OUT/valve.json" && test -s "$OUT/valve.csv
 expect 0 "$SIM" run examples/scenarios/relay-zener.toml
 # Nothing across the coil: the guard has to cut the current, so the verdict is fail.
 expect 1 "$SIM" run examples/scenarios/unclamped-avalanche.toml
+# Driven to the ceiling on purpose (the fault suite's base): the guard acts, so the verdict is fail.
+expect 1 "$SIM" run examples/scenarios/valve-at-ceiling.toml
+cargo run --quiet --release -p coilward-sim --example fault_table >"$OUT/faults.md"
 expect 0 "$SIM" sweep examples/scenarios/relay-zener.toml --samples 200 --json "$OUT/sweep.json"
 expect 0 "$SIM" fit examples/captures/valve-pull-in.csv --supply "24 V" --on-resistance "0.1 Ω" \
     --svg "$OUT/fit.svg"
 test -s "$OUT/fit.svg"
+
+step "fuzzing (cargo-fuzz on nightly): each target for 20 s, seeded with the demo files"
+rustup toolchain install nightly --profile minimal
+command -v cargo-fuzz >/dev/null 2>&1 || cargo install cargo-fuzz --locked
+for t in params guard_ticks scenario capture; do mkdir -p "$OUT/corpus/$t"; done
+cp examples/scenarios/*.toml "$OUT/corpus/scenario/"
+cp examples/captures/*.csv "$OUT/corpus/capture/"
+for t in params guard_ticks scenario capture; do
+    rc=0
+    (cd fuzz && cargo +nightly fuzz run -O "$t" "$OUT/corpus/$t" -- \
+        -max_total_time=20 -rss_limit_mb=4096 -max_len=8192) >"$OUT/fuzz-$t.log" 2>&1 || rc=$?
+    echo "$t: $(grep -E '^Done [0-9]+ runs' "$OUT/fuzz-$t.log" | tail -n 1)"
+    if [ "$rc" -ne 0 ]; then
+        tail -n 60 "$OUT/fuzz-$t.log"
+        echo "fuzz target $t failed (exit $rc); the crashing input is in fuzz/artifacts/$t/" >&2
+        exit 1
+    fi
+done
 
 step "simulator against ngspice: wall time for 1 s of 20 kHz PWM, and the sweep goal"
 cargo bench --quiet -p coilward-sim --bench plant_vs_ngspice
