@@ -140,6 +140,17 @@ pub struct Run {
 }
 
 impl Run {
+    /// Records the first finding of `kind` (later ones of the same kind add nothing).
+    fn first(&mut self, kind: &'static str, t_s: f64, detail: impl FnOnce() -> String) {
+        if !self.findings.iter().any(|f| f.kind == kind) {
+            self.findings.push(Finding {
+                kind,
+                t_s,
+                detail: detail(),
+            });
+        }
+    }
+
     /// Whether the profile passed.
     pub fn passed(&self) -> bool {
         self.findings.is_empty()
@@ -213,17 +224,9 @@ fn run_period(
 fn pulse_over(out: &mut Run, rating: Option<f64>, pulse: f64, t: f64) {
     if let Some(r) = rating
         && pulse > r
-        && !out
-            .findings
-            .iter()
-            .any(|f| f.kind == "clamp-pulse-above-rating")
     {
-        out.findings.push(Finding {
-            kind: "clamp-pulse-above-rating",
-            t_s: t,
-            detail: format!(
-                "one turn-off put {pulse:.4e} J into the clamp path (rating {r:.4e} J)"
-            ),
+        out.first("clamp-pulse-above-rating", t, || {
+            format!("one turn-off put {pulse:.4e} J into the clamp path (rating {r:.4e} J)")
         });
     }
 }
@@ -248,11 +251,9 @@ pub fn run_with(s: &Scenario, circuit: &Circuit, opts: Options) -> Run {
         }
     };
     if let Err(e) = simulate(s, &guard, circuit, opts, &mut out) {
-        out.findings.push(Finding {
-            kind: "plant-stopped",
-            t_s: 0.0,
-            detail: e.to_string(),
-        });
+        // The period in which the plant stopped.
+        let t_s = out.periods as f64 * s.period;
+        out.first("plant-stopped", t_s, || format!("the run stopped: {e}"));
     }
     out
 }
@@ -348,18 +349,14 @@ fn simulate(
             count += 1;
             if o.duty != counts {
                 out.acted_periods += 1;
-                if out.acted_periods == 1 {
-                    out.findings.push(Finding {
-                        kind: "guard-acted",
-                        t_s: tk,
-                        detail: format!(
-                            "applied {:.1} % where {:.1} % was requested ({})",
-                            f64::from(o.duty) / res * 100.0,
-                            duty_req * 100.0,
-                            o.active
-                        ),
-                    });
-                }
+                out.first("guard-acted", tk, || {
+                    format!(
+                        "applied {:.1} % where {:.1} % was requested ({})",
+                        f64::from(o.duty) / res * 100.0,
+                        duty_req * 100.0,
+                        o.active
+                    )
+                });
             }
             for c in Condition::ALL {
                 let (raised, cleared) = (o.raised.contains(c), o.cleared.contains(c));
@@ -416,17 +413,10 @@ fn simulate(
         }
         if applied > 0 {
             // Turning on again: before the freewheel current has decayed?
-            if releasing == Some(false)
-                && plant.state.current > release
-                && !out.findings.iter().any(|f| f.kind == "on-before-release")
-            {
-                out.findings.push(Finding {
-                    kind: "on-before-release",
-                    t_s: tk,
-                    detail: format!(
-                        "switched on with {:.4} A still flowing (release current {release} A)",
-                        plant.state.current
-                    ),
+            let i = plant.state.current;
+            if releasing == Some(false) && i > release {
+                out.first("on-before-release", tk, || {
+                    format!("switched on with {i:.4} A still flowing (release current {release} A)")
                 });
             }
             open = None;
@@ -458,11 +448,9 @@ fn simulate(
         out.peak_current_a = out.peak_current_a.max(peak_i);
         out.peak_drain_voltage_v = out.peak_drain_voltage_v.max(peak_v);
         out.plant_events += on.events + off.events;
-        if peak_i > trip && !out.findings.iter().any(|f| f.kind == "current-above-trip") {
-            out.findings.push(Finding {
-                kind: "current-above-trip",
-                t_s: tk,
-                detail: format!("true current reached {peak_i:.4} A (trip current {trip} A)"),
+        if peak_i > trip {
+            out.first("current-above-trip", tk, || {
+                format!("true current reached {peak_i:.4} A (trip current {trip} A)")
             });
         }
         // A PWM period's off-segment is one pulse into the clamp; a release's pulse is the
@@ -470,20 +458,10 @@ fn simulate(
         if applied > 0 {
             pulse_over(out, rating, pulse, t_open);
         }
-        if has_clamp
-            && on.avalanche_time + off.avalanche_time > 0.0
-            && !out
-                .findings
-                .iter()
-                .any(|f| f.kind == "avalanche-with-clamp")
-        {
-            out.findings.push(Finding {
-                kind: "avalanche-with-clamp",
-                t_s: t_open,
-                detail: format!(
-                    "the switch avalanched at {:.1} V although a clamp path is fitted",
-                    circuit.breakdown
-                ),
+        if has_clamp && on.avalanche_time + off.avalanche_time > 0.0 {
+            let bv = circuit.breakdown;
+            out.first("avalanche-with-clamp", t_open, || {
+                format!("the switch avalanched at {bv:.1} V although a clamp path is fitted")
             });
         }
         if opts.rows {
