@@ -7,30 +7,10 @@
 //! Run: `cargo bench -p coilward-sim --bench plant_vs_ngspice` (ngspice from Debian's package).
 //! A benchmark, not a test: the figures go to the README by hand.
 
-use coilward_sim::plant::{Circuit, ClampKind};
 use coilward_sim::scenario::Scenario;
 use coilward_sim::spice::{self, Case};
 use coilward_sim::sweep::{self, Shard};
 use std::time::Instant;
-
-fn valve() -> Circuit {
-    Circuit {
-        supply: 24.0,
-        source_resistance: 0.2,
-        inductance: 0.040,
-        saturation: None,
-        resistance: 18.0,
-        on_resistance: 0.1,
-        capacitance: 470e-12,
-        breakdown: 60.0,
-        avalanche_resistance: 0.0,
-        body_diode_drop: 0.8,
-        clamp: ClampKind::Freewheel {
-            drop: 0.7,
-            resistance: 0.05,
-        },
-    }
-}
 
 fn agree(what: &str, got: f64, want: f64, tol: f64) -> bool {
     let rel = (got - want).abs() / want.abs();
@@ -45,7 +25,7 @@ fn agree(what: &str, got: f64, want: f64, tol: f64) -> bool {
 fn main() {
     let case = Case {
         name: "bench-valve-1s",
-        c: valve(),
+        c: spice::demo_valve(),
         period: 50e-6,
         on: 17.5e-6,
         periods: 20_000,

@@ -222,3 +222,25 @@ pub fn ngspice_trace(name: &str, netlist: &str) -> Result<Vec<(f64, f64)>, Strin
         })
         .collect())
 }
+
+/// The demo valve's circuit (`examples/scenarios/irrigation-valve.toml`: 24 V through 0.2 Ω,
+/// 40 mH / 18 Ω, 0.1 Ω switch with 470 pF at the node and a 60 V breakdown, diode freewheel
+/// 0.7 V + 0.05 Ω), as the cross-checks and the benchmark use it.
+pub fn demo_valve() -> Circuit {
+    Circuit {
+        supply: 24.0,
+        source_resistance: 0.2,
+        inductance: 0.040,
+        saturation: None,
+        resistance: 18.0,
+        on_resistance: 0.1,
+        capacitance: 470e-12,
+        breakdown: 60.0,
+        avalanche_resistance: 0.0,
+        body_diode_drop: 0.8,
+        clamp: ClampKind::Freewheel {
+            drop: 0.7,
+            resistance: 0.05,
+        },
+    }
+}

@@ -31,22 +31,7 @@ fn close(what: &str, got: f64, want: f64, tol: f64) {
 }
 
 fn base() -> Circuit {
-    Circuit {
-        supply: 24.0,
-        source_resistance: 0.2,
-        inductance: 0.040,
-        saturation: None,
-        resistance: 18.0,
-        on_resistance: 0.1,
-        capacitance: 470e-12,
-        breakdown: 60.0,
-        avalanche_resistance: 0.0,
-        body_diode_drop: 0.8,
-        clamp: ClampKind::Freewheel {
-            drop: 0.7,
-            resistance: 0.05,
-        },
-    }
+    coilward_sim::spice::demo_valve()
 }
 
 fn cases() -> Vec<Case> {
