@@ -12,22 +12,32 @@ use std::collections::HashMap;
 use std::fmt::Write as _;
 use std::process::Command;
 
-/// Runs a netlist through ngspice in batch mode and returns its `.meas` results.
-pub fn ngspice(name: &str, netlist: &str) -> Result<HashMap<String, f64>, String> {
+/// Writes `netlist` (with `{out}` replaced by the data file's path) and runs it through
+/// `ngspice -b`: (its output, the data file's path). Fails on a run ngspice reports aborted or
+/// in error.
+fn batch(name: &str, netlist: &str) -> Result<(String, std::path::PathBuf), String> {
     let dir = std::env::temp_dir().join(format!("coilward-sim-ngspice-{}", std::process::id()));
-    std::fs::create_dir_all(&dir).expect("temp dir");
+    std::fs::create_dir_all(&dir).map_err(|e| format!("temp dir {}: {e}", dir.display()))?;
+    let data = dir.join(format!("{name}.data"));
     let path = dir.join(format!("{name}.cir"));
-    std::fs::write(&path, netlist).expect("write netlist");
+    std::fs::write(&path, netlist.replace("{out}", &data.display().to_string()))
+        .map_err(|e| format!("write {}: {e}", path.display()))?;
     let out = Command::new("ngspice")
         .arg("-b")
         .arg(&path)
         .output()
         .map_err(|e| format!("cannot run ngspice (apt-get install ngspice): {e}"))?;
-    let text =
+    let log =
         String::from_utf8_lossy(&out.stdout).into_owned() + &String::from_utf8_lossy(&out.stderr);
-    if text.contains("aborted") || text.contains("Error") {
-        return Err(format!("ngspice failed on {name}:\n{text}"));
+    if log.contains("aborted") || log.contains("Error") {
+        return Err(format!("ngspice failed on {name}:\n{log}"));
     }
+    Ok((log, data))
+}
+
+/// Runs a netlist through ngspice in batch mode and returns its `.meas` results.
+pub fn ngspice(name: &str, netlist: &str) -> Result<HashMap<String, f64>, String> {
+    let (text, _) = batch(name, netlist)?;
     let mut found = HashMap::new();
     for line in text.lines() {
         let mut parts = line.split_whitespace();
@@ -188,29 +198,12 @@ pub fn plant(k: &Case) -> Result<(f64, f64, Option<f64>, f64, f64), PlantError> 
 /// Runs a netlist whose control block writes one vector with `wrdata FILE` (the netlist must
 /// name the file as `{out}`, replaced here) and returns its (time, value) pairs.
 pub fn ngspice_trace(name: &str, netlist: &str) -> Result<Vec<(f64, f64)>, String> {
-    let dir = std::env::temp_dir().join(format!("coilward-sim-ngspice-{}", std::process::id()));
-    std::fs::create_dir_all(&dir).map_err(|e| e.to_string())?;
-    let data = dir.join(format!("{name}.data"));
-    let path = dir.join(format!("{name}.cir"));
-    std::fs::write(&path, netlist.replace("{out}", &data.display().to_string()))
-        .map_err(|e| e.to_string())?;
-    let out = Command::new("ngspice")
-        .arg("-b")
-        .arg(&path)
-        .output()
-        .map_err(|e| format!("cannot run ngspice (apt-get install ngspice): {e}"))?;
-    let log =
-        String::from_utf8_lossy(&out.stdout).into_owned() + &String::from_utf8_lossy(&out.stderr);
-    if log.contains("aborted") || log.contains("too small") || log.contains("Error") {
+    let (log, data) = batch(name, netlist)?;
+    if log.contains("too small") {
         return Err(format!("ngspice failed on {name}:\n{log}"));
     }
-    let text = std::fs::read_to_string(&data).map_err(|e| {
-        format!(
-            "ngspice wrote no data for {name} ({e}):\n{}{}",
-            String::from_utf8_lossy(&out.stdout),
-            String::from_utf8_lossy(&out.stderr)
-        )
-    })?;
+    let text = std::fs::read_to_string(&data)
+        .map_err(|e| format!("ngspice wrote no data for {name} ({e}):\n{log}"))?;
     Ok(text
         .lines()
         .filter_map(|l| {
