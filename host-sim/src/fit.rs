@@ -644,23 +644,12 @@ fn fit_rise(
     }
     let v = o.supply;
     let total = v / inf;
-    // L = τ·V/I∞, R = V/I∞ − R_s: first-order propagation with the (I∞, τ) covariance.
-    let (ci, ct, cit) = (l.cov[1][1], l.cov[2][2], l.cov[1][2]);
-    let (dl_di, dl_dt) = (-tau * v / (inf * inf), v / inf);
-    let var_l = dl_di * dl_di * ci + dl_dt * dl_dt * ct + 2.0 * dl_di * dl_dt * cit;
-    let dr_di = -v / (inf * inf);
     let covered = (t[end] - t0) / tau;
     if covered < 0.5 {
         return Err(Problem::TooShort { covered, tau });
     }
-    let inductance = Value {
-        value: tau * total,
-        sigma: var_l.max(0.0).sqrt(),
-    };
-    let resistance = Value {
-        value: total - o.series_resistance,
-        sigma: (dr_di * dr_di * ci).max(0.0).sqrt(),
-    };
+    let (inductance, resistance) =
+        coil_values(inf, tau, (l.cov[1][1], l.cov[2][2], l.cov[1][2]), o);
     let saturation = if dip_out.is_none() {
         saturation(&t[k0..=end], &y[k0..=end], b, v, total, sigma)
     } else {
@@ -710,21 +699,36 @@ fn fit_after_dip(
     if !(inf > 0.0 && tau > 0.0) || span < 0.5 * tau {
         return None;
     }
+    Some(coil_values(
+        inf,
+        tau,
+        (l.cov[1][1], l.cov[2][2], l.cov[1][2]),
+        o,
+    ))
+}
+
+/// L = τ·V/I∞ and R = V/I∞ − R_s from a fitted steady current and time constant, with
+/// first-order uncertainties from their variances and covariance `(var I∞, var τ, cov)`.
+fn coil_values(
+    inf: f64,
+    tau: f64,
+    (ci, ct, cit): (f64, f64, f64),
+    o: &FitOptions,
+) -> (Value, Value) {
     let v = o.supply;
-    let (ci, ct, cit) = (l.cov[1][1], l.cov[2][2], l.cov[1][2]);
     let (dl_di, dl_dt) = (-tau * v / (inf * inf), v / inf);
     let var_l = dl_di * dl_di * ci + dl_dt * dl_dt * ct + 2.0 * dl_di * dl_dt * cit;
-    let dr = -v / (inf * inf);
-    Some((
+    let dr_di = -v / (inf * inf);
+    (
         Value {
             value: tau * v / inf,
             sigma: var_l.max(0.0).sqrt(),
         },
         Value {
             value: v / inf - o.series_resistance,
-            sigma: (dr * dr * ci).max(0.0).sqrt(),
+            sigma: (dr_di * dr_di * ci).max(0.0).sqrt(),
         },
-    ))
+    )
 }
 
 /// Where the incremental inductance falls below 90 % of its low-current value and stays there.
