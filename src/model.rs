@@ -19,16 +19,17 @@
 //! the turn-off peak when nothing clamps the switch.
 
 use crate::params::{
-    ClampPath, ConfigError, Conflict, Field, Params, Problem, in_range, non_negative, positive,
+    ClampPath, CoilParams, ConfigError, Conflict, ControlParams, Field, Params, Problem,
+    SupplyParams, SwitchParams, in_range, non_negative, positive,
 };
 use crate::qmath::{DUTY_DIGITS, DecayTable, EVENT_DIGITS, Gain};
 
 /// Headroom of the current format: asymptotes must stay within ±2²¹ full scale.
-const ASYMPTOTE_LIMIT: f64 = 2_097_152.0;
+pub(crate) const ASYMPTOTE_LIMIT: f64 = 2_097_152.0;
 /// Smallest supported ratio of period to the longest time constant (2⁻²⁴).
-const MIN_PERIOD_OVER_TAU: f64 = 1.0 / 16_777_216.0;
+pub(crate) const MIN_PERIOD_OVER_TAU: f64 = 1.0 / 16_777_216.0;
 /// Supported time constants, s.
-const TAU_RANGE: (f64, f64) = (1e-6, 100.0);
+pub(crate) const TAU_RANGE: (f64, f64) = (1e-6, 100.0);
 
 /// Which kind of path carries the current at turn-off.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -144,8 +145,117 @@ pub(crate) fn q32_signed(v: f64) -> i64 {
     }
 }
 
+/// The validated coil at its winding temperature (SI, f64).
+pub(crate) struct Winding {
+    /// Inductance, H.
+    pub(crate) l: f64,
+    /// Resistance at the winding temperature, Ω.
+    pub(crate) r: f64,
+    /// Switch-node capacitance, F.
+    pub(crate) cap: Option<f64>,
+}
+
+/// Validates the supply: `(nominal, min, max)` in volts.
+pub(crate) fn supply_values(s: &SupplyParams) -> Result<(f64, f64, f64), ConfigError> {
+    let v_nom = f64::from(positive(Field::SupplyNominal, s.nominal, 0.1, 1000.0)?);
+    let v_min = f64::from(non_negative(Field::SupplyMin, s.min, 1000.0)?);
+    let v_max = f64::from(positive(Field::SupplyMax, s.max, 0.1, 1000.0)?);
+    if v_min > v_nom {
+        return Err(ConfigError::conflict(
+            Field::SupplyMin,
+            Conflict::MinAboveNominal,
+        ));
+    }
+    if v_max < v_nom {
+        return Err(ConfigError::conflict(
+            Field::SupplyMax,
+            Conflict::MaxBelowNominal,
+        ));
+    }
+    Ok((v_nom, v_min, v_max))
+}
+
+/// Validates the coil and corrects its resistance to the winding temperature.
+pub(crate) fn coil_values(c: &CoilParams) -> Result<Winding, ConfigError> {
+    let l = f64::from(positive(Field::CoilInductance, c.inductance, 1e-6, 1e3)?);
+    let r_ref = f64::from(positive(Field::CoilResistance, c.resistance, 1e-3, 1e5)?);
+    let t_ref = f64::from(in_range(
+        Field::CoilReferenceTemperature,
+        c.reference_temperature,
+        -100.0,
+        300.0,
+    )?);
+    let alpha = f64::from(non_negative(
+        Field::CoilTemperatureCoefficient,
+        c.temperature_coefficient,
+        0.02,
+    )?);
+    let t_wind = f64::from(in_range(
+        Field::CoilWindingTemperature,
+        c.winding_temperature,
+        -100.0,
+        300.0,
+    )?);
+    let cap = match c.node_capacitance {
+        Some(v) => Some(f64::from(positive(
+            Field::CoilNodeCapacitance,
+            v,
+            1e-15,
+            1e-3,
+        )?)),
+        None => None,
+    };
+    let r = r_ref * (1.0 + alpha * (t_wind - t_ref));
+    if !(1e-3..=1e5).contains(&r) {
+        return Err(ConfigError::conflict(
+            Field::CoilWindingTemperature,
+            Conflict::ResistanceAtTemperature,
+        ));
+    }
+    Ok(Winding { l, r, cap })
+}
+
+/// Validates a switch against the maximum supply: `(on_resistance, breakdown)`.
+pub(crate) fn switch_values(s: &SwitchParams, v_max: f64) -> Result<(f64, f64), ConfigError> {
+    let r_on = f64::from(non_negative(
+        Field::SwitchOnResistance,
+        s.on_resistance,
+        1e3,
+    )?);
+    let bv = f64::from(positive(Field::SwitchBreakdown, s.breakdown, 1.0, 5000.0)?);
+    if bv <= v_max {
+        return Err(ConfigError::conflict(
+            Field::SwitchBreakdown,
+            Conflict::BreakdownNotAboveSupply,
+        ));
+    }
+    Ok((r_on, bv))
+}
+
+/// Validates the control timing: `(period s, duty resolution, full-scale current A)`.
+pub(crate) fn control_values(c: &ControlParams) -> Result<(f64, u32, f64), ConfigError> {
+    let t = f64::from(positive(Field::ControlPeriod, c.period, 1e-7, 1.0)?);
+    let n_full = c.duty_resolution;
+    if !(1..=65_535).contains(&n_full) {
+        return Err(ConfigError::new(
+            Field::ControlDutyResolution,
+            Problem::OutOfRange {
+                min: 1.0,
+                max: 65_535.0,
+            },
+        ));
+    }
+    let fs = f64::from(positive(
+        Field::ControlCurrentFullScale,
+        c.current_full_scale,
+        1e-4,
+        1e4,
+    )?);
+    Ok((t, n_full, fs))
+}
+
 /// Rounds volts to U16F16 bits, saturating.
-fn volts_bits(v: f64) -> u32 {
+pub(crate) fn volts_bits(v: f64) -> u32 {
     let x = libm::round(v * 65_536.0);
     if x <= 0.0 {
         0
@@ -162,84 +272,10 @@ impl Model {
     /// # Errors
     /// The first problem found, naming its field; see [`Conflict`] for the cross-checks.
     pub fn new(p: &Params) -> Result<Self, ConfigError> {
-        // Supply.
-        let v_nom = f64::from(positive(
-            Field::SupplyNominal,
-            p.supply.nominal,
-            0.1,
-            1000.0,
-        )?);
-        let v_min = f64::from(non_negative(Field::SupplyMin, p.supply.min, 1000.0)?);
-        let v_max = f64::from(positive(Field::SupplyMax, p.supply.max, 0.1, 1000.0)?);
-        if v_min > v_nom {
-            return Err(ConfigError::conflict(
-                Field::SupplyMin,
-                Conflict::MinAboveNominal,
-            ));
-        }
-        if v_max < v_nom {
-            return Err(ConfigError::conflict(
-                Field::SupplyMax,
-                Conflict::MaxBelowNominal,
-            ));
-        }
+        let (v_nom, _, v_max) = supply_values(&p.supply)?;
+        let Winding { l, r, cap } = coil_values(&p.coil)?;
 
-        // Coil.
-        let c = &p.coil;
-        let l = f64::from(positive(Field::CoilInductance, c.inductance, 1e-6, 1e3)?);
-        let r_ref = f64::from(positive(Field::CoilResistance, c.resistance, 1e-3, 1e5)?);
-        let t_ref = f64::from(in_range(
-            Field::CoilReferenceTemperature,
-            c.reference_temperature,
-            -100.0,
-            300.0,
-        )?);
-        let alpha = f64::from(non_negative(
-            Field::CoilTemperatureCoefficient,
-            c.temperature_coefficient,
-            0.02,
-        )?);
-        let t_wind = f64::from(in_range(
-            Field::CoilWindingTemperature,
-            c.winding_temperature,
-            -100.0,
-            300.0,
-        )?);
-        let cap = match c.node_capacitance {
-            Some(v) => Some(f64::from(positive(
-                Field::CoilNodeCapacitance,
-                v,
-                1e-15,
-                1e-3,
-            )?)),
-            None => None,
-        };
-        let r = r_ref * (1.0 + alpha * (t_wind - t_ref));
-        if !(1e-3..=1e5).contains(&r) {
-            return Err(ConfigError::conflict(
-                Field::CoilWindingTemperature,
-                Conflict::ResistanceAtTemperature,
-            ));
-        }
-
-        // Switch.
-        let r_on = f64::from(non_negative(
-            Field::SwitchOnResistance,
-            p.switch.on_resistance,
-            1e3,
-        )?);
-        let bv = f64::from(positive(
-            Field::SwitchBreakdown,
-            p.switch.breakdown,
-            1.0,
-            5000.0,
-        )?);
-        if bv <= v_max {
-            return Err(ConfigError::conflict(
-                Field::SwitchBreakdown,
-                Conflict::BreakdownNotAboveSupply,
-            ));
-        }
+        let (r_on, bv) = switch_values(&p.switch, v_max)?;
 
         // Clamp path: kind, V_p, R_p (relations with the full scale checked below).
         let (kind, v_p, r_p) = match p.clamp {
@@ -283,24 +319,7 @@ impl Model {
             }
         };
 
-        // Control.
-        let t = f64::from(positive(Field::ControlPeriod, p.control.period, 1e-7, 1.0)?);
-        let n_full = p.control.duty_resolution;
-        if !(1..=65_535).contains(&n_full) {
-            return Err(ConfigError::new(
-                Field::ControlDutyResolution,
-                Problem::OutOfRange {
-                    min: 1.0,
-                    max: 65_535.0,
-                },
-            ));
-        }
-        let fs = f64::from(positive(
-            Field::ControlCurrentFullScale,
-            p.control.current_full_scale,
-            1e-4,
-            1e4,
-        )?);
+        let (t, n_full, fs) = control_values(&p.control)?;
 
         // Relations between parts.
         match kind {
