@@ -11,6 +11,8 @@
 //! | [`Condition::ClampOverheat`] | `clamp-overheat` | the clamp device's thermal replica is at or above its ceiling |
 //! | [`Condition::CoilOverheat`] | `coil-overheat` | the winding's thermal image reached its trip level |
 //! | [`Condition::SupplyRange`] | `supply-range` | the measured supply is outside the configured window |
+//! | [`Condition::ReversalHold`] | `reversal-hold` | a bridge's change of direction waits for the current to decay and the dead time to pass |
+//! | [`Condition::SupplyPump`] | `supply-pump` | the energy a bridge returns in fast decay would pump the supply above its maximum |
 
 use core::fmt;
 
@@ -33,11 +35,15 @@ pub enum Condition {
     CoilOverheat,
     /// `supply-range`
     SupplyRange,
+    /// `reversal-hold` (full bridge only)
+    ReversalHold,
+    /// `supply-pump` (full bridge only)
+    SupplyPump,
 }
 
 impl Condition {
     /// Every condition, in bit order.
-    pub const ALL: [Condition; 7] = [
+    pub const ALL: [Condition; 9] = [
         Condition::ReleaseHold,
         Condition::CurrentLimit,
         Condition::Overcurrent,
@@ -45,6 +51,8 @@ impl Condition {
         Condition::ClampOverheat,
         Condition::CoilOverheat,
         Condition::SupplyRange,
+        Condition::ReversalHold,
+        Condition::SupplyPump,
     ];
 
     /// The stable name, e.g. `"release-hold"`.
@@ -57,11 +65,13 @@ impl Condition {
             Condition::ClampOverheat => "clamp-overheat",
             Condition::CoilOverheat => "coil-overheat",
             Condition::SupplyRange => "supply-range",
+            Condition::ReversalHold => "reversal-hold",
+            Condition::SupplyPump => "supply-pump",
         }
     }
 
-    const fn bit(self) -> u8 {
-        1 << (self as u8)
+    const fn bit(self) -> u16 {
+        1 << (self as u16)
     }
 }
 
@@ -71,10 +81,10 @@ impl fmt::Display for Condition {
     }
 }
 
-/// A set of conditions (a bit set; `Copy`, one byte).
+/// A set of conditions (a bit set; `Copy`, two bytes).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Default)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub struct Conditions(u8);
+pub struct Conditions(u16);
 
 impl Conditions {
     /// The empty set.
@@ -277,7 +287,7 @@ mod tests {
 
     #[test]
     fn names_are_stable() {
-        let names: [&str; 7] = Condition::ALL.map(Condition::name);
+        let names: [&str; 9] = Condition::ALL.map(Condition::name);
         assert_eq!(
             names,
             [
@@ -287,7 +297,9 @@ mod tests {
                 "clamp-pulse",
                 "clamp-overheat",
                 "coil-overheat",
-                "supply-range"
+                "supply-range",
+                "reversal-hold",
+                "supply-pump"
             ]
         );
     }

@@ -23,6 +23,7 @@
 )]
 
 mod adc;
+pub mod bridge;
 mod clamp;
 mod condition;
 mod estimate;
@@ -50,4 +51,4 @@ pub use params::{
     Field, Params, Problem, SupplyParams, SwitchParams,
 };
 pub use steady::SteadyState;
-pub use units::{Current, Energy, Volts};
+pub use units::{Charge, Current, Energy, SignedVolts, Speed, Volts};

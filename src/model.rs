@@ -216,7 +216,7 @@ pub(crate) fn coil_values(c: &CoilParams) -> Result<Winding, ConfigError> {
 }
 
 /// Validates a switch against the maximum supply: `(on_resistance, breakdown)`.
-pub(crate) fn switch_values(s: &SwitchParams, v_max: f64) -> Result<(f64, f64), ConfigError> {
+pub(crate) fn switch_values(s: SwitchParams, v_max: f64) -> Result<(f64, f64), ConfigError> {
     let r_on = f64::from(non_negative(
         Field::SwitchOnResistance,
         s.on_resistance,
@@ -275,7 +275,7 @@ impl Model {
         let (v_nom, _, v_max) = supply_values(&p.supply)?;
         let Winding { l, r, cap } = coil_values(&p.coil)?;
 
-        let (r_on, bv) = switch_values(&p.switch, v_max)?;
+        let (r_on, bv) = switch_values(p.switch, v_max)?;
 
         // Clamp path: kind, V_p, R_p (relations with the full scale checked below).
         let (kind, v_p, r_p) = match p.clamp {

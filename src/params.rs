@@ -293,6 +293,22 @@ pub enum Field {
     HoldPullInTime,
     /// `hold.hold_current`
     HoldCurrent,
+    /// `body_diode.forward_drop` (full bridge)
+    BodyDiodeForwardDrop,
+    /// `body_diode.resistance` (full bridge)
+    BodyDiodeResistance,
+    /// `decay.fast_share` (full bridge, mixed decay)
+    DecayFastShare,
+    /// `motor.back_emf_limit` (full bridge)
+    MotorBackEmfLimit,
+    /// `motor.constant` (full bridge)
+    MotorConstant,
+    /// `bus.capacitance` (full bridge)
+    BusCapacitance,
+    /// `bus.sink_current` (full bridge)
+    BusSinkCurrent,
+    /// `guard.reversal_dead_time` (full bridge)
+    GuardReversalDeadTime,
 }
 
 impl Field {
@@ -336,6 +352,14 @@ impl Field {
             Field::HoldPullInCurrent => "hold.pull_in_current",
             Field::HoldPullInTime => "hold.pull_in_time",
             Field::HoldCurrent => "hold.hold_current",
+            Field::BodyDiodeForwardDrop => "body_diode.forward_drop",
+            Field::BodyDiodeResistance => "body_diode.resistance",
+            Field::DecayFastShare => "decay.fast_share",
+            Field::MotorBackEmfLimit => "motor.back_emf_limit",
+            Field::MotorConstant => "motor.constant",
+            Field::BusCapacitance => "bus.capacitance",
+            Field::BusSinkCurrent => "bus.sink_current",
+            Field::GuardReversalDeadTime => "guard.reversal_dead_time",
         }
     }
 }
@@ -396,6 +420,15 @@ pub enum Conflict {
     TripBelowCeiling,
     /// The release current is at or above the trip current.
     ReleaseNotBelowTrip,
+    /// The back-EMF limit is above the minimum supply: at the lowest supply a spinning motor
+    /// could drive current through the body diodes with every switch off.
+    BackEmfAboveMinSupply,
+    /// With every switch off a blocking switch sees the supply plus two body-diode drops (at
+    /// full-scale current); at maximum supply that reaches the breakdown.
+    BodyDiodesReachBreakdown,
+    /// The resting supply is already at its maximum: the bulk capacitance has no headroom to
+    /// take returned energy.
+    NoBusHeadroom,
 }
 
 /// A parameter was refused: which one, and why.
@@ -450,6 +483,15 @@ impl fmt::Display for Conflict {
             }
             Conflict::TripBelowCeiling => "trip current is below the current ceiling",
             Conflict::ReleaseNotBelowTrip => "release current is at or above the trip current",
+            Conflict::BackEmfAboveMinSupply => {
+                "back-EMF limit is above the minimum supply, so the motor could conduct through the body diodes"
+            }
+            Conflict::BodyDiodesReachBreakdown => {
+                "maximum supply plus two body-diode drops at full-scale current reaches the switch breakdown"
+            }
+            Conflict::NoBusHeadroom => {
+                "nominal supply equals the maximum, leaving no headroom for returned energy"
+            }
         })
     }
 }

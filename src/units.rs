@@ -6,14 +6,52 @@
 //! | supply, node voltage | [`Volts`] = `U16F16` | u32, 16 fractional bits, volts | 0 ..= 65535.99998 V | 15.3 µV |
 //! | energy | [`Energy`] | u64, 32 fractional bits, units of L·I_fs² | 0 ..= 4.29·10⁹ units | 2.3·10⁻¹⁰ unit |
 //! | time | `u32` | microseconds | 0 ..= 4295 s | 1 µs |
+//! | back-EMF (bridge) | [`SignedVolts`] = `I16F16` | i32, 16 fractional bits, volts | ±32768 V | 15.3 µV |
+//! | speed (bridge) | [`Speed`] = `I16F16` | i32, 16 fractional bits, rad/s | ±32768 rad/s | 15.3 µrad/s |
+//! | charge (bridge) | [`Charge`] | i64, 16 fractional bits, full-scale current for one timer count | ±1.4·10¹⁴ units | 1.5·10⁻⁵ unit |
 //!
 //! L·I_fs² is twice the energy the coil stores at full-scale current, so a turn-off from full
 //! scale into an ideal freewheel path is 0.5 unit.
 
-use fixed::types::{I24F40, U16F16, U32F32};
+use fixed::types::{I16F16, I24F40, U16F16, U32F32};
 
 /// Volts in unsigned Q16.16 (0 ..= 65535.99998 V, resolution 15.3 µV).
 pub type Volts = U16F16;
+
+/// Signed volts in Q16.16 (±32768 V, resolution 15.3 µV): a motor's back-EMF.
+pub type SignedVolts = I16F16;
+
+/// Signed rad/s in Q16.16 (±32768 rad/s, about ±313 000 rpm): a motor's speed.
+pub type Speed = I16F16;
+
+/// A charge: signed Q47.16 in units of the full-scale current flowing for one timer count
+/// (`I_fs·T/N`; [`BridgeModel::coulombs`](crate::bridge::BridgeModel::coulombs) converts).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Default)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct Charge(i64);
+
+impl Charge {
+    /// No charge.
+    pub const ZERO: Charge = Charge(0);
+    /// Fractional bits of the raw value.
+    pub const FRAC_BITS: u32 = 16;
+
+    /// From the raw value.
+    pub const fn from_bits(bits: i64) -> Self {
+        Charge(bits)
+    }
+
+    /// The raw value.
+    pub const fn to_bits(self) -> i64 {
+        self.0
+    }
+
+    /// Sum, saturating.
+    #[must_use]
+    pub const fn saturating_add(self, other: Self) -> Self {
+        Charge(self.0.saturating_add(other.0))
+    }
+}
 
 /// A coil current: signed Q23.40 fraction of the model's full-scale current.
 ///

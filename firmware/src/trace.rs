@@ -136,7 +136,7 @@ pub fn run(mut sink: impl FnMut(u32, u32)) -> Option<u64> {
                 bits |= 1 << i;
             }
             if out.latched.contains(*c) {
-                bits |= 1 << (i + 8);
+                bits |= 1 << (i + 16);
             }
         }
         h.word(bits);

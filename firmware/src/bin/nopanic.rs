@@ -7,7 +7,14 @@
 #![no_std]
 #![no_main]
 
-use coilward::{Current, EventLog, Guard, HoldPhase, Input, PullInHold, SupplySense, Volts};
+use coilward::bridge::{
+    AppliedDecay, BodyDiode, BridgeGuard, BridgeInput, BridgeLimits, BridgeParams, DecayMode,
+    MotorParams,
+};
+use coilward::{
+    CoilParams, ControlParams, Current, EventLog, Guard, HoldPhase, Input, PullInHold, SignedVolts,
+    Speed, SupplyParams, SupplySense, SwitchParams, Volts,
+};
 use coilward_firmware::trace;
 use core::hint::black_box;
 use cortex_m_rt::entry;
@@ -40,7 +47,42 @@ fn main() -> ! {
     let mut state = black_box(guard.start_after_reset());
     let mut log = EventLog::<8>::new();
     let mut phase = HoldPhase::default();
+    // The full bridge: a demo motor winding, mixed decay, a back-EMF input.
+    let bridge_params = black_box(
+        BridgeParams::new(
+            SupplyParams::new(12.0, 10.0, 14.0),
+            CoilParams::new(2e-3, 4.0),
+            SwitchParams::new(0.05, 40.0),
+            BodyDiode::new(0.8, 0.02),
+            DecayMode::Mixed { fast_share: 0.3 },
+            ControlParams::new(50e-6, 1000, 4.0),
+        )
+        .with_motor(MotorParams::new(9.0, 0.01)),
+    );
+    let bridge = BridgeGuard::new(
+        &bridge_params,
+        &black_box(BridgeLimits::new(2.5, 3.0, 0.05, 1e-3)),
+    );
+    let mut bridge_state = bridge.as_ref().ok().map(BridgeGuard::start_after_reset);
     loop {
+        if let (Ok(b), Some(s)) = (&bridge, bridge_state.as_mut()) {
+            let emf = b
+                .model()
+                .back_emf_from_speed(black_box(Speed::from_bits(black_box(-1 << 20))));
+            let out = b.tick(
+                s,
+                BridgeInput::new(black_box(-700), Volts::from_bits(black_box(12 << 16)))
+                    .with_back_emf(black_box(emf)),
+            );
+            black_box(out.plan.only_phase());
+            black_box(b.model().decay_time_us(
+                black_box(out.estimate.end),
+                Current::ZERO,
+                Volts::from_bits(black_box(12 << 16)),
+                black_box(SignedVolts::ZERO),
+                black_box(AppliedDecay::Configured),
+            ));
+        }
         let counts: u16 = black_box(2700);
         let vs = match &sense {
             Ok(s) => s.volts(counts),

@@ -1,0 +1,586 @@
+//! The bridge guard: the reversal interlock, the current ceiling, the trip, the supply window
+//! and the returned-charge tracker, once per control period.
+//!
+//! # Protections
+//! - **Reversal interlock** (`reversal-hold`): a request in the other direction than the last
+//!   drive is held (output off, the configured decay running) until the current magnitude is
+//!   at or below the release current and then, with the output still off, for the configured
+//!   dead time (whole periods, rounded up). Driving again in the same direction is ordinary
+//!   PWM and is not held. After a reset the direction of a possible current is unknown, so
+//!   both directions wait.
+//! - **Current ceiling** (`current-limit`): the drive part's predicted peak magnitude must stay
+//!   at or below the ceiling; otherwise the largest duty that satisfies it is found by
+//!   bisection over the counts (at most 16 table evaluations).
+//! - **Trip** (`overcurrent`): the current magnitude (now or at the period's extreme) above the
+//!   trip current.
+//! - **Supply window** (`supply-range`): as for the low-side guard.
+//! - **Returned charge** (`supply-pump`, with a bus configured): the charge on the bulk
+//!   capacitance above its resting level is tracked per period in the period's order: the
+//!   drive part draws first (`q ← max(0, q − drawn)`, the supply sourcing the rest), then the
+//!   fast part returns (`q ← q + max(0, returned − I_sink·t_fast)`), with the supply taken as
+//!   stiff for the coil (a rising bus returns less, so `q` can only be overstated). `q` is
+//!   the peak of the period. The condition is raised when one more period like the last
+//!   would take `q` past `C·(V_max − V_nom)`, and stays until `q` is back below half of
+//!   that.
+//!   While it is active the default response turns the off part into slow decay, which
+//!   returns nothing.
+//!
+//! # Panics
+//! None: inputs are clamped, sums saturate, shifts are checked.
+
+use crate::bridge::drive::PeriodPlan;
+use crate::bridge::{AppliedDecay, BridgeCoil, BridgeEstimate, BridgeModel, BridgeParams};
+use crate::condition::{Action, Condition, Conditions};
+use crate::params::{ConfigError, Conflict, Field, positive};
+use crate::units::{Charge, Current, SignedVolts, Volts};
+
+/// What the guard does while `supply-pump` is active.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub enum PumpResponse {
+    /// Flag it only.
+    Report,
+    /// Use slow decay for the whole off part until it clears (default).
+    Recirculate,
+}
+
+/// The action of each configurable bridge condition.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub struct BridgePolicy {
+    /// `overcurrent`; default [`Action::Trip`].
+    pub overcurrent: Action,
+    /// `supply-range` below the minimum; default [`Action::Report`].
+    pub supply_low: Action,
+    /// `supply-range` above the maximum; default [`Action::Trip`].
+    pub supply_high: Action,
+    /// `supply-pump`; default [`PumpResponse::Recirculate`].
+    pub supply_pump: PumpResponse,
+}
+
+impl Default for BridgePolicy {
+    fn default() -> Self {
+        Self {
+            overcurrent: Action::Trip,
+            supply_low: Action::Report,
+            supply_high: Action::Trip,
+            supply_pump: PumpResponse::Recirculate,
+        }
+    }
+}
+
+/// The bridge guard's limits in SI units (configuration time).
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub struct BridgeLimits {
+    /// Highest predicted peak magnitude the duty may produce, A.
+    pub current_ceiling: f32,
+    /// Magnitude above which the output trips, A (at or above the ceiling).
+    pub trip_current: f32,
+    /// Magnitude at or below which the direction may change, A (> 0, below the trip current).
+    pub release_current: f32,
+    /// Wait after the current has decayed before the other direction is driven, s
+    /// (0 ..= 10).
+    pub reversal_dead_time: f32,
+    /// What each condition does.
+    pub policy: BridgePolicy,
+}
+
+impl BridgeLimits {
+    /// Ceiling, trip and release currents (A) and the reversal dead time (s); default
+    /// policies.
+    pub fn new(
+        current_ceiling: f32,
+        trip_current: f32,
+        release_current: f32,
+        reversal_dead_time: f32,
+    ) -> Self {
+        Self {
+            current_ceiling,
+            trip_current,
+            release_current,
+            reversal_dead_time,
+            policy: BridgePolicy::default(),
+        }
+    }
+}
+
+/// One period's input to the bridge guard.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub struct BridgeInput {
+    /// Requested signed duty for the coming period, counts (positive: current from leg A to
+    /// leg B), clamped to ±the resolution.
+    pub duty: i32,
+    /// Supply measured during the period just ended.
+    pub supply: Volts,
+    /// Back-EMF during the period just ended (zero: stalled, the worst case for current).
+    pub back_emf: SignedVolts,
+}
+
+impl BridgeInput {
+    /// A request of `duty` counts at the measured `supply`, with the rotor taken as stalled.
+    pub const fn new(duty: i32, supply: Volts) -> Self {
+        Self {
+            duty,
+            supply,
+            back_emf: SignedVolts::ZERO,
+        }
+    }
+
+    /// The same input with a measured or estimated back-EMF.
+    #[must_use]
+    pub const fn with_back_emf(mut self, back_emf: SignedVolts) -> Self {
+        self.back_emf = back_emf;
+        self
+    }
+}
+
+/// What the bridge guard decided.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct BridgeOutput {
+    /// Signed duty for the coming period, counts.
+    pub duty: i32,
+    /// The off part for the coming period.
+    pub decay: AppliedDecay,
+    /// The switch states for the coming period.
+    pub plan: PeriodPlan,
+    /// Conditions active now.
+    pub active: Conditions,
+    /// Conditions that became active in this call.
+    pub raised: Conditions,
+    /// Conditions that ended in this call.
+    pub cleared: Conditions,
+    /// Trips latched.
+    pub latched: Conditions,
+    /// The estimate over the period just ended.
+    pub estimate: BridgeEstimate,
+    /// Predicted peak magnitude of the coming period's drive.
+    pub predicted_peak: Current,
+    /// While `reversal-hold` is active: the time left, µs (decay plus dead time; `None`: the
+    /// current will not decay that far).
+    pub reversal_in_us: Option<u32>,
+    /// Charge on the bulk capacitance above its resting level (zero without a bus).
+    pub bus_charge: Charge,
+}
+
+/// The direction of the last drive.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+enum Direction {
+    /// Not driven yet, no current known.
+    None,
+    Forward,
+    Reverse,
+    /// After a reset: a current of unknown sign may flow; both directions wait.
+    Unknown,
+}
+
+impl Direction {
+    const fn of(x: i64) -> Self {
+        if x > 0 {
+            Direction::Forward
+        } else if x < 0 {
+            Direction::Reverse
+        } else {
+            Direction::None
+        }
+    }
+}
+
+/// Per-channel state of the bridge guard.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct BridgeState {
+    coil: BridgeCoil,
+    applied: i32,
+    decay: AppliedDecay,
+    direction: Direction,
+    /// Consecutive periods with the output off and the current at or below the release level.
+    quiet: u32,
+    /// Charge on the bulk capacitance above rest, Charge bits.
+    bus: i64,
+    returned: Charge,
+    active: Conditions,
+    latched: Conditions,
+}
+
+impl BridgeState {
+    /// The signed coil current estimate.
+    pub const fn current(&self) -> Current {
+        self.coil.current()
+    }
+
+    /// The duty applied for the current period.
+    pub const fn applied(&self) -> i32 {
+        self.applied
+    }
+
+    /// Conditions active after the last call.
+    pub const fn active(&self) -> Conditions {
+        self.active
+    }
+
+    /// Trips latched.
+    pub const fn latched(&self) -> Conditions {
+        self.latched
+    }
+
+    /// Total charge returned to the supply in fast decay since the start (upper bound).
+    pub const fn returned(&self) -> Charge {
+        self.returned
+    }
+
+    /// Records that the hardware may be applying `duty` (used when a write failed).
+    pub(crate) fn assume_applied(&mut self, duty: i32) {
+        self.applied = duty;
+    }
+}
+
+/// The validated bridge guard. See the module documentation.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BridgeGuard {
+    model: BridgeModel,
+    ceiling: i64,
+    trip: i64,
+    release: i64,
+    dead_periods: u32,
+    period_us: u32,
+    policy: BridgePolicy,
+    supply_min: u32,
+    supply_max: u32,
+    worst_current: i64,
+}
+
+fn amps_to_raw(model: &BridgeModel, field: Field, amps: f32) -> Result<i64, ConfigError> {
+    let fs = model.derived().full_scale;
+    let a = positive(field, amps, fs * 1e-6, fs * 2_097_152.0)?;
+    model
+        .current_from_amps(a)
+        .map(Current::to_bits)
+        .ok_or(ConfigError::new(
+            field,
+            crate::Problem::OutOfRange {
+                min: fs * 1e-6,
+                max: fs * 2_097_152.0,
+            },
+        ))
+}
+
+impl BridgeGuard {
+    /// Validates the drive and the limits.
+    ///
+    /// # Errors
+    /// The first problem found, naming its field (drive fields first, then the guard's).
+    pub fn new(params: &BridgeParams, limits: &BridgeLimits) -> Result<Self, ConfigError> {
+        let model = params.validate()?;
+        let ceiling = amps_to_raw(&model, Field::GuardCurrentCeiling, limits.current_ceiling)?;
+        let trip = amps_to_raw(&model, Field::GuardTripCurrent, limits.trip_current)?;
+        if trip < ceiling {
+            return Err(ConfigError::conflict(
+                Field::GuardTripCurrent,
+                Conflict::TripBelowCeiling,
+            ));
+        }
+        let release = amps_to_raw(&model, Field::GuardReleaseCurrent, limits.release_current)?;
+        if release >= trip {
+            return Err(ConfigError::conflict(
+                Field::GuardReleaseCurrent,
+                Conflict::ReleaseNotBelowTrip,
+            ));
+        }
+        let dead = crate::params::non_negative(
+            Field::GuardReversalDeadTime,
+            limits.reversal_dead_time,
+            10.0,
+        )?;
+        let period = f64::from(model.derived().period);
+        let dead_periods = libm::ceil(f64::from(dead) / period - 1e-9).max(0.0) as u32;
+        let v_max = Volts::from_bits((f64::from(params.supply.max) * 65_536.0) as u32);
+        let v_min = Volts::from_bits((f64::from(params.supply.min) * 65_536.0) as u32);
+        let (_, emf_worst) = model.emf_on(
+            v_max,
+            SignedVolts::from_bits(-((f64::from(params.motor.back_emf_limit) * 65_536.0) as i32)),
+        );
+        // Worst-case magnitude after a reset: full drive at the maximum supply with the
+        // back-EMF helping, or the trip current if higher.
+        let worst_current = model
+            .drive_peak(0, 1, model.duty_resolution(), v_max.to_bits(), 0)
+            .saturating_sub(emf_worst)
+            .max(trip);
+        Ok(Self {
+            ceiling,
+            trip,
+            release,
+            dead_periods,
+            period_us: (libm::round(period * 1e6) as u32).max(1),
+            policy: limits.policy,
+            supply_min: v_min.to_bits(),
+            supply_max: v_max.to_bits(),
+            worst_current,
+            model,
+        })
+    }
+
+    /// The model the guard runs.
+    pub const fn model(&self) -> &BridgeModel {
+        &self.model
+    }
+
+    /// The reversal dead time in whole periods.
+    pub const fn dead_periods(&self) -> u32 {
+        self.dead_periods
+    }
+
+    /// State for a coil known to carry no current.
+    pub fn start_idle(&self) -> BridgeState {
+        BridgeState {
+            coil: BridgeCoil::idle(),
+            applied: 0,
+            decay: AppliedDecay::Configured,
+            direction: Direction::None,
+            quiet: u32::MAX,
+            bus: 0,
+            returned: Charge::ZERO,
+            active: Conditions::NONE,
+            latched: Conditions::NONE,
+        }
+    }
+
+    /// State for a coil known to carry `current` (signed) now, output off: a drive against
+    /// that current is a reversal.
+    pub fn start_with_current(&self, current: Current) -> BridgeState {
+        BridgeState {
+            coil: BridgeCoil::with_current(current),
+            direction: Direction::of(current.to_bits()),
+            quiet: 0,
+            ..self.start_idle()
+        }
+    }
+
+    /// State after a reset: the coil may carry the worst-case current in either direction, so
+    /// both directions wait for its full decay and the dead time.
+    pub fn start_after_reset(&self) -> BridgeState {
+        BridgeState {
+            direction: Direction::Unknown,
+            ..self.start_with_current(Current::from_bits(self.worst_current))
+        }
+    }
+
+    /// Clears latched trips. Conditions still present trip again.
+    pub fn clear(&self, state: &mut BridgeState) {
+        state.latched = Conditions::NONE;
+    }
+
+    /// One control period. `input.duty` is the request for the coming period; the guard
+    /// advances over the period just ended with the duty and decay it applied then.
+    ///
+    /// ```
+    /// use coilward::bridge::{BodyDiode, BridgeGuard, BridgeInput, BridgeLimits, BridgeParams,
+    ///                        DecayMode};
+    /// use coilward::{CoilParams, Condition, ControlParams, SupplyParams, SwitchParams, Volts};
+    /// let params = BridgeParams::new(
+    ///     SupplyParams::new(12.0, 10.0, 14.0),
+    ///     CoilParams::new(2e-3, 4.0),
+    ///     SwitchParams::new(0.05, 40.0),
+    ///     BodyDiode::new(0.8, 0.02),
+    ///     DecayMode::Fast,
+    ///     ControlParams::new(50e-6, 1000, 4.0),
+    /// );
+    /// // 2.5 A ceiling, 3 A trip, reverse below 0.05 A after 1 ms.
+    /// let guard = BridgeGuard::new(&params, &BridgeLimits::new(2.5, 3.0, 0.05, 1e-3))?;
+    /// let mut s = guard.start_idle();
+    /// let vs = Volts::from_num(12);
+    /// for _ in 0..200 {
+    ///     guard.tick(&mut s, BridgeInput::new(800, vs));
+    /// }
+    /// // Reverse: held until the current has decayed and the dead time has passed.
+    /// let out = guard.tick(&mut s, BridgeInput::new(-800, vs));
+    /// assert_eq!(out.duty, 0);
+    /// assert!(out.active.contains(Condition::ReversalHold));
+    /// let mut periods = 1;
+    /// while guard.tick(&mut s, BridgeInput::new(-800, vs)).duty == 0 {
+    ///     periods += 1;
+    /// }
+    /// assert!(periods > 20); // the 1 ms dead time alone is 20 periods
+    /// # Ok::<(), coilward::ConfigError>(())
+    /// ```
+    pub fn tick(&self, state: &mut BridgeState, input: BridgeInput) -> BridgeOutput {
+        let m = &self.model;
+        let n_full = m.duty_resolution() as i32; // <= 65535
+        // 1. The period just ended.
+        let est = m.step_with(
+            &mut state.coil,
+            state.applied,
+            input.supply,
+            input.back_emf,
+            state.decay,
+        );
+        state.returned = state.returned.saturating_add(est.returned);
+        // 2. The bus.
+        let mut pump = false;
+        if let Some(b) = m.bus {
+            // The drive part comes first: the capacitor gives back its extra charge before the
+            // supply sources the rest. Then the fast part returns charge, less what the supply
+            // sinks meanwhile.
+            let (_, fast, _) = m.split(state.applied, state.decay);
+            let sunk = b.sink_per_count.saturating_mul(i64::from(fast));
+            let gain = est.returned.to_bits().saturating_sub(sunk).max(0);
+            let drawn = est.drawn.to_bits().max(0);
+            state.bus = state.bus.saturating_sub(drawn).max(0).saturating_add(gain);
+            // One more period like this one.
+            let next = state.bus.saturating_sub(drawn).max(0).saturating_add(gain);
+            let was = state.active.contains(Condition::SupplyPump);
+            pump = next > b.headroom || (was && state.bus > b.headroom >> 1);
+        }
+        let (vs, emf_on) = m.emf_on(input.supply, input.back_emf);
+        let i_now = state.coil.current().to_bits();
+        let mag = i_now.unsigned_abs().min(Current::LIMIT.to_bits() as u64) as i64;
+        let peak = est.peak_magnitude().to_bits();
+
+        let prev = state.active;
+        let mut active = Conditions::NONE;
+        let mut hold = false;
+        let pol = self.policy;
+        let apply = |active: &mut Conditions,
+                     hold: &mut bool,
+                     latched: &mut Conditions,
+                     c: Condition,
+                     a: Action| {
+            active.insert(c);
+            match a {
+                Action::Report => {}
+                Action::Hold => *hold = true,
+                Action::Trip => latched.insert(c),
+            }
+        };
+        if vs > self.supply_max {
+            apply(
+                &mut active,
+                &mut hold,
+                &mut state.latched,
+                Condition::SupplyRange,
+                pol.supply_high,
+            );
+        } else if vs < self.supply_min {
+            apply(
+                &mut active,
+                &mut hold,
+                &mut state.latched,
+                Condition::SupplyRange,
+                pol.supply_low,
+            );
+        }
+        // An assumed (after-reset) current is a belief, not an observation: no trip on it.
+        if state.direction != Direction::Unknown && mag.max(peak) > self.trip {
+            apply(
+                &mut active,
+                &mut hold,
+                &mut state.latched,
+                Condition::Overcurrent,
+                pol.overcurrent,
+            );
+        }
+        let decay = if pump {
+            active.insert(Condition::SupplyPump);
+            match pol.supply_pump {
+                PumpResponse::Recirculate => AppliedDecay::Slow,
+                PumpResponse::Report => AppliedDecay::Configured,
+            }
+        } else {
+            AppliedDecay::Configured
+        };
+
+        // 3. The interlock.
+        state.quiet = if state.applied == 0 && mag <= self.release {
+            state.quiet.saturating_add(1)
+        } else {
+            0
+        };
+        // Not `clamp`: its min <= max assertion would be a panic path (n_full is positive).
+        let request = input.duty.min(n_full).max(-n_full);
+        let mut duty = if state.latched.is_empty() && !hold {
+            request
+        } else {
+            0
+        };
+        let wanted = Direction::of(i64::from(duty));
+        let mut reversal_in = None;
+        let reversing = duty != 0
+            && match state.direction {
+                Direction::None => false,
+                Direction::Unknown => true,
+                d => d != wanted,
+            };
+        if reversing && (mag > self.release || state.quiet < self.dead_periods) {
+            duty = 0;
+            active.insert(Condition::ReversalHold);
+            let dead_left =
+                self.dead_periods
+                    .saturating_sub(if mag > self.release { 0 } else { state.quiet });
+            reversal_in = m
+                .decay_time_us(
+                    Current::from_bits(i_now),
+                    Current::from_bits(self.release),
+                    input.supply,
+                    input.back_emf,
+                    decay,
+                )
+                .map(|t| t.saturating_add(dead_left.saturating_mul(self.period_us)));
+        } else if state.direction == Direction::Unknown
+            && mag <= self.release
+            && state.quiet >= self.dead_periods
+        {
+            // The assumed current has decayed: nothing is known to flow any more.
+            state.direction = Direction::None;
+        }
+
+        // 4. The ceiling, in the drive's direction.
+        let d = duty.signum();
+        let mut predicted = mag;
+        if duty != 0 {
+            let n = duty.unsigned_abs();
+            if m.drive_peak(i_now, d, n, vs, emf_on) > self.ceiling {
+                let (mut lo, mut hi) = (0u32, n);
+                while hi - lo > 1 {
+                    let mid = lo + (hi - lo) / 2;
+                    if m.drive_peak(i_now, d, mid, vs, emf_on) <= self.ceiling {
+                        lo = mid;
+                    } else {
+                        hi = mid;
+                    }
+                }
+                let fits = m.drive_peak(i_now, d, lo, vs, emf_on) <= self.ceiling;
+                let n = if fits { lo } else { 0 };
+                duty = d * n as i32; // n <= 65535
+                active.insert(Condition::CurrentLimit);
+            }
+            if duty != 0 {
+                predicted = m.drive_peak(i_now, d, duty.unsigned_abs(), vs, emf_on);
+                state.direction = Direction::of(i64::from(duty));
+            }
+        }
+        active = active.union(state.latched);
+        state.applied = duty;
+        state.decay = decay;
+        state.active = active;
+        BridgeOutput {
+            duty,
+            decay,
+            plan: PeriodPlan::from_split(m.split(duty, decay)),
+            active,
+            raised: active.minus(prev),
+            cleared: prev.minus(active),
+            latched: state.latched,
+            estimate: est,
+            predicted_peak: Current::from_bits(predicted.max(0)),
+            reversal_in_us: reversal_in,
+            bus_charge: Charge::from_bits(state.bus),
+        }
+    }
+}
