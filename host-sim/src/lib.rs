@@ -5,6 +5,7 @@
 //! exact piecewise-linear [`plant`] and produces a [`cosim::Run`], which [`report`] turns into
 //! a terminal summary, JSON, CSV and an SVG plot; [`sweep`] repeats it over tolerances.
 
+pub mod bridge;
 pub mod capture;
 pub mod cosim;
 pub mod faults;

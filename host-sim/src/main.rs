@@ -4,9 +4,10 @@
 //! input (the message names the file, line and key).
 
 use clap::{Parser, Subcommand};
+use coilward_sim::bridge::{self, scenario::BridgeScenario};
 use coilward_sim::cosim::{self, Options};
 use coilward_sim::report::{self, si};
-use coilward_sim::scenario::Scenario;
+use coilward_sim::scenario::{self, Scenario};
 use coilward_sim::sweep::{self, Shard};
 use indicatif::{ProgressBar, ProgressStyle};
 use std::path::{Path, PathBuf};
@@ -98,6 +99,110 @@ enum Command {
         #[arg(long, value_name = "PATH")]
         svg: Option<PathBuf>,
     },
+}
+
+/// Whether the file is a full-bridge scenario (unreadable files go down the low-side path,
+/// which reports the problem).
+fn is_bridge(file: &Path) -> bool {
+    std::fs::read_to_string(file)
+        .is_ok_and(|t| scenario::topology_of(&t) == scenario::Topology::FullBridge)
+}
+
+fn load_bridge(file: &Path) -> Result<BridgeScenario, ExitCode> {
+    BridgeScenario::load(file).map_err(|e| {
+        eprintln!("error: {e}");
+        ExitCode::from(2)
+    })
+}
+
+fn run_bridge(
+    file: &Path,
+    json: Option<&Path>,
+    csv: Option<&Path>,
+    svg: Option<&Path>,
+) -> Result<ExitCode, ExitCode> {
+    let s = load_bridge(file)?;
+    let r = bridge::cosim::run(&s, csv.is_some() || svg.is_some());
+    print!("{}", bridge::report::summary(&s, &r));
+    if let Some(p) = json {
+        write_file(p, "JSON report", |p| {
+            let text = serde_json::to_string_pretty(&bridge::report::json(&s, &r))
+                .map_err(|e| e.to_string())?;
+            std::fs::write(p, text + "\n").map_err(|e| e.to_string())
+        })?;
+        println!("  json: {}", p.display());
+    }
+    if let Some(p) = csv {
+        write_file(p, "CSV report", |p| {
+            let f = std::fs::File::create(p).map_err(|e| e.to_string())?;
+            bridge::report::csv(&r.rows, std::io::BufWriter::new(f)).map_err(|e| e.to_string())
+        })?;
+        println!("  csv: {}", p.display());
+    }
+    if let Some(p) = svg {
+        write_file(p, "plot", |p| {
+            bridge::report::svg(&s, &r, p).map_err(|e| e.to_string())
+        })?;
+        println!("  plot: {}", p.display());
+    }
+    Ok(if r.passed() {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::from(1)
+    })
+}
+
+fn check_bridge(file: &Path) -> Result<ExitCode, ExitCode> {
+    let s = load_bridge(file)?;
+    let guard = s.guard().map_err(|e| {
+        eprintln!("error: {}", s.config_error(&e));
+        ExitCode::from(2)
+    })?;
+    let m = guard.model();
+    let d = m.derived();
+    println!("{} ({}): valid (full bridge)", s.name, s.file.display());
+    for a in &s.assumed {
+        println!("  assumed: {a}");
+    }
+    println!(
+        "  time constant, driving and slow decay   {}",
+        si(f64::from(d.tau_on), "s", 4)
+    );
+    println!(
+        "  time constant, fast decay               {}",
+        si(f64::from(d.tau_fast), "s", 4)
+    );
+    println!(
+        "  stall current, 100 %, nominal supply    {}",
+        si(f64::from(d.on_current_nominal), "A", 4)
+    );
+    let c = &s.circuit;
+    let i0 = f64::from(s.limits.current_ceiling);
+    let r_f = c.resistance + 2.0 * c.diode_resistance;
+    let a = (c.supply + 2.0 * c.diode_drop) / r_f;
+    let q = c.inductance / r_f * (i0 - a * (1.0 + i0 / a).ln());
+    println!(
+        "  fast turn-off from the ceiling: {} returned ({} at {}) in {}",
+        si(q, "C", 3),
+        si(q * c.supply, "J", 3),
+        si(c.supply, "V", 3),
+        si(c.inductance / r_f * (1.0 + i0 / a).ln(), "s", 3)
+    );
+    if let Some(b) = c.bus {
+        let rise = ((c.supply * c.supply + 2.0 * q * c.supply / b.capacitance).sqrt()) - c.supply;
+        println!(
+            "  with no sink, that lifts {} to {} (max {})",
+            si(b.capacitance, "F", 3),
+            si(c.supply + rise, "V", 3),
+            si(f64::from(s.params.supply.max), "V", 3)
+        );
+    }
+    println!(
+        "  reversal dead time                      {} ({} periods)",
+        si(f64::from(s.limits.reversal_dead_time), "s", 3),
+        guard.dead_periods()
+    );
+    Ok(ExitCode::SUCCESS)
 }
 
 fn load(file: &Path) -> Result<Scenario, ExitCode> {
@@ -502,8 +607,22 @@ fn main() -> ExitCode {
             json,
             csv,
             svg,
+        } if is_bridge(file) => run_bridge(file, json.as_deref(), csv.as_deref(), svg.as_deref()),
+        Command::Run {
+            file,
+            json,
+            csv,
+            svg,
         } => run(file, json.as_deref(), csv.as_deref(), svg.as_deref()),
+        Command::Check { file } if is_bridge(file) => check_bridge(file),
         Command::Check { file } => check(file),
+        Command::Sweep { file, .. } if is_bridge(file) => {
+            eprintln!(
+                "error: {}: sweeps cover low-side scenarios only; run the full-bridge scenario with `run`",
+                file.display()
+            );
+            Err(ExitCode::from(2))
+        }
         Command::Sweep {
             file,
             samples,

@@ -38,6 +38,8 @@ type Text = Option<Spanned<String>>;
 #[serde(deny_unknown_fields)]
 struct Raw {
     name: Option<String>,
+    /// `low-side` (the default); a `full-bridge` file is read by [`crate::bridge::scenario`].
+    topology: Text,
     description: Option<String>,
     supply: RawSupply,
     coil: RawCoil,
@@ -628,21 +630,38 @@ pub struct Scenario {
 }
 
 /// Parsing context: file, text, spans.
-struct Cx<'a> {
-    file: &'a Path,
-    text: &'a str,
-    spans: HashMap<String, Range<usize>>,
+pub(crate) struct Cx<'a> {
+    pub(crate) file: &'a Path,
+    pub(crate) text: &'a str,
+    pub(crate) spans: HashMap<String, Range<usize>>,
 }
 
 impl Cx<'_> {
-    fn position(&self, offset: usize) -> (usize, usize) {
+    /// The whole file as `T`; a TOML or schema error names the line.
+    pub(crate) fn document<T: serde::de::DeserializeOwned>(&self) -> Result<T, ScenarioError> {
+        toml::from_str(self.text).map_err(|e| {
+            let at = e.span().map(|s| self.position(s.start));
+            let mut message = e.message().trim().to_string();
+            if let Some(line) = at.and_then(|(l, _)| self.text.lines().nth(l - 1)) {
+                message.push_str(&format!(" (in `{}`)", line.trim()));
+            }
+            ScenarioError {
+                file: self.file.to_path_buf(),
+                at,
+                key: None,
+                message,
+            }
+        })
+    }
+
+    pub(crate) fn position(&self, offset: usize) -> (usize, usize) {
         let before = &self.text[..offset.min(self.text.len())];
         let line = before.matches('\n').count() + 1;
         let col = before.rsplit('\n').next().map_or(0, |l| l.chars().count()) + 1;
         (line, col)
     }
 
-    fn error(
+    pub(crate) fn error(
         &self,
         key: &str,
         span: Option<Range<usize>>,
@@ -658,7 +677,12 @@ impl Cx<'_> {
     }
 
     /// A value with its unit; records the span under `key`.
-    fn value(&mut self, key: &str, raw: &Text, unit: Unit) -> Result<Option<f64>, ScenarioError> {
+    pub(crate) fn value(
+        &mut self,
+        key: &str,
+        raw: &Text,
+        unit: Unit,
+    ) -> Result<Option<f64>, ScenarioError> {
         let Some(s) = raw else { return Ok(None) };
         self.spans.insert(key.to_string(), s.span());
         units::parse(s.get_ref(), unit)
@@ -666,7 +690,12 @@ impl Cx<'_> {
             .map_err(|e| self.error(key, Some(s.span()), e.0))
     }
 
-    fn required(&mut self, key: &str, raw: &Text, unit: Unit) -> Result<f64, ScenarioError> {
+    pub(crate) fn required(
+        &mut self,
+        key: &str,
+        raw: &Text,
+        unit: Unit,
+    ) -> Result<f64, ScenarioError> {
         self.value(key, raw, unit)?.ok_or_else(|| {
             self.error(
                 key,
@@ -676,7 +705,7 @@ impl Cx<'_> {
         })
     }
 
-    fn word<'s>(
+    pub(crate) fn word<'s>(
         &mut self,
         key: &str,
         raw: &'s Text,
@@ -695,7 +724,12 @@ impl Cx<'_> {
         }
     }
 
-    fn action(&mut self, key: &str, raw: &Text, default: Action) -> Result<Action, ScenarioError> {
+    pub(crate) fn action(
+        &mut self,
+        key: &str,
+        raw: &Text,
+        default: Action,
+    ) -> Result<Action, ScenarioError> {
         Ok(match self.word(key, raw, &["report", "hold", "trip"])? {
             Some("report") => Action::Report,
             Some("hold") => Action::Hold,
@@ -704,7 +738,7 @@ impl Cx<'_> {
         })
     }
 
-    fn count(
+    pub(crate) fn count(
         &mut self,
         key: &str,
         raw: &Option<Spanned<i64>>,
@@ -724,12 +758,36 @@ impl Cx<'_> {
         }
     }
 
-    fn check(&self, key: &str, ok: bool, message: &str) -> Result<(), ScenarioError> {
+    pub(crate) fn check(&self, key: &str, ok: bool, message: &str) -> Result<(), ScenarioError> {
         if ok {
             Ok(())
         } else {
             Err(self.error(key, None, message))
         }
+    }
+}
+
+/// The circuit a scenario file describes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Topology {
+    /// One low-side switch and a clamp path (`topology = "low-side"`, the default).
+    LowSide,
+    /// Four switches around the coil (`topology = "full-bridge"`).
+    FullBridge,
+}
+
+/// The topology named by a scenario's top-level `topology` key (the low side when it has none
+/// or the text is not TOML: the full parse then reports the problem).
+pub fn topology_of(text: &str) -> Topology {
+    #[derive(Deserialize)]
+    struct Peek {
+        topology: Option<String>,
+    }
+    match toml::from_str::<Peek>(text) {
+        Ok(Peek {
+            topology: Some(t), ..
+        }) if t == "full-bridge" => Topology::FullBridge,
+        _ => Topology::LowSide,
     }
 }
 
@@ -775,19 +833,8 @@ impl Scenario {
             text,
             spans: HashMap::new(),
         };
-        let raw: Raw = toml::from_str(text).map_err(|e| {
-            let at = e.span().map(|s| cx.position(s.start));
-            let mut message = e.message().trim().to_string();
-            if let Some(line) = at.and_then(|(l, _)| text.lines().nth(l - 1)) {
-                message.push_str(&format!(" (in `{}`)", line.trim()));
-            }
-            ScenarioError {
-                file: path.to_path_buf(),
-                at,
-                key: None,
-                message,
-            }
-        })?;
+        let raw: Raw = cx.document()?;
+        cx.word("topology", &raw.topology, &["low-side"])?;
         let s = &raw.supply;
         let voltage = cx.required("supply.voltage", &s.voltage, Unit::Volt)?;
         let supply_min = cx.value("supply.min", &s.min, Unit::Volt)?;

@@ -37,6 +37,12 @@ pub enum Unit {
     Percent,
     /// Hertz.
     Hertz,
+    /// Volt-second per radian (a motor's back-EMF constant): `V·s/rad`, `V*s/rad`, `Vs/rad`.
+    VoltSecondPerRadian,
+    /// Kilogram square metre (inertia): `kg·m²`, `kg*m^2`, `kgm2`. No prefix.
+    KilogramSquareMetre,
+    /// Newton metre second (viscous friction): `N·m·s`, `N*m*s`, `Nms`.
+    NewtonMetreSecond,
 }
 
 impl Unit {
@@ -56,6 +62,9 @@ impl Unit {
             Unit::PerKelvin => "/K",
             Unit::Percent => "%",
             Unit::Hertz => "Hz",
+            Unit::VoltSecondPerRadian => "V·s/rad",
+            Unit::KilogramSquareMetre => "kg·m²",
+            Unit::NewtonMetreSecond => "N·m·s",
         }
     }
 
@@ -75,6 +84,9 @@ impl Unit {
             Unit::PerKelvin => "\"0.393 %/K\" or \"0.00393 /K\"",
             Unit::Percent => "\"60 %\"",
             Unit::Hertz => "\"100 Hz\"",
+            Unit::VoltSecondPerRadian => "\"12 mV·s/rad\"",
+            Unit::KilogramSquareMetre => "\"4e-6 kg·m²\"",
+            Unit::NewtonMetreSecond => "\"2 µN·m·s\"",
         }
     }
 
@@ -93,11 +105,17 @@ impl Unit {
             Unit::PerKelvin => &["/K", "1/K"],
             Unit::Percent => &["%"],
             Unit::Hertz => &["Hz"],
+            Unit::VoltSecondPerRadian => &["V·s/rad", "V*s/rad", "Vs/rad", "V s/rad"],
+            Unit::KilogramSquareMetre => &["kg·m²", "kg*m^2", "kg m^2", "kgm2", "kg·m^2"],
+            Unit::NewtonMetreSecond => &["N·m·s", "N*m*s", "Nms", "N m s"],
         }
     }
 
     const fn takes_prefix(self) -> bool {
-        !matches!(self, Unit::Celsius | Unit::Percent | Unit::PerKelvin)
+        !matches!(
+            self,
+            Unit::Celsius | Unit::Percent | Unit::PerKelvin | Unit::KilogramSquareMetre
+        )
     }
 }
 

@@ -3,9 +3,11 @@
 //!
 //! # Protections
 //! - **Reversal interlock** (`reversal-hold`): a request in the other direction than the last
-//!   drive is held (output off, the configured decay running) until the current magnitude is
-//!   at or below the release current and then, with the output still off, for the configured
-//!   dead time (whole periods, rounded up). Driving again in the same direction is ordinary
+//!   drive is held (output off) until the current magnitude is at or below the release current
+//!   and then, with the output still off, for the configured dead time (whole periods, rounded
+//!   up). While it holds, the off part is fast decay whatever the configured mode (slow decay
+//!   would keep a braking current flowing as long as a motor turns), unless `supply-pump` asks
+//!   for recirculation. Driving again in the same direction is ordinary
 //!   PWM and is not held. After a reset the direction of a possible current is unknown, so
 //!   both directions wait.
 //! - **Current ceiling** (`current-limit`): the drive part's predicted peak magnitude must stay
@@ -300,19 +302,16 @@ impl BridgeGuard {
             10.0,
         )?;
         let period = f64::from(model.derived().period);
-        let dead_periods = libm::ceil(f64::from(dead) / period - 1e-9).max(0.0) as u32;
+        // Whole periods, rounded up; a dead time within 10⁻⁶ of a whole number of periods is
+        // that number (1 ms at 50 µs is 20 periods, whatever the f32 rounding of either).
+        let dead_periods = libm::ceil(f64::from(dead) / period - 1e-6).max(0.0) as u32;
         let v_max = Volts::from_bits((f64::from(params.supply.max) * 65_536.0) as u32);
         let v_min = Volts::from_bits((f64::from(params.supply.min) * 65_536.0) as u32);
-        let (_, emf_worst) = model.emf_on(
-            v_max,
-            SignedVolts::from_bits(-((f64::from(params.motor.back_emf_limit) * 65_536.0) as i32)),
-        );
-        // Worst-case magnitude after a reset: full drive at the maximum supply with the
-        // back-EMF helping, or the trip current if higher.
-        let worst_current = model
-            .drive_peak(0, 1, model.duty_resolution(), v_max.to_bits(), 0)
-            .saturating_sub(emf_worst)
-            .max(trip);
+        // Worst-case magnitude after a reset: the steady current at full drive, maximum supply
+        // and the back-EMF helping, or the trip current if higher.
+        let helping =
+            SignedVolts::from_bits(-((f64::from(params.motor.back_emf_limit) * 65_536.0) as i32));
+        let worst_current = model.steady_drive(v_max, helping).max(trip);
         Ok(Self {
             ceiling,
             trip,
@@ -438,7 +437,7 @@ impl BridgeGuard {
             let was = state.active.contains(Condition::SupplyPump);
             pump = next > b.headroom || (was && state.bus > b.headroom >> 1);
         }
-        let (vs, emf_on) = m.emf_on(input.supply, input.back_emf);
+        let vs = m.supply_bits(input.supply);
         let i_now = state.coil.current().to_bits();
         let mag = i_now.unsigned_abs().min(Current::LIMIT.to_bits() as u64) as i64;
         let peak = est.peak_magnitude().to_bits();
@@ -486,7 +485,7 @@ impl BridgeGuard {
                 pol.overcurrent,
             );
         }
-        let decay = if pump {
+        let mut decay = if pump {
             active.insert(Condition::SupplyPump);
             match pol.supply_pump {
                 PumpResponse::Recirculate => AppliedDecay::Slow,
@@ -520,6 +519,11 @@ impl BridgeGuard {
         if reversing && (mag > self.release || state.quiet < self.dead_periods) {
             duty = 0;
             active.insert(Condition::ReversalHold);
+            // The quickest decay: through the diodes, against the supply. Slow decay would
+            // keep a braking current flowing for as long as a motor turns.
+            if decay == AppliedDecay::Configured {
+                decay = AppliedDecay::Fast;
+            }
             let dead_left =
                 self.dead_periods
                     .saturating_sub(if mag > self.release { 0 } else { state.quiet });
@@ -540,30 +544,48 @@ impl BridgeGuard {
             state.direction = Direction::None;
         }
 
-        // 4. The ceiling, in the drive's direction.
-        let d = duty.signum();
-        let mut predicted = mag;
+        // 4. The ceiling, over the whole coming period. In the drive's direction the period's
+        // highest current grows with the drive counts (more drive time at a voltage beyond
+        // either decay's), so the largest duty that fits is found by bisection.
+        let (supply, emf) = (input.supply, input.back_emf);
+        let reach = |duty: i32, decay: AppliedDecay| -> i64 {
+            let c = m.corners(i_now, duty, supply, emf, decay);
+            let d = i64::from(duty.signum());
+            c.iter().map(|&x| x * d).max().unwrap_or(0)
+        };
         if duty != 0 {
+            let d = duty.signum();
             let n = duty.unsigned_abs();
-            if m.drive_peak(i_now, d, n, vs, emf_on) > self.ceiling {
+            if reach(duty, decay) > self.ceiling {
                 let (mut lo, mut hi) = (0u32, n);
                 while hi - lo > 1 {
                     let mid = lo + (hi - lo) / 2;
-                    if m.drive_peak(i_now, d, mid, vs, emf_on) <= self.ceiling {
+                    if reach(d * mid as i32, decay) <= self.ceiling {
                         lo = mid;
                     } else {
                         hi = mid;
                     }
                 }
-                let fits = m.drive_peak(i_now, d, lo, vs, emf_on) <= self.ceiling;
-                let n = if fits { lo } else { 0 };
-                duty = d * n as i32; // n <= 65535
+                let fits = reach(d * lo as i32, decay) <= self.ceiling;
+                duty = if fits { d * lo as i32 } else { 0 }; // lo <= 65535
                 active.insert(Condition::CurrentLimit);
             }
             if duty != 0 {
-                predicted = m.drive_peak(i_now, d, duty.unsigned_abs(), vs, emf_on);
                 state.direction = Direction::of(i64::from(duty));
             }
+        }
+        // A spinning motor can push the recirculating current past the ceiling whatever the
+        // duty (slow decay is a brake): then the off part decays fast instead, through the
+        // diodes, against the supply.
+        let magnitude = |decay: AppliedDecay| -> i64 {
+            let c = m.corners(i_now, duty, supply, emf, decay);
+            c.iter().map(|x| x.saturating_abs()).max().unwrap_or(0)
+        };
+        let mut predicted = magnitude(decay);
+        if predicted > self.ceiling && decay != AppliedDecay::Fast && m.has_slow_part(decay) {
+            decay = AppliedDecay::Fast;
+            predicted = magnitude(decay);
+            active.insert(Condition::CurrentLimit);
         }
         active = active.union(state.latched);
         state.applied = duty;
@@ -578,7 +600,7 @@ impl BridgeGuard {
             cleared: prev.minus(active),
             latched: state.latched,
             estimate: est,
-            predicted_peak: Current::from_bits(predicted.max(0)),
+            predicted_peak: Current::from_bits(predicted.min(Current::LIMIT.to_bits())),
             reversal_in_us: reversal_in,
             bus_charge: Charge::from_bits(state.bus),
         }

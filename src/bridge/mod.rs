@@ -220,8 +220,9 @@ impl BridgeParams {
     }
 }
 
-/// The off part actually applied in a period: the configured mode, or slow decay throughout
-/// (what the guard applies while `supply-pump` is active).
+/// The off part actually applied in a period: the configured mode, slow decay throughout (what
+/// the guard applies while `supply-pump` is active) or fast decay throughout (what it applies
+/// when a spinning motor would drive the recirculating current past the ceiling).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub enum AppliedDecay {
@@ -229,6 +230,8 @@ pub enum AppliedDecay {
     Configured,
     /// Slow decay for the whole off part.
     Slow,
+    /// Fast decay for the whole off part.
+    Fast,
 }
 
 /// Figures derived from the bridge parameters, in SI units (f32), for display and checks.
@@ -515,6 +518,7 @@ impl BridgeModel {
     fn fast_counts(&self, off: u32, decay: AppliedDecay) -> u32 {
         match decay {
             AppliedDecay::Slow => 0,
+            AppliedDecay::Fast => off,
             // off < 2^16 and the share <= 2^16: the product fits u64 and the result <= off.
             AppliedDecay::Configured => {
                 ((u64::from(off) * u64::from(self.fast_share)) >> 16) as u32
@@ -607,6 +611,28 @@ impl BridgeModel {
         } else {
             0
         }
+    }
+
+    /// The period's four corner currents (start, after the drive, after the fast part, end),
+    /// without the charges: the guard's prediction.
+    pub(crate) fn corners(
+        &self,
+        i0: i64,
+        duty: i32,
+        supply: Volts,
+        back_emf: SignedVolts,
+        decay: AppliedDecay,
+    ) -> [i64; 4] {
+        let (vs, emf_on, emf_fast) = self.inputs(supply, back_emf);
+        let (signed, k, rest) = self.split(duty, decay);
+        let i1 = toward(
+            i0,
+            self.drive_asymptote(vs, signed, emf_on),
+            self.on_duty.eval(signed.unsigned_abs()),
+        );
+        let i2 = self.fast_segment(i1, vs, emf_fast, self.fast_duty.eval(k));
+        let i3 = toward(i2, -emf_on, self.on_duty.eval(rest));
+        [i0, i1, i2, i3]
     }
 
     fn parts(
@@ -709,21 +735,25 @@ impl BridgeModel {
         }
     }
 
-    /// Highest current magnitude at the end of a drive of `n` counts in direction `d` from
-    /// `i0`, in that direction (raw, the start included): the predicted peak.
-    pub(crate) fn drive_peak(&self, i0: i64, d: i32, n: u32, vs: u32, emf_on: i64) -> i64 {
-        let i1 = toward(
-            i0,
-            self.drive_asymptote(vs, d, emf_on),
-            self.on_duty.eval(n),
-        );
-        if d < 0 { (-i0).max(-i1) } else { i0.max(i1) }
+    /// The measured supply clamped to the model's range, U16F16 bits.
+    pub(crate) fn supply_bits(&self, supply: Volts) -> u32 {
+        supply.to_bits().min(self.supply_cap)
     }
 
-    /// The back-EMF through the drive circuit (raw), for the guard.
-    pub(crate) fn emf_on(&self, supply: Volts, back_emf: SignedVolts) -> (u32, i64) {
-        let (vs, on, _) = self.inputs(supply, back_emf);
-        (vs, on)
+    /// The steady current of a full forward drive at `supply` with `back_emf` (raw):
+    /// `(Vs − E)/(R + 2R_on)`. Configuration time.
+    pub(crate) fn steady_drive(&self, supply: Volts, back_emf: SignedVolts) -> i64 {
+        let (vs, emf_on, _) = self.inputs(supply, back_emf);
+        self.drive_asymptote(vs, 1, emf_on)
+    }
+
+    /// Whether the off part of `decay` has any slow decay (at some duty).
+    pub(crate) fn has_slow_part(&self, decay: AppliedDecay) -> bool {
+        match decay {
+            AppliedDecay::Fast => false,
+            AppliedDecay::Slow => true,
+            AppliedDecay::Configured => self.fast_share < 1 << 16,
+        }
     }
 
     /// Time for the current magnitude to fall from that of `from` to `to` with the bridge off
@@ -750,7 +780,11 @@ impl BridgeModel {
         let (vs, emf_on, emf_fast) = self.inputs(supply, back_emf);
         // The back-EMF seen in the current's own direction (positive: it helps the decay).
         let own = |e: i64| if i < 0 { -e } else { e };
-        let fast = self.fast_share == 1 << 16 && decay == AppliedDecay::Configured;
+        let fast = match decay {
+            AppliedDecay::Fast => true,
+            AppliedDecay::Slow => false,
+            AppliedDecay::Configured => self.fast_share == 1 << 16,
+        };
         let (a, tau) = if fast {
             (
                 self.fast_gain.apply(vs) as i64 + self.fast_offset + own(emf_fast),

@@ -1,0 +1,338 @@
+//! Co-simulation of the bridge guard against the bridge plant, one control period at a time.
+//!
+//! Each period k (t_k = k·T): the guard's `tick` gets the requested signed duty, the supply and
+//! — when the scenario says the firmware measures the speed — the back-EMF from the plant's
+//! speed; its plan is carried out on the plant phase by phase, with the gate dead time at every
+//! change of a leg between high and low (the changing leg floats for the dead time). The run
+//! starts one period before t = 0 with the bridge off, as for the low-side co-simulation.
+
+use crate::bridge::plant::{BridgePlant, BridgeState, BridgeTally};
+use crate::bridge::scenario::BridgeScenario;
+use crate::cosim::{EventRecord, Finding};
+use crate::plant::PlantError;
+use coilward::bridge::{AppliedDecay, BridgeGuard, BridgeInput, LegState};
+use coilward::{Condition, Conditions, Speed, Volts};
+use serde::Serialize;
+
+/// One control period.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct BridgeRow {
+    /// Start of the period, s.
+    pub t_s: f64,
+    /// Requested signed duty, −1 ..= 1.
+    pub duty_requested: f64,
+    /// Signed duty the guard applied, −1 ..= 1.
+    pub duty_applied: f64,
+    /// True coil current at the start of the period, A.
+    pub current_a: f64,
+    /// Highest true current in the period, A.
+    pub peak_current_a: f64,
+    /// Lowest true current in the period, A.
+    pub least_current_a: f64,
+    /// The guard's estimate at the start of the period, A.
+    pub estimated_current_a: f64,
+    /// Rotor speed at the start of the period, rad/s.
+    pub speed_rad_s: f64,
+    /// Highest bus voltage in the period, V (the supply when no bus is described).
+    pub bus_peak_v: f64,
+    /// The guard recirculated in the off part (supply-pump).
+    pub recirculated: bool,
+    /// Active conditions.
+    #[serde(skip)]
+    pub conditions: Conditions,
+}
+
+/// One change of direction, from the request to the first drive the other way.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Reversal {
+    /// When the other direction was first requested, s.
+    pub requested_s: f64,
+    /// When the guard first drove it, s (`None`: not before the end of the run).
+    pub driven_s: Option<f64>,
+    /// True current when the other direction was first driven, A.
+    pub current_at_drive_a: f64,
+    /// From when the true current stayed at or below the release current until the drive, s
+    /// (the end of the last period before the drive in which it was above; `None`: it never
+    /// settled).
+    pub true_release_s: Option<f64>,
+}
+
+/// What a bridge run produced.
+#[derive(Debug, Clone, Default)]
+pub struct BridgeRun {
+    /// Per-period rows (empty unless recorded).
+    pub rows: Vec<BridgeRow>,
+    /// Guard events.
+    pub events: Vec<EventRecord>,
+    /// Changes of direction.
+    pub reversals: Vec<Reversal>,
+    /// Limits exceeded and actions taken; empty means pass.
+    pub findings: Vec<Finding>,
+    /// True peak current magnitude, A.
+    pub peak_current_a: f64,
+    /// Energy returned to the supply, J (plant, exact).
+    pub returned_energy_j: f64,
+    /// The guard's returned energy, J (its charge times the supply).
+    pub estimated_returned_energy_j: f64,
+    /// Highest bus voltage, V.
+    pub peak_bus_v: f64,
+    /// Largest |estimate − true| at the period starts, A.
+    pub max_estimate_error_a: f64,
+    /// Periods in which `reversal-hold` held the output.
+    pub held_periods: u64,
+}
+
+impl BridgeRun {
+    /// Whether no limit was exceeded and the guard had to act only by its interlock.
+    pub fn passed(&self) -> bool {
+        self.findings.is_empty()
+    }
+
+    fn find(&mut self, kind: &'static str, t: f64, detail: String) {
+        if !self.findings.iter().any(|f| f.kind == kind) {
+            self.findings.push(Finding {
+                kind,
+                t_s: t,
+                detail,
+            });
+        }
+    }
+}
+
+/// Carries out one period's plan on the plant, with the dead time; returns the period's tally.
+fn apply(
+    p: &mut BridgePlant,
+    legs: &mut (LegState, LegState),
+    phases: [(u32, LegState, LegState); 3],
+    count: f64,
+    dead: f64,
+    tally: &mut BridgeTally,
+) -> Result<(), PlantError> {
+    for (counts, a, b) in phases {
+        if counts == 0 {
+            continue;
+        }
+        let mut left = f64::from(counts) * count;
+        let crosses = |from: LegState, to: LegState| {
+            matches!(
+                (from, to),
+                (LegState::High, LegState::Low) | (LegState::Low, LegState::High)
+            )
+        };
+        if dead > 0.0 && (crosses(legs.0, a) || crosses(legs.1, b)) {
+            let t = dead.min(left);
+            let da = if crosses(legs.0, a) {
+                LegState::Float
+            } else {
+                a
+            };
+            let db = if crosses(legs.1, b) {
+                LegState::Float
+            } else {
+                b
+            };
+            p.run(da, db, t, tally)?;
+            left -= t;
+        }
+        if left > 0.0 {
+            p.run(a, b, left, tally)?;
+        }
+        *legs = (a, b);
+    }
+    Ok(())
+}
+
+/// Runs the scenario. Rows are kept when `rows` is set.
+pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
+    let mut r = BridgeRun::default();
+    let guard: BridgeGuard = match s.guard() {
+        Ok(g) => g,
+        Err(e) => {
+            r.find("plant-stopped", 0.0, format!("guard refused: {e}"));
+            return r;
+        }
+    };
+    let m = guard.model();
+    let n_full = m.duty_resolution();
+    let count = s.period / f64::from(n_full);
+    let trip = f64::from(s.limits.trip_current);
+    let release = f64::from(s.limits.release_current);
+    let supply = s.circuit.supply;
+    let v_max = f64::from(s.params.supply.max);
+    let vs = Volts::saturating_from_num(supply);
+    let mut plant = BridgePlant::new(s.circuit, BridgeState::default());
+    let mut state = guard.start_idle();
+    let mut legs = (LegState::Float, LegState::Float);
+    // The period before t = 0: off.
+    let mut tally = BridgeTally::starting(plant.state);
+    let pre = guard.tick(&mut state, BridgeInput::new(0, vs));
+    let phases = |o: &coilward::bridge::BridgeOutput| {
+        o.plan
+            .phases()
+            .map(|ph| (ph.counts(), ph.leg_a(), ph.leg_b()))
+    };
+    if let Err(e) = apply(
+        &mut plant,
+        &mut legs,
+        phases(&pre),
+        count,
+        s.dead_time,
+        &mut tally,
+    ) {
+        r.find("plant-stopped", -s.period, e.to_string());
+        return r;
+    }
+    let periods = (s.duration / s.period).round() as u64;
+    let mut direction = 0i32; // of the last drive
+    let mut pending: Option<Reversal> = None;
+    let mut prev_active = Conditions::NONE;
+    for k in 0..periods {
+        let t = k as f64 * s.period;
+        let want = s.duty_in_period(k);
+        let request = (want * f64::from(n_full)).round() as i32;
+        let emf = if s.speed_feedback {
+            m.back_emf_from_speed(Speed::saturating_from_num(plant.state.speed))
+        } else {
+            coilward::SignedVolts::ZERO
+        };
+        let i_true = plant.state.current;
+        let out = guard.tick(&mut state, BridgeInput::new(request, vs).with_back_emf(emf));
+        let est = f64::from(m.amps(state.current()));
+        let err = (est - i_true).abs();
+        r.max_estimate_error_a = r.max_estimate_error_a.max(err);
+        r.estimated_returned_energy_j += m.coulombs(out.estimate.returned) * supply;
+        // Events.
+        for c in Condition::ALL {
+            if out.raised.contains(c) {
+                r.events.push(EventRecord {
+                    t_s: t,
+                    condition: c.name(),
+                    detail: "raised".into(),
+                });
+            }
+            if out.cleared.contains(c) {
+                r.events.push(EventRecord {
+                    t_s: t,
+                    condition: c.name(),
+                    detail: "cleared".into(),
+                });
+            }
+        }
+        if out.active.contains(Condition::ReversalHold) {
+            r.held_periods += 1;
+        }
+        // Reversals: a request against the last drive's direction.
+        let req_dir = request.signum();
+        if req_dir != 0 && direction != 0 && req_dir != direction && pending.is_none() {
+            pending = Some(Reversal {
+                requested_s: t,
+                driven_s: None,
+                current_at_drive_a: 0.0,
+                true_release_s: None,
+            });
+        }
+        if out.duty != 0 {
+            let d = out.duty.signum();
+            if d != direction && direction != 0 {
+                if i_true.abs() > release {
+                    r.find(
+                        "reversed-before-decay",
+                        t,
+                        format!(
+                            "the bridge drove the other way with {:.3} A still flowing (release {:.3} A)",
+                            i_true, release
+                        ),
+                    );
+                }
+                if let Some(mut p) = pending.take() {
+                    p.driven_s = Some(t);
+                    p.current_at_drive_a = i_true;
+                    r.reversals.push(p);
+                }
+            }
+            direction = d;
+        }
+        // The period on the plant.
+        let mut tally = BridgeTally::starting(plant.state);
+        tally.time_offset = t;
+        if let Err(e) = apply(
+            &mut plant,
+            &mut legs,
+            phases(&out),
+            count,
+            s.dead_time,
+            &mut tally,
+        ) {
+            r.find("plant-stopped", t, format!("the plant stopped: {e}"));
+            break;
+        }
+        let peak = tally.peak_current.abs().max(tally.least_current.abs());
+        if let Some(p) = pending.as_mut() {
+            if peak > release {
+                p.true_release_s = None;
+            } else {
+                p.true_release_s.get_or_insert(t);
+            }
+        }
+        r.peak_current_a = r.peak_current_a.max(peak);
+        if peak > trip {
+            r.find(
+                "current-above-trip",
+                t,
+                format!("the true current reached {peak:.3} A (trip {trip:.3} A)"),
+            );
+        }
+        r.returned_energy_j += tally.returned_energy;
+        let bus_v = s
+            .circuit
+            .bus
+            .map_or(supply, |b| supply + tally.peak_bus_charge / b.capacitance);
+        r.peak_bus_v = r.peak_bus_v.max(bus_v);
+        if bus_v > v_max {
+            r.find(
+                "bus-above-max",
+                t,
+                format!("returned energy lifted the bus to {bus_v:.2} V (max {v_max:.2} V)"),
+            );
+        }
+        let acted = out.latched.union(
+            out.active
+                .intersection(Conditions::NONE.with(Condition::SupplyPump)),
+        );
+        if !out.latched.is_empty() {
+            r.find(
+                "guard-tripped",
+                t,
+                format!("the guard latched {}", out.latched),
+            );
+        }
+        if acted.contains(Condition::SupplyPump) && !prev_active.contains(Condition::SupplyPump) {
+            r.find(
+                "guard-recirculated",
+                t,
+                "supply-pump: the guard turned fast decay into slow decay to protect the bus"
+                    .into(),
+            );
+        }
+        prev_active = out.active;
+        if rows {
+            r.rows.push(BridgeRow {
+                t_s: t,
+                duty_requested: want,
+                duty_applied: f64::from(out.duty) / f64::from(n_full),
+                current_a: i_true,
+                peak_current_a: tally.peak_current,
+                least_current_a: tally.least_current,
+                estimated_current_a: f64::from(m.amps(out.estimate.end)),
+                speed_rad_s: plant.state.speed,
+                bus_peak_v: bus_v,
+                recirculated: out.decay == AppliedDecay::Slow,
+                conditions: out.active,
+            });
+        }
+    }
+    if let Some(p) = pending {
+        r.reversals.push(p);
+    }
+    r
+}

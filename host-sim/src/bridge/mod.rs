@@ -1,0 +1,6 @@
+//! The full bridge in the simulator: its plant, scenario files, co-simulation and reports.
+
+pub mod cosim;
+pub mod plant;
+pub mod report;
+pub mod scenario;

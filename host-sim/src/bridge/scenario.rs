@@ -1,0 +1,546 @@
+//! Full-bridge scenario files: `topology = "full-bridge"` at the top, then the bridge's parts,
+//! the guard's settings, a signed drive timeline and the run length.
+//!
+//! ```toml
+//! topology = "full-bridge"
+//! [supply]     voltage = "12 V"  min = "10 V"  max = "14 V"
+//! [coil]       inductance = "1.5 mH"  resistance = "2.5 Ω"
+//! [switch]     on_resistance = "40 mΩ"  breakdown = "30 V"  dead_time = "500 ns"
+//! [body_diode] forward_voltage = "0.8 V"  resistance = "20 mΩ"
+//! [decay]      mode = "mixed"  fast_share = "30 %"
+//! [motor]      constant = "12 mV·s/rad"  inertia = "4e-6 kg·m²"  friction = "2 µN·m·s"
+//! [bus]        capacitance = "220 µF"  sink_current = "0 A"
+//! [control]    period = "50 us"  duty_resolution = 1000  current_full_scale = "8 A"
+//! [guard]      current_ceiling = "4 A"  trip_current = "5 A"  release_current = "50 mA"
+//!              reversal_dead_time = "500 us"
+//! [[drive]]    at = "0 s"  duty = "-60 %"
+//! [run]        duration = "200 ms"
+//! ```
+//! (one key per line in a real file; the full key list is in the contributor guide). The firmware
+//! is taken to know the circuit exactly; a positive duty drives current from leg A to leg B.
+
+use crate::bridge::plant::{BridgeCircuit, Bus, Rotor};
+use crate::scenario::{Cx, ScenarioError};
+use crate::units::Unit;
+use coilward::bridge::{
+    BodyDiode, BridgeLimits, BridgeParams, BusParams, DecayMode, MotorParams, PumpResponse,
+};
+use coilward::{CoilParams, ConfigError, ControlParams, SupplyParams, SwitchParams};
+use serde::Deserialize;
+use std::collections::HashMap;
+use std::path::{Path, PathBuf};
+use toml::Spanned;
+
+type Text = Option<Spanned<String>>;
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct Raw {
+    name: Option<String>,
+    description: Option<String>,
+    topology: Spanned<String>,
+    supply: RawSupply,
+    coil: RawCoil,
+    switch: RawSwitch,
+    body_diode: RawDiode,
+    decay: RawDecay,
+    motor: Option<RawMotor>,
+    bus: Option<RawBus>,
+    control: RawControl,
+    guard: RawGuard,
+    #[serde(default)]
+    drive: Vec<RawDrive>,
+    run: RawRun,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSupply {
+    voltage: Text,
+    min: Text,
+    max: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawCoil {
+    inductance: Text,
+    resistance: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSwitch {
+    on_resistance: Text,
+    breakdown: Text,
+    dead_time: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawDiode {
+    forward_voltage: Text,
+    resistance: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawDecay {
+    mode: Text,
+    fast_share: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawMotor {
+    constant: Text,
+    inertia: Text,
+    friction: Text,
+    back_emf_limit: Text,
+    speed_feedback: Option<bool>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawBus {
+    capacitance: Text,
+    sink_current: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawControl {
+    period: Text,
+    duty_resolution: Option<Spanned<i64>>,
+    current_full_scale: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawGuard {
+    current_ceiling: Text,
+    trip_current: Text,
+    release_current: Text,
+    reversal_dead_time: Text,
+    overcurrent: Text,
+    supply_pump: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawDrive {
+    at: Text,
+    duty: Text,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawRun {
+    duration: Text,
+}
+
+/// One drive step.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct BridgeStep {
+    /// Start of the step, s.
+    pub at: f64,
+    /// Requested signed duty, −1 ..= 1.
+    pub duty: f64,
+}
+
+/// A validated full-bridge scenario.
+#[derive(Debug, Clone)]
+pub struct BridgeScenario {
+    /// The file it came from.
+    pub file: PathBuf,
+    /// Its name.
+    pub name: String,
+    /// Its description.
+    pub description: Option<String>,
+    /// The circuit.
+    pub circuit: BridgeCircuit,
+    /// The gate dead time at each change of a leg between high and low, s.
+    pub dead_time: f64,
+    /// Whether the firmware feeds the measured speed to the guard (else it assumes a stall).
+    pub speed_feedback: bool,
+    /// The library's parameters.
+    pub params: BridgeParams,
+    /// The guard's settings.
+    pub limits: BridgeLimits,
+    /// Control period, s.
+    pub period: f64,
+    /// Drive timeline, ascending.
+    pub drive: Vec<BridgeStep>,
+    /// Run length, s.
+    pub duration: f64,
+    /// Defaults the file left to the simulator.
+    pub assumed: Vec<String>,
+    spans: HashMap<String, std::ops::Range<usize>>,
+    source: String,
+}
+
+/// The scenario key of a library field.
+fn key_of(field: &str) -> &str {
+    match field {
+        "supply.nominal" => "supply.voltage",
+        "body_diode.forward_drop" => "body_diode.forward_voltage",
+        other => other,
+    }
+}
+
+impl BridgeScenario {
+    /// Reads and validates a full-bridge scenario file.
+    ///
+    /// # Errors
+    /// The file, line and key of the first problem.
+    pub fn load(path: &Path) -> Result<Self, ScenarioError> {
+        let text = std::fs::read_to_string(path).map_err(|e| ScenarioError {
+            file: path.to_path_buf(),
+            at: None,
+            key: None,
+            message: format!("cannot read: {e}"),
+        })?;
+        Self::parse(path, &text)
+    }
+
+    /// Validates full-bridge scenario text.
+    ///
+    /// # Errors
+    /// The file, line and key of the first problem.
+    pub fn parse(path: &Path, text: &str) -> Result<Self, ScenarioError> {
+        let mut cx = Cx {
+            file: path,
+            text,
+            spans: HashMap::new(),
+        };
+        let raw: Raw = cx.document()?;
+        let topology = Some(raw.topology.clone());
+        cx.word("topology", &topology, &["full-bridge"])?;
+        let mut assumed = Vec::new();
+
+        let s = &raw.supply;
+        let voltage = cx.required("supply.voltage", &s.voltage, Unit::Volt)?;
+        let min = cx
+            .value("supply.min", &s.min, Unit::Volt)?
+            .unwrap_or_else(|| {
+                assumed.push(format!("supply.min = supply.voltage ({voltage} V)"));
+                voltage
+            });
+        let max = cx
+            .value("supply.max", &s.max, Unit::Volt)?
+            .unwrap_or_else(|| {
+                assumed.push(format!("supply.max = supply.voltage ({voltage} V)"));
+                voltage
+            });
+        let l = cx.required("coil.inductance", &raw.coil.inductance, Unit::Henry)?;
+        let r = cx.required("coil.resistance", &raw.coil.resistance, Unit::Ohm)?;
+        let sw = &raw.switch;
+        let r_on = cx.required("switch.on_resistance", &sw.on_resistance, Unit::Ohm)?;
+        let bv = cx.required("switch.breakdown", &sw.breakdown, Unit::Volt)?;
+        let dead_time = cx
+            .value("switch.dead_time", &sw.dead_time, Unit::Second)?
+            .unwrap_or_else(|| {
+                assumed.push("switch.dead_time = 0 s".into());
+                0.0
+            });
+        cx.check(
+            "switch.dead_time",
+            (0.0..=1e-3).contains(&dead_time),
+            "must be within 0 ..= 1 ms",
+        )?;
+        let d = &raw.body_diode;
+        let vf = cx.required("body_diode.forward_voltage", &d.forward_voltage, Unit::Volt)?;
+        let rd = cx
+            .value("body_diode.resistance", &d.resistance, Unit::Ohm)?
+            .unwrap_or(0.0);
+        let decay = match cx.word("decay.mode", &raw.decay.mode, &["fast", "slow", "mixed"])? {
+            Some("fast") => DecayMode::Fast,
+            Some("slow") => DecayMode::Slow,
+            Some(_) => {
+                let share =
+                    cx.required("decay.fast_share", &raw.decay.fast_share, Unit::Percent)?;
+                DecayMode::Mixed {
+                    fast_share: share as f32,
+                }
+            }
+            None => {
+                return Err(cx.error("decay.mode", None, "missing; one of fast, slow, mixed"));
+            }
+        };
+        if !matches!(decay, DecayMode::Mixed { .. }) && raw.decay.fast_share.is_some() {
+            return Err(cx.error(
+                "decay.fast_share",
+                raw.decay.fast_share.as_ref().map(Spanned::span),
+                "applies to mode = \"mixed\" only",
+            ));
+        }
+
+        let (rotor, motor, speed_feedback) = match &raw.motor {
+            None => (None, MotorParams::default(), false),
+            Some(m) => {
+                let k = cx.required("motor.constant", &m.constant, Unit::VoltSecondPerRadian)?;
+                let j = cx.required("motor.inertia", &m.inertia, Unit::KilogramSquareMetre)?;
+                let b = cx.required("motor.friction", &m.friction, Unit::NewtonMetreSecond)?;
+                cx.check("motor.inertia", j > 0.0, "must be greater than zero")?;
+                cx.check(
+                    "motor.friction",
+                    b > 0.0,
+                    "must be greater than zero (every rotor has some)",
+                )?;
+                let limit = cx
+                    .value("motor.back_emf_limit", &m.back_emf_limit, Unit::Volt)?
+                    .unwrap_or_else(|| {
+                        assumed.push(format!("motor.back_emf_limit = supply.min ({min} V)"));
+                        min
+                    });
+                let feedback = m.speed_feedback.unwrap_or(false);
+                (
+                    Some(Rotor {
+                        constant: k,
+                        inertia: j,
+                        friction: b,
+                    }),
+                    MotorParams::new(limit as f32, k as f32),
+                    feedback,
+                )
+            }
+        };
+        let bus = match &raw.bus {
+            None => None,
+            Some(b) => {
+                let c = cx.required("bus.capacitance", &b.capacitance, Unit::Farad)?;
+                let sink = cx
+                    .value("bus.sink_current", &b.sink_current, Unit::Ampere)?
+                    .unwrap_or_else(|| {
+                        assumed.push("bus.sink_current = 0 A (a supply that cannot sink)".into());
+                        0.0
+                    });
+                Some(Bus {
+                    capacitance: c,
+                    sink_current: sink,
+                })
+            }
+        };
+
+        let c = &raw.control;
+        let period = cx.required("control.period", &c.period, Unit::Second)?;
+        let resolution = cx
+            .count("control.duty_resolution", &c.duty_resolution, 1..65_536)?
+            .unwrap_or_else(|| {
+                assumed.push("control.duty_resolution = 1000".into());
+                1000
+            }) as u32;
+        let g = &raw.guard;
+        let trip = cx.required("guard.trip_current", &g.trip_current, Unit::Ampere)?;
+        let full_scale = cx
+            .value(
+                "control.current_full_scale",
+                &c.current_full_scale,
+                Unit::Ampere,
+            )?
+            .unwrap_or_else(|| {
+                assumed.push(format!(
+                    "control.current_full_scale = 2 × guard.trip_current ({} A)",
+                    2.0 * trip
+                ));
+                2.0 * trip
+            });
+        let ceiling = cx.required("guard.current_ceiling", &g.current_ceiling, Unit::Ampere)?;
+        let release = cx.required("guard.release_current", &g.release_current, Unit::Ampere)?;
+        let dead = cx.required(
+            "guard.reversal_dead_time",
+            &g.reversal_dead_time,
+            Unit::Second,
+        )?;
+        let mut limits =
+            BridgeLimits::new(ceiling as f32, trip as f32, release as f32, dead as f32);
+        limits.policy.overcurrent = cx.action(
+            "guard.overcurrent",
+            &g.overcurrent,
+            limits.policy.overcurrent,
+        )?;
+        limits.policy.supply_pump = match cx.word(
+            "guard.supply_pump",
+            &g.supply_pump,
+            &["recirculate", "report"],
+        )? {
+            Some("report") => PumpResponse::Report,
+            _ => PumpResponse::Recirculate,
+        };
+
+        let mut drive = Vec::new();
+        for (n, d) in raw.drive.iter().enumerate() {
+            let key_at = format!("drive[{n}].at");
+            let key_duty = format!("drive[{n}].duty");
+            let at = cx.required(&key_at, &d.at, Unit::Second)?;
+            let duty = cx.required(&key_duty, &d.duty, Unit::Percent)?;
+            cx.check(
+                &key_duty,
+                (-1.0..=1.0).contains(&duty),
+                "must be within -100 % ..= 100 % (the sign is the direction)",
+            )?;
+            cx.check(&key_at, at >= 0.0, "must not be negative")?;
+            if let Some(prev) = drive.last().map(|s: &BridgeStep| s.at) {
+                cx.check(&key_at, at >= prev, "the drive steps must be in time order")?;
+            }
+            drive.push(BridgeStep { at, duty });
+        }
+        if drive.is_empty() {
+            return Err(cx.error(
+                "drive",
+                None,
+                "no [[drive]] steps: give at least one, e.g. [[drive]] at = \"0 s\" duty = \"-60 %\"",
+            ));
+        }
+        let duration = cx.required("run.duration", &raw.run.duration, Unit::Second)?;
+        cx.check(
+            "run.duration",
+            duration > 0.0 && duration / period <= 2e7,
+            "must be positive and at most 20 million control periods",
+        )?;
+
+        let mut params = BridgeParams::new(
+            SupplyParams::new(voltage as f32, min as f32, max as f32),
+            CoilParams::new(l as f32, r as f32),
+            SwitchParams::new(r_on as f32, bv as f32),
+            BodyDiode::new(vf as f32, rd as f32),
+            decay,
+            ControlParams::new(period as f32, resolution, full_scale as f32),
+        )
+        .with_motor(motor);
+        if let Some(b) = bus {
+            params = params.with_bus(BusParams::new(b.capacitance as f32, b.sink_current as f32));
+        }
+        let scenario = Self {
+            file: path.to_path_buf(),
+            name: raw.name.clone().unwrap_or_else(|| {
+                path.file_stem()
+                    .map_or_else(String::new, |s| s.to_string_lossy().into_owned())
+            }),
+            description: raw.description.clone(),
+            circuit: BridgeCircuit {
+                supply: voltage,
+                inductance: l,
+                resistance: r,
+                on_resistance: r_on,
+                diode_drop: vf,
+                diode_resistance: rd,
+                rotor,
+                back_emf: 0.0,
+                bus,
+            },
+            dead_time,
+            speed_feedback,
+            params,
+            limits,
+            period,
+            drive,
+            duration,
+            assumed,
+            spans: cx.spans,
+            source: text.to_string(),
+        };
+        // The library validates the rest; its refusal names the scenario key.
+        scenario.guard().map_err(|e| scenario.config_error(&e))?;
+        Ok(scenario)
+    }
+
+    /// The guard for this scenario.
+    ///
+    /// # Errors
+    /// The library's refusal.
+    pub fn guard(&self) -> Result<coilward::bridge::BridgeGuard, ConfigError> {
+        coilward::bridge::BridgeGuard::new(&self.params, &self.limits)
+    }
+
+    /// A library refusal as a scenario error naming the key.
+    pub fn config_error(&self, e: &ConfigError) -> ScenarioError {
+        let key = key_of(e.field.name()).to_string();
+        let cx = Cx {
+            file: &self.file,
+            text: &self.source,
+            spans: self.spans.clone(),
+        };
+        cx.error(&key, None, format!("refused by the library: {e}"))
+    }
+
+    /// The first control period at or after `at`.
+    pub fn step_period(&self, at: f64) -> u64 {
+        let k = at / self.period;
+        let near = k.round();
+        if (k - near).abs() <= 1e-6 {
+            near as u64
+        } else {
+            k.ceil() as u64
+        }
+    }
+
+    /// Requested signed duty (−1 ..= 1) in control period `k`.
+    pub fn duty_in_period(&self, k: u64) -> f64 {
+        let n = self.drive.partition_point(|s| self.step_period(s.at) <= k);
+        if n == 0 { 0.0 } else { self.drive[n - 1].duty }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    const MOTOR: &str = r#"
+topology = "full-bridge"
+[supply]
+voltage = "12 V"
+min = "10 V"
+max = "14 V"
+[coil]
+inductance = "1.5 mH"
+resistance = "2.5 Ω"
+[switch]
+on_resistance = "40 mΩ"
+breakdown = "30 V"
+[body_diode]
+forward_voltage = "0.8 V"
+[decay]
+mode = "fast"
+[control]
+period = "50 us"
+[guard]
+current_ceiling = "4 A"
+trip_current = "5 A"
+release_current = "50 mA"
+reversal_dead_time = "500 us"
+[[drive]]
+at = "0 s"
+duty = "-60 %"
+[run]
+duration = "10 ms"
+"#;
+
+    #[test]
+    fn a_minimal_file_is_read_with_its_defaults_noted() {
+        let s = BridgeScenario::parse(Path::new("m.toml"), MOTOR).unwrap();
+        assert_eq!(s.drive[0].duty, -0.6);
+        assert!(s.assumed.iter().any(|a| a.starts_with("switch.dead_time")));
+        assert_eq!(s.duty_in_period(5), -0.6);
+    }
+
+    #[test]
+    fn errors_name_the_key_and_line() {
+        let bad = MOTOR.replace("mode = \"fast\"", "mode = \"quick\"");
+        let e = BridgeScenario::parse(Path::new("m.toml"), &bad).unwrap_err();
+        assert_eq!(e.key.as_deref(), Some("decay.mode"));
+        assert_eq!(e.at.map(|a| a.0), Some(16));
+        let bad = MOTOR.replace("breakdown = \"30 V\"", "breakdown = \"13 V\"");
+        let e = BridgeScenario::parse(Path::new("m.toml"), &bad).unwrap_err();
+        assert_eq!(e.key.as_deref(), Some("switch.breakdown"));
+        let bad = MOTOR.replace("duty = \"-60 %\"", "duty = \"-160 %\"");
+        let e = BridgeScenario::parse(Path::new("m.toml"), &bad).unwrap_err();
+        assert_eq!(e.key.as_deref(), Some("drive[0].duty"));
+        let bad = MOTOR.replace(
+            "[decay]\nmode = \"fast\"",
+            "[decay]\nmode = \"fast\"\nfast_share = \"20 %\"",
+        );
+        let e = BridgeScenario::parse(Path::new("m.toml"), &bad).unwrap_err();
+        assert_eq!(e.key.as_deref(), Some("decay.fast_share"));
+    }
+}
