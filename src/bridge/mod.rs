@@ -287,6 +287,8 @@ pub struct BridgeModel {
     emf_per_speed: Gain,
     tau_on_us: u64,
     tau_fast_us: u64,
+    /// One timer count in µs, Q32.32.
+    count_us: u64,
     /// τ_on and τ_fast in timer counts, scaled from current raw to [`Charge`] bits (2⁻²⁴).
     tau_on_charge: Gain,
     tau_fast_charge: Gain,
@@ -456,6 +458,7 @@ impl BridgeModel {
             emf_per_speed: Gain::new(k_emf),
             tau_on_us: q32(tau_on * 1e6),
             tau_fast_us: q32(tau_fast * 1e6),
+            count_us: q32(count * 1e6),
             tau_on_charge: Gain::new(tau_on / count / 16_777_216.0),
             tau_fast_charge: Gain::new(tau_fast / count / 16_777_216.0),
             bus,
@@ -778,31 +781,101 @@ impl BridgeModel {
             return Some(0);
         }
         let (vs, emf_on, emf_fast) = self.inputs(supply, back_emf);
-        // The back-EMF seen in the current's own direction (positive: it helps the decay).
-        let own = |e: i64| if i < 0 { -e } else { e };
         let fast = match decay {
             AppliedDecay::Fast => true,
             AppliedDecay::Slow => false,
             AppliedDecay::Configured => self.fast_share == 1 << 16,
         };
         let (a, tau) = if fast {
-            (
-                self.fast_gain.apply(vs) as i64 + self.fast_offset + own(emf_fast),
-                self.tau_fast_us,
-            )
+            (self.fast_pull(vs, i, emf_fast), self.tau_fast_us)
         } else {
-            (own(emf_on), self.tau_on_us)
+            (own(i, emf_on), self.tau_on_us)
         };
-        // Both sums stay positive and below 2^63 (each term is below 2^61).
-        let (x, y) = (mag + a, target + a);
-        if y <= 0 || x <= 0 {
-            return None;
-        }
-        let ln = ln_ratio(x as u64, y as u64);
-        let t = crate::clamp::time_q64(ln, tau);
-        let whole = (t >> 64) + u128::from(t & u128::from(u64::MAX) != 0);
-        u32::try_from(whole).ok()
+        time_to(mag, target, a, tau).and_then(|t| u32::try_from(t).ok())
     }
+
+    /// The magnitude of the fast-decay asymptote beyond zero for a current `i` (raw): the
+    /// supply, two diode drops and the back-EMF in the current's own direction.
+    #[inline]
+    fn fast_pull(&self, vs: u32, i: i64, emf_fast: i64) -> i64 {
+        self.fast_gain.apply(vs) as i64 + self.fast_offset + own(i, emf_fast)
+    }
+
+    /// Time for the current magnitude to fall from that of `from` to `to` with the bridge off,
+    /// found by stepping whole periods of `decay` and solving the crossing segment exactly:
+    /// exact for mixed decay too, where [`BridgeModel::decay_time_us`] gives an upper bound.
+    /// Whole µs, rounded up; `None` beyond `max_periods` periods or `u32::MAX` µs.
+    ///
+    /// A planning helper (it loops over periods): for configuration time, the host and the
+    /// main loop, not for the tick path.
+    pub fn decay_time_stepped_us(
+        &self,
+        from: Current,
+        to: Current,
+        supply: Volts,
+        back_emf: SignedVolts,
+        decay: AppliedDecay,
+        max_periods: u32,
+    ) -> Option<u32> {
+        let target = to.working_bits();
+        let lim = Current::LIMIT.to_bits();
+        let mut i = from.to_bits().clamp(-lim, lim);
+        let (vs, emf_on, emf_fast) = self.inputs(supply, back_emf);
+        let (_, k, rest) = self.split(0, decay);
+        let mut elapsed: u128 = 0; // Q64.64 µs
+        for _ in 0..max_periods {
+            if i.abs() <= target {
+                return round_up(elapsed);
+            }
+            let i2 = self.fast_segment(i, vs, emf_fast, self.fast_duty.eval(k));
+            if i2.abs() <= target {
+                let t = time_to_q64(
+                    i.abs(),
+                    target,
+                    self.fast_pull(vs, i, emf_fast),
+                    self.tau_fast_us,
+                )?;
+                return round_up(elapsed + t);
+            }
+            let i3 = toward(i2, -emf_on, self.on_duty.eval(rest));
+            if i3.abs() <= target || (i3 != 0 && (i3 < 0) != (i2 < 0)) {
+                let t = time_to_q64(i2.abs(), target, own(i2, emf_on), self.tau_on_us)?;
+                let fast_part = u128::from(k) * u128::from(self.count_us);
+                return round_up(elapsed + (fast_part << 32) + t);
+            }
+            i = i3;
+            elapsed += (u128::from(self.duty_full) * u128::from(self.count_us)) << 32;
+        }
+        None
+    }
+}
+
+/// The back-EMF term `e` seen in the direction of current `i` (positive: it helps the decay).
+#[inline]
+fn own(i: i64, e: i64) -> i64 {
+    if i < 0 { -e } else { e }
+}
+
+/// `τ·ln((mag + a)/(target + a))` in µs as Q64.64, for a decay of magnitude `mag` toward `−a`
+/// (`None` if it never reaches `target`). Two fixed-point logarithms, no division.
+fn time_to_q64(mag: i64, target: i64, a: i64, tau_us: u64) -> Option<u128> {
+    // Each term is below 2^61, so the sums fit.
+    let (x, y) = (mag + a, target + a);
+    if y <= 0 || x <= 0 {
+        return None;
+    }
+    Some(crate::clamp::time_q64(ln_ratio(x as u64, y as u64), tau_us))
+}
+
+/// As [`time_to_q64`], in whole µs rounded up.
+fn time_to(mag: i64, target: i64, a: i64, tau_us: u64) -> Option<u128> {
+    let t = time_to_q64(mag, target, a, tau_us)?;
+    Some((t >> 64) + u128::from(t & u128::from(u64::MAX) != 0))
+}
+
+/// Q64.64 µs to whole µs rounded up, if it fits u32.
+fn round_up(t: u128) -> Option<u32> {
+    u32::try_from((t >> 64) + u128::from(t & u128::from(u64::MAX) != 0)).ok()
 }
 
 /// Per-channel state of the bridge estimator: the signed coil current (positive from leg A to

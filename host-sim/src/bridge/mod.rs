@@ -4,3 +4,4 @@ pub mod cosim;
 pub mod plant;
 pub mod report;
 pub mod scenario;
+pub mod spice;
