@@ -477,3 +477,17 @@ fn a_stalled_start_with_a_known_current_is_a_reversal_for_the_other_direction() 
     let out = g.tick(&mut s, BridgeInput::new(-300, vs));
     assert_eq!(out.duty, -300, "{out:?}");
 }
+
+#[test]
+fn per_channel_state_stays_small() {
+    // Printed for the contributor guide; the per-channel state is what a firmware keeps per
+    // bridge, so it is held to the low-side guard's 64-byte goal.
+    println!(
+        "BridgeModel {} B, BridgeGuard {} B, BridgeState {} B, BridgeOutput {} B",
+        std::mem::size_of::<coilward::bridge::BridgeModel>(),
+        std::mem::size_of::<BridgeGuard>(),
+        std::mem::size_of::<coilward::bridge::BridgeState>(),
+        std::mem::size_of::<coilward::bridge::BridgeOutput>(),
+    );
+    assert!(std::mem::size_of::<coilward::bridge::BridgeState>() <= 64);
+}

@@ -90,6 +90,10 @@ expect 0 "$SIM" run examples/scenarios/irrigation-valve.toml --svg "$OUT/valve.s
     --json "$OUT/valve.json" --csv "$OUT/valve.csv"
 test -s "$OUT/valve.svg" && test -s "$OUT/valve.json" && test -s "$OUT/valve.csv"
 expect 0 "$SIM" run examples/scenarios/relay-zener.toml
+# The full bridge: the gear motor reverses through the interlock and passes; its plot is written.
+expect 0 "$SIM" run examples/scenarios/reversing-gear-motor.toml --svg "$OUT/motor.svg" \
+    --json "$OUT/motor.json" --csv "$OUT/motor.csv"
+test -s "$OUT/motor.svg" && grep -q "reversal-hold" "$OUT/motor.csv"
 # Nothing across the coil: the guard has to cut the current, so the verdict is fail.
 expect 1 "$SIM" run examples/scenarios/unclamped-avalanche.toml
 # Driven to the ceiling on purpose (the fault suite's base): the guard acts, so the verdict is fail.
