@@ -13,6 +13,27 @@ use coilward::{
 /// Periods in the trace.
 pub const PERIODS: u32 = 10_000;
 
+/// The full-bridge demo (a small motor winding, mixed decay, a back-EMF input, a bus), shared by
+/// the panic-free build, the configuration-only build and the benchmark.
+pub fn bridge_params() -> coilward::bridge::BridgeParams {
+    use coilward::bridge::{BodyDiode, BridgeParams, BusParams, DecayMode, MotorParams};
+    BridgeParams::new(
+        coilward::SupplyParams::new(12.0, 10.5, 14.0),
+        coilward::CoilParams::new(1.2e-3, 2.0),
+        coilward::SwitchParams::new(0.02, 30.0),
+        BodyDiode::new(0.8, 0.015),
+        DecayMode::Mixed { fast_share: 0.3 },
+        coilward::ControlParams::new(50e-6, 1000, 8.0),
+    )
+    .with_motor(MotorParams::new(10.0, 0.015))
+    .with_bus(BusParams::new(470e-6, 2.0))
+}
+
+/// The bridge demo's limits: 4 A ceiling, 5 A trip, 50 mA release, 2 ms dead time.
+pub fn bridge_limits() -> coilward::bridge::BridgeLimits {
+    coilward::bridge::BridgeLimits::new(4.0, 5.0, 0.05, 2e-3)
+}
+
 /// The drive: a 24 V valve, 40 mH, 18 Ω at 20 °C, zener clamp across the switch, 20 kHz.
 pub fn params() -> Params {
     let mut coil = CoilParams::new(0.040, 18.0);

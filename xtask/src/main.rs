@@ -285,19 +285,36 @@ fn target_bench() -> Result<(), String> {
             ));
         }
         let overhead = counts[0];
-        let mut worst = 0;
+        let (mut worst, mut bridge_worst) = (0, 0);
         for (op, n) in ops.iter().zip(&counts).skip(1) {
             let n = n.saturating_sub(overhead);
             let _ = writeln!(report, "insn core={} op={op} n={n}", core.name);
             if op.starts_with("tick") {
                 worst = worst.max(n);
             }
+            if op.starts_with("bridge-tick") {
+                bridge_worst = bridge_worst.max(n);
+            }
         }
         let _ = writeln!(report, "insn core={} op=tick-worst n={worst}", core.name);
+        let _ = writeln!(
+            report,
+            "insn core={} op=bridge-tick-worst n={bridge_worst}",
+            core.name
+        );
         let state = text
             .lines()
             .find_map(|l| l.strip_prefix("state-bytes "))
             .unwrap_or("?");
+        let bridge_state = text
+            .lines()
+            .find_map(|l| l.strip_prefix("bridge-state-bytes "))
+            .unwrap_or("?");
+        let _ = writeln!(
+            report,
+            "size core={} bridge-state={bridge_state}",
+            core.name
+        );
         // Run-time code: the panic-free build (every per-tick entry point plus configuration)
         // less the configuration-only build. Configuration itself is reported apart.
         let all = text_size(&elf(core, "nopanic"))?;

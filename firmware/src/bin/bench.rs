@@ -135,6 +135,58 @@ fn main() -> ! {
         )
     });
 
+    // The full bridge: the demo motor winding in mixed decay at 60 % with a 4 V back-EMF.
+    let bp = black_box(trace::bridge_params());
+    let bl = black_box(trace::bridge_limits());
+    let Ok(bridge) = measure(&mut out, "bridge-configure", || {
+        coilward::bridge::BridgeGuard::new(&bp, &bl)
+    }) else {
+        coilward_firmware::finish(false)
+    };
+    let bm = bridge.model();
+    let vs12 = Volts::from_num(12);
+    let emf = coilward::SignedVolts::from_num(4);
+    let mut bc = coilward::bridge::BridgeCoil::idle();
+    for _ in 0..2000 {
+        bm.step(&mut bc, 600, vs12, emf);
+    }
+    measure(&mut out, "bridge-step", || {
+        bm.step(
+            black_box(&mut bc),
+            black_box(600),
+            black_box(vs12),
+            black_box(emf),
+        )
+    });
+    let input = |d: i32| coilward::bridge::BridgeInput::new(d, vs12).with_back_emf(emf);
+    let mut bs = bridge.start_idle();
+    for _ in 0..2000 {
+        bridge.tick(&mut bs, input(600));
+    }
+    measure(&mut out, "bridge-tick", || {
+        bridge.tick(black_box(&mut bs), black_box(input(600)))
+    });
+    // A reversal request: held, with the decay time.
+    let mut held = bs;
+    measure(&mut out, "bridge-tick-hold", || {
+        bridge.tick(black_box(&mut held), black_box(input(-600)))
+    });
+    // Plug braking at the ceiling: the bisection over whole-period predictions.
+    let mut plug = bridge.start_idle();
+    let against = coilward::bridge::BridgeInput::new(-1000, vs12)
+        .with_back_emf(coilward::SignedVolts::from_num(8));
+    for _ in 0..200 {
+        bridge.tick(&mut plug, against);
+    }
+    measure(&mut out, "bridge-tick-limit", || {
+        bridge.tick(black_box(&mut plug), black_box(against))
+    });
+    let _ = writeln!(
+        out,
+        "bridge-state-bytes {}",
+        core::mem::size_of::<coilward::bridge::BridgeState>()
+    );
+
     let _ = writeln!(
         out,
         "state-bytes {}",

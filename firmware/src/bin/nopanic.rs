@@ -7,13 +7,9 @@
 #![no_std]
 #![no_main]
 
-use coilward::bridge::{
-    AppliedDecay, BodyDiode, BridgeGuard, BridgeInput, BridgeLimits, BridgeParams, DecayMode,
-    MotorParams,
-};
+use coilward::bridge::{AppliedDecay, BridgeGuard, BridgeInput};
 use coilward::{
-    CoilParams, ControlParams, Current, EventLog, Guard, HoldPhase, Input, PullInHold, SignedVolts,
-    Speed, SupplyParams, SupplySense, SwitchParams, Volts,
+    Current, EventLog, Guard, HoldPhase, Input, PullInHold, SignedVolts, Speed, SupplySense, Volts,
 };
 use coilward_firmware::trace;
 use core::hint::black_box;
@@ -47,21 +43,10 @@ fn main() -> ! {
     let mut state = black_box(guard.start_after_reset());
     let mut log = EventLog::<8>::new();
     let mut phase = HoldPhase::default();
-    // The full bridge: a demo motor winding, mixed decay, a back-EMF input.
-    let bridge_params = black_box(
-        BridgeParams::new(
-            SupplyParams::new(12.0, 10.0, 14.0),
-            CoilParams::new(2e-3, 4.0),
-            SwitchParams::new(0.05, 40.0),
-            BodyDiode::new(0.8, 0.02),
-            DecayMode::Mixed { fast_share: 0.3 },
-            ControlParams::new(50e-6, 1000, 4.0),
-        )
-        .with_motor(MotorParams::new(9.0, 0.01)),
-    );
+    // The full bridge.
     let bridge = BridgeGuard::new(
-        &bridge_params,
-        &black_box(BridgeLimits::new(2.5, 3.0, 0.05, 1e-3)),
+        &black_box(trace::bridge_params()),
+        &black_box(trace::bridge_limits()),
     );
     let mut bridge_state = bridge.as_ref().ok().map(BridgeGuard::start_after_reset);
     loop {
