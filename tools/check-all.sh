@@ -107,10 +107,10 @@ test -s "$OUT/fit.svg"
 step "fuzzing (cargo-fuzz on nightly): each target for 20 s, seeded with the demo files"
 rustup toolchain install nightly --profile minimal
 command -v cargo-fuzz >/dev/null 2>&1 || cargo install cargo-fuzz --locked
-for t in params guard_ticks scenario capture; do mkdir -p "$OUT/corpus/$t"; done
+for t in params guard_ticks bridge_ticks scenario capture; do mkdir -p "$OUT/corpus/$t"; done
 cp examples/scenarios/*.toml "$OUT/corpus/scenario/"
 cp examples/captures/*.csv "$OUT/corpus/capture/"
-for t in params guard_ticks scenario capture; do
+for t in params guard_ticks bridge_ticks scenario capture; do
     rc=0
     (cd fuzz && cargo +nightly fuzz run -O "$t" "$OUT/corpus/$t" -- \
         -max_total_time=20 -rss_limit_mb=4096 -max_len=8192) >"$OUT/fuzz-$t.log" 2>&1 || rc=$?
