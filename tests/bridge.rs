@@ -491,3 +491,41 @@ fn per_channel_state_stays_small() {
     );
     assert!(std::mem::size_of::<coilward::bridge::BridgeState>() <= 64);
 }
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(512))]
+    /// Every bridge entry point at the extremes of its inputs, with overflow checks on (the test
+    /// profile): any start current, signed duty, supply bits and back-EMF bits; never a panic.
+    #[test]
+    fn the_bridge_takes_extreme_inputs(
+        start in prop_oneof![Just(i64::MIN), Just(i64::MAX), Just(0i64), any::<i64>()],
+        duties in proptest::collection::vec(
+            prop_oneof![Just(i32::MIN), Just(i32::MAX), Just(0i32), any::<i32>()], 1..24),
+        supply in prop_oneof![Just(0u32), Just(u32::MAX), any::<u32>()],
+        emf in prop_oneof![Just(i32::MIN), Just(i32::MAX), any::<i32>()],
+        mode in 0u8..3,
+    ) {
+        let decay = match mode {
+            0 => DecayMode::Fast,
+            1 => DecayMode::Slow,
+            _ => DecayMode::Mixed { fast_share: 0.5 },
+        };
+        let p = params(decay).with_bus(BusParams::new(10e-6, 0.5));
+        let g = BridgeGuard::new(&p, &BridgeLimits::new(2.5, 3.0, 0.05, 1e-3)).unwrap();
+        let m = g.model();
+        let (vs, e) = (Volts::from_bits(supply), SignedVolts::from_bits(emf));
+        let mut s = g.start_with_current(Current::from_bits(start));
+        let mut coil = BridgeCoil::with_current(Current::from_bits(start));
+        for &d in &duties {
+            let out = g.tick(&mut s, BridgeInput::new(d, vs).with_back_emf(e));
+            prop_assert!(out.duty.unsigned_abs() <= N);
+            for decay in [AppliedDecay::Configured, AppliedDecay::Slow, AppliedDecay::Fast] {
+                let _ = m.step_with(&mut coil, d, vs, e, decay);
+                let _ = m.decay_time_us(coil.current(), Current::from_bits(start), vs, e, decay);
+                let _ = m.decay_time_stepped_us(coil.current(), Current::ZERO, vs, e, decay, 50);
+            }
+            let _ = m.back_emf_from_speed(coilward::Speed::from_bits(emf));
+        }
+        let _ = g.start_after_reset();
+    }
+}
