@@ -171,6 +171,41 @@ pub enum Action {
     Trip,
 }
 
+/// Records condition `c` as active and carries out action `a`: a hold sets `hold`, a trip
+/// latches `c`. Shared by the low-side and the bridge guard.
+pub(crate) fn act(
+    active: &mut Conditions,
+    hold: &mut bool,
+    latched: &mut Conditions,
+    c: Condition,
+    a: Action,
+) {
+    active.insert(c);
+    match a {
+        Action::Report => {}
+        Action::Hold => *hold = true,
+        Action::Trip => latched.insert(c),
+    }
+}
+
+/// The action for `supply-range` at supply bits `vs` against the window `min ..= max`: `low`
+/// below it, `high` above it, none inside.
+pub(crate) const fn supply_window(
+    vs: u32,
+    min: u32,
+    max: u32,
+    low: Action,
+    high: Action,
+) -> Option<Action> {
+    if vs > max {
+        Some(high)
+    } else if vs < min {
+        Some(low)
+    } else {
+        None
+    }
+}
+
 /// Whether the condition's event is its start or its end.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]

@@ -292,18 +292,27 @@ pub struct Guard {
 }
 
 fn amps_to_raw(model: &Model, field: Field, amps: f32) -> Result<i64, ConfigError> {
-    let fs = model.derived().full_scale;
+    limit_current(model.derived().full_scale, field, amps, |a| {
+        model.current_from_amps(a)
+    })
+}
+
+/// A guard's current limit (A, positive, 10⁻⁶ ..= 2²¹ full scale) as raw current, through the
+/// model's own conversion `to_current`. Shared by the low-side and the bridge guard.
+pub(crate) fn limit_current(
+    fs: f32,
+    field: Field,
+    amps: f32,
+    to_current: impl Fn(f32) -> Option<Current>,
+) -> Result<i64, ConfigError> {
     let a = positive(field, amps, fs * 1e-6, fs * 2_097_152.0)?;
-    model
-        .current_from_amps(a)
-        .map(Current::to_bits)
-        .ok_or(ConfigError::new(
-            field,
-            crate::Problem::OutOfRange {
-                min: fs * 1e-6,
-                max: fs * 2_097_152.0,
-            },
-        ))
+    to_current(a).map(Current::to_bits).ok_or(ConfigError::new(
+        field,
+        crate::Problem::OutOfRange {
+            min: fs * 1e-6,
+            max: fs * 2_097_152.0,
+        },
+    ))
 }
 
 impl Guard {
@@ -669,35 +678,22 @@ impl Guard {
         let mut hold = false;
         let pol = self.policy;
 
-        let apply = |active: &mut Conditions,
-                     hold: &mut bool,
-                     latched: &mut Conditions,
-                     c: Condition,
-                     a: Action| {
-            active.insert(c);
-            match a {
-                Action::Report => {}
-                Action::Hold => *hold = true,
-                Action::Trip => latched.insert(c),
-            }
-        };
+        let apply = crate::condition::act;
 
         // Supply window.
-        if vs > self.supply_max {
+        if let Some(a) = crate::condition::supply_window(
+            vs,
+            self.supply_min,
+            self.supply_max,
+            pol.supply_low,
+            pol.supply_high,
+        ) {
             apply(
                 &mut active,
                 &mut hold,
                 &mut state.latched,
                 Condition::SupplyRange,
-                pol.supply_high,
-            );
-        } else if vs < self.supply_min {
-            apply(
-                &mut active,
-                &mut hold,
-                &mut state.latched,
-                Condition::SupplyRange,
-                pol.supply_low,
+                a,
             );
         }
         if state.assumed && i_now <= self.release {

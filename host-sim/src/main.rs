@@ -115,41 +115,67 @@ fn load_bridge(file: &Path) -> Result<BridgeScenario, ExitCode> {
     })
 }
 
-fn run_bridge(
-    file: &Path,
-    json: Option<&Path>,
-    csv: Option<&Path>,
-    svg: Option<&Path>,
-) -> Result<ExitCode, ExitCode> {
-    let s = load_bridge(file)?;
-    let r = bridge::cosim::run(&s, csv.is_some() || svg.is_some());
-    print!("{}", bridge::report::summary(&s, &r));
-    if let Some(p) = json {
-        write_file(p, "JSON report", |p| {
-            let text = serde_json::to_string_pretty(&bridge::report::json(&s, &r))
-                .map_err(|e| e.to_string())?;
-            std::fs::write(p, text + "\n").map_err(|e| e.to_string())
-        })?;
-        println!("  json: {}", p.display());
+/// Where `run` writes its reports.
+struct Outputs<'a> {
+    json: Option<&'a Path>,
+    csv: Option<&'a Path>,
+    svg: Option<&'a Path>,
+}
+
+impl Outputs<'_> {
+    /// Whether per-period rows are needed.
+    fn rows(&self) -> bool {
+        self.csv.is_some() || self.svg.is_some()
     }
-    if let Some(p) = csv {
-        write_file(p, "CSV report", |p| {
-            let f = std::fs::File::create(p).map_err(|e| e.to_string())?;
-            bridge::report::csv(&r.rows, std::io::BufWriter::new(f)).map_err(|e| e.to_string())
-        })?;
-        println!("  csv: {}", p.display());
+
+    /// Writes the reports that were asked for, each with its own writer, and names the files.
+    fn write(
+        &self,
+        json: impl FnOnce() -> serde_json::Value,
+        csv: impl FnOnce(std::io::BufWriter<std::fs::File>) -> Result<(), ::csv::Error>,
+        svg: impl FnOnce(&Path) -> Result<(), Box<dyn std::error::Error>>,
+    ) -> Result<(), ExitCode> {
+        if let Some(p) = self.json {
+            write_file(p, "JSON report", |p| {
+                let text = serde_json::to_string_pretty(&json()).map_err(|e| e.to_string())?;
+                std::fs::write(p, text + "\n").map_err(|e| e.to_string())
+            })?;
+            println!("  json: {}", p.display());
+        }
+        if let Some(p) = self.csv {
+            write_file(p, "CSV report", |p| {
+                let f = std::fs::File::create(p).map_err(|e| e.to_string())?;
+                csv(std::io::BufWriter::new(f)).map_err(|e| e.to_string())
+            })?;
+            println!("  csv: {}", p.display());
+        }
+        if let Some(p) = self.svg {
+            write_file(p, "plot", |p| svg(p).map_err(|e| e.to_string()))?;
+            println!("  plot: {}", p.display());
+        }
+        Ok(())
     }
-    if let Some(p) = svg {
-        write_file(p, "plot", |p| {
-            bridge::report::svg(&s, &r, p).map_err(|e| e.to_string())
-        })?;
-        println!("  plot: {}", p.display());
-    }
-    Ok(if r.passed() {
+}
+
+/// Exit status 0 for a pass, 1 otherwise.
+fn verdict(passed: bool) -> ExitCode {
+    if passed {
         ExitCode::SUCCESS
     } else {
         ExitCode::from(1)
-    })
+    }
+}
+
+fn run_bridge(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
+    let s = load_bridge(file)?;
+    let r = bridge::cosim::run(&s, out.rows());
+    print!("{}", bridge::report::summary(&s, &r));
+    out.write(
+        || bridge::report::json(&s, &r),
+        |w| bridge::report::csv(&r.rows, w),
+        |p| bridge::report::svg(&s, &r, p),
+    )?;
+    Ok(verdict(r.passed()))
 }
 
 fn check_bridge(file: &Path) -> Result<ExitCode, ExitCode> {
@@ -223,46 +249,16 @@ fn write_file(
     })
 }
 
-fn run(
-    file: &Path,
-    json: Option<&Path>,
-    csv: Option<&Path>,
-    svg: Option<&Path>,
-) -> Result<ExitCode, ExitCode> {
+fn run(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
     let s = load(file)?;
-    let r = cosim::run(
-        &s,
-        Options {
-            rows: csv.is_some() || svg.is_some(),
-        },
-    );
+    let r = cosim::run(&s, Options { rows: out.rows() });
     print!("{}", report::summary(&s, &r));
-    if let Some(p) = json {
-        write_file(p, "JSON report", |p| {
-            let text = serde_json::to_string_pretty(&report::json::report(&s, &r))
-                .map_err(|e| e.to_string())?;
-            std::fs::write(p, text + "\n").map_err(|e| e.to_string())
-        })?;
-        println!("  json: {}", p.display());
-    }
-    if let Some(p) = csv {
-        write_file(p, "CSV report", |p| {
-            let f = std::fs::File::create(p).map_err(|e| e.to_string())?;
-            report::csv::write(&r.rows, std::io::BufWriter::new(f)).map_err(|e| e.to_string())
-        })?;
-        println!("  csv: {}", p.display());
-    }
-    if let Some(p) = svg {
-        write_file(p, "plot", |p| {
-            report::svg::write(&s, &r, p).map_err(|e| e.to_string())
-        })?;
-        println!("  plot: {}", p.display());
-    }
-    Ok(if r.passed() {
-        ExitCode::SUCCESS
-    } else {
-        ExitCode::from(1)
-    })
+    out.write(
+        || report::json::report(&s, &r),
+        |w| report::csv::write(&r.rows, w),
+        |p| report::svg::write(&s, &r, p),
+    )?;
+    Ok(verdict(r.passed()))
 }
 
 fn check(file: &Path) -> Result<ExitCode, ExitCode> {
@@ -607,13 +603,18 @@ fn main() -> ExitCode {
             json,
             csv,
             svg,
-        } if is_bridge(file) => run_bridge(file, json.as_deref(), csv.as_deref(), svg.as_deref()),
-        Command::Run {
-            file,
-            json,
-            csv,
-            svg,
-        } => run(file, json.as_deref(), csv.as_deref(), svg.as_deref()),
+        } => {
+            let out = Outputs {
+                json: json.as_deref(),
+                csv: csv.as_deref(),
+                svg: svg.as_deref(),
+            };
+            if is_bridge(file) {
+                run_bridge(file, &out)
+            } else {
+                run(file, &out)
+            }
+        }
         Command::Check { file } if is_bridge(file) => check_bridge(file),
         Command::Check { file } => check(file),
         Command::Sweep { file, .. } if is_bridge(file) => {

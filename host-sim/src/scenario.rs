@@ -767,6 +767,30 @@ impl Cx<'_> {
     }
 }
 
+/// The first control period (of `period` s) whose start is at or after `at`: a step at 10 ms
+/// with a 50 µs period starts period 200 exactly, whatever the rounding of 10 ms / 50 µs.
+pub(crate) fn first_period_at(at: f64, period: f64) -> u64 {
+    let k = at / period;
+    let near = k.round();
+    if (k - near).abs() <= 1e-6 {
+        near as u64
+    } else {
+        k.ceil() as u64
+    }
+}
+
+/// The duty a drive timeline (steps in time order, each `(at, duty)`) requests in period `k`:
+/// the last step started by then, or 0 before the first.
+pub(crate) fn duty_in_period<T>(
+    steps: &[T],
+    step: impl Fn(&T) -> (f64, f64),
+    period: f64,
+    k: u64,
+) -> f64 {
+    let n = steps.partition_point(|s| first_period_at(step(s).0, period) <= k);
+    if n == 0 { 0.0 } else { step(&steps[n - 1]).1 }
+}
+
 /// The circuit a scenario file describes.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Topology {
@@ -1458,19 +1482,12 @@ impl Scenario {
     /// The first control period at or after a step's time (a step at 10 ms with a 50 µs period
     /// starts period 200 exactly, whatever the rounding of 10 ms / 50 µs).
     pub fn step_period(&self, at: f64) -> u64 {
-        let k = at / self.period;
-        let near = k.round();
-        if (k - near).abs() <= 1e-6 {
-            near as u64
-        } else {
-            k.ceil() as u64
-        }
+        first_period_at(at, self.period)
     }
 
     /// Requested duty (0 ..= 1) in control period `k`.
     pub fn duty_in_period(&self, k: u64) -> f64 {
-        let n = self.drive.partition_point(|s| self.step_period(s.at) <= k);
-        if n == 0 { 0.0 } else { self.drive[n - 1].duty }
+        duty_in_period(&self.drive, |s| (s.at, s.duty), self.period, k)
     }
 }
 

@@ -33,7 +33,7 @@
 use crate::bridge::drive::PeriodPlan;
 use crate::bridge::{AppliedDecay, BridgeCoil, BridgeEstimate, BridgeModel, BridgeParams};
 use crate::condition::{Action, Condition, Conditions};
-use crate::params::{ConfigError, Conflict, Field, positive};
+use crate::params::{ConfigError, Conflict, Field};
 use crate::units::{Charge, Current, SignedVolts, Volts};
 
 /// What the guard does while `supply-pump` is active.
@@ -260,18 +260,9 @@ pub struct BridgeGuard {
 }
 
 fn amps_to_raw(model: &BridgeModel, field: Field, amps: f32) -> Result<i64, ConfigError> {
-    let fs = model.derived().full_scale;
-    let a = positive(field, amps, fs * 1e-6, fs * 2_097_152.0)?;
-    model
-        .current_from_amps(a)
-        .map(Current::to_bits)
-        .ok_or(ConfigError::new(
-            field,
-            crate::Problem::OutOfRange {
-                min: fs * 1e-6,
-                max: fs * 2_097_152.0,
-            },
-        ))
+    crate::guard::limit_current(model.derived().full_scale, field, amps, |a| {
+        model.current_from_amps(a)
+    })
 }
 
 impl BridgeGuard {
@@ -446,33 +437,20 @@ impl BridgeGuard {
         let mut active = Conditions::NONE;
         let mut hold = false;
         let pol = self.policy;
-        let apply = |active: &mut Conditions,
-                     hold: &mut bool,
-                     latched: &mut Conditions,
-                     c: Condition,
-                     a: Action| {
-            active.insert(c);
-            match a {
-                Action::Report => {}
-                Action::Hold => *hold = true,
-                Action::Trip => latched.insert(c),
-            }
-        };
-        if vs > self.supply_max {
+        let apply = crate::condition::act;
+        if let Some(a) = crate::condition::supply_window(
+            vs,
+            self.supply_min,
+            self.supply_max,
+            pol.supply_low,
+            pol.supply_high,
+        ) {
             apply(
                 &mut active,
                 &mut hold,
                 &mut state.latched,
                 Condition::SupplyRange,
-                pol.supply_high,
-            );
-        } else if vs < self.supply_min {
-            apply(
-                &mut active,
-                &mut hold,
-                &mut state.latched,
-                Condition::SupplyRange,
-                pol.supply_low,
+                a,
             );
         }
         // An assumed (after-reset) current is a belief, not an observation: no trip on it.

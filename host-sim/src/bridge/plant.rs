@@ -454,17 +454,7 @@ mod tests {
     use super::*;
 
     fn coil() -> BridgeCircuit {
-        BridgeCircuit {
-            supply: 12.0,
-            inductance: 2e-3,
-            resistance: 4.0,
-            on_resistance: 0.05,
-            diode_drop: 0.8,
-            diode_resistance: 0.02,
-            rotor: None,
-            back_emf: 0.0,
-            bus: None,
-        }
+        crate::bridge::spice::demo_winding()
     }
 
     #[test]

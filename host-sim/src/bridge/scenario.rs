@@ -464,21 +464,9 @@ impl BridgeScenario {
         cx.error(&key, None, format!("refused by the library: {e}"))
     }
 
-    /// The first control period at or after `at`.
-    pub fn step_period(&self, at: f64) -> u64 {
-        let k = at / self.period;
-        let near = k.round();
-        if (k - near).abs() <= 1e-6 {
-            near as u64
-        } else {
-            k.ceil() as u64
-        }
-    }
-
     /// Requested signed duty (−1 ..= 1) in control period `k`.
     pub fn duty_in_period(&self, k: u64) -> f64 {
-        let n = self.drive.partition_point(|s| self.step_period(s.at) <= k);
-        if n == 0 { 0.0 } else { self.drive[n - 1].duty }
+        crate::scenario::duty_in_period(&self.drive, |s| (s.at, s.duty), self.period, k)
     }
 }
 
