@@ -109,10 +109,7 @@ fn is_bridge(file: &Path) -> bool {
 }
 
 fn load_bridge(file: &Path) -> Result<BridgeScenario, ExitCode> {
-    BridgeScenario::load(file).map_err(|e| {
-        eprintln!("error: {e}");
-        ExitCode::from(2)
-    })
+    refused(BridgeScenario::load(file))
 }
 
 /// Where `run` writes its reports.
@@ -232,7 +229,12 @@ fn check_bridge(file: &Path) -> Result<ExitCode, ExitCode> {
 }
 
 fn load(file: &Path) -> Result<Scenario, ExitCode> {
-    Scenario::load(file).map_err(|e| {
+    refused(Scenario::load(file))
+}
+
+/// A scenario that did not load: its error printed, exit status 2.
+fn refused<T>(loaded: Result<T, scenario::ScenarioError>) -> Result<T, ExitCode> {
+    loaded.map_err(|e| {
         eprintln!("error: {e}");
         ExitCode::from(2)
     })

@@ -791,6 +791,16 @@ pub(crate) fn duty_in_period<T>(
     if n == 0 { 0.0 } else { step(&steps[n - 1]).1 }
 }
 
+/// A scenario file's text, or an error naming the file.
+pub(crate) fn read(path: &Path) -> Result<String, ScenarioError> {
+    std::fs::read_to_string(path).map_err(|e| ScenarioError {
+        file: path.to_path_buf(),
+        at: None,
+        key: None,
+        message: format!("cannot read: {e}"),
+    })
+}
+
 /// The circuit a scenario file describes.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Topology {
@@ -841,13 +851,7 @@ fn scenario_key(field: &str) -> &str {
 impl Scenario {
     /// Reads and validates a scenario file.
     pub fn load(path: &Path) -> Result<Self, ScenarioError> {
-        let text = std::fs::read_to_string(path).map_err(|e| ScenarioError {
-            file: path.to_path_buf(),
-            at: None,
-            key: None,
-            message: format!("cannot read: {e}"),
-        })?;
-        Self::parse(path, &text)
+        Self::parse(path, &read(path)?)
     }
 
     /// Validates scenario text (`path` names it in messages).

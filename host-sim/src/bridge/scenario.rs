@@ -194,13 +194,7 @@ impl BridgeScenario {
     /// # Errors
     /// The file, line and key of the first problem.
     pub fn load(path: &Path) -> Result<Self, ScenarioError> {
-        let text = std::fs::read_to_string(path).map_err(|e| ScenarioError {
-            file: path.to_path_buf(),
-            at: None,
-            key: None,
-            message: format!("cannot read: {e}"),
-        })?;
-        Self::parse(path, &text)
+        Self::parse(path, &crate::scenario::read(path)?)
     }
 
     /// Validates full-bridge scenario text.
