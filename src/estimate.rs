@@ -62,9 +62,16 @@ pub struct PeriodEstimate {
     pub end: Current,
 }
 
+/// The time unit of a segment's length: timer counts (per period) or microseconds (events).
+#[derive(Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Unit {
+    Count,
+    Micro,
+}
+
 /// One exact segment toward asymptote `a`, stopping at zero.
 #[inline(always)]
-fn segment(i: i64, a: i64, e: Decay) -> i64 {
+pub(crate) fn segment(i: i64, a: i64, e: Decay) -> i64 {
     let next = i + scale(a - i, e);
     if next < 0 { 0 } else { next }
 }
@@ -83,6 +90,46 @@ impl PeriodEstimate {
 }
 
 impl Model {
+    /// The on-segment of `len` units from `i0` toward `a`, split at the saturation current when
+    /// the coil saturates (see the model's module documentation).
+    #[inline]
+    pub(crate) fn on_part(&self, i0: i64, a: i64, len: u32, unit: Unit) -> i64 {
+        let unsat = |n| match unit {
+            Unit::Count => self.on_duty.eval(n),
+            Unit::Micro => self.on_event.eval(n),
+        };
+        let Some(s) = &self.saturation else {
+            return segment(i0, a, unsat(len));
+        };
+        let sat = |n| match unit {
+            Unit::Count => s.on_duty.eval(n),
+            Unit::Micro => s.on_event.eval(n),
+        };
+        if a <= s.at || i0 < 0 {
+            // The current cannot pass the saturation current in this segment.
+            return segment(i0, a, unsat(len));
+        }
+        if i0 >= s.at {
+            return segment(i0, a, sat(len));
+        }
+        let i1 = segment(i0, a, unsat(len));
+        if i1 <= s.at {
+            return i1;
+        }
+        // Crossing time τ·ln((A − i0)/(A − I_sat)), rounded down: the logarithm is lowered by its
+        // error bound (2^−28, 16 units of Q32.32) and the product truncated, so the saturated
+        // part is never shorter than the true one. a > s.at > i0 >= 0: both differences are
+        // positive and below 2^62.
+        let ln = crate::qmath::ln_ratio((a - i0) as u64, (a - s.at) as u64).saturating_sub(16);
+        let tau_units = match unit {
+            Unit::Count => s.tau_on_counts,
+            Unit::Micro => self.tau_on_us,
+        };
+        let t_cross = crate::clamp::time_q64(ln, tau_units) >> 64;
+        let rest = u128::from(len).saturating_sub(t_cross) as u32; // <= len
+        segment(s.at, a, sat(rest))
+    }
+
     /// Advances `state` over one control period in which duty `duty` (counts, clamped to the
     /// duty resolution) was applied, with the measured supply `supply`.
     ///
@@ -120,7 +167,7 @@ impl Model {
             duty
         };
         let i0 = state.current.to_bits();
-        let i1 = segment(i0, self.on_asymptote(vs), self.on_duty.eval(n));
+        let i1 = self.on_part(i0, self.on_asymptote(vs), n, Unit::Count);
         // n <= duty_full, so the subtraction cannot wrap.
         let i2 = segment(
             i1,
@@ -146,7 +193,7 @@ impl Model {
         let vs = self.supply(supply);
         let i0 = state.current.to_bits();
         let i1 = if on {
-            segment(i0, self.on_asymptote(vs), self.on_event.eval(micros))
+            self.on_part(i0, self.on_asymptote(vs), micros, Unit::Micro)
         } else {
             segment(i0, self.off_asymptote(vs), self.off_event.eval(micros))
         };

@@ -43,11 +43,13 @@
 //! shift is checked and every sum saturates or is bounded as commented.
 
 use crate::condition::{Action, Condition, Conditions};
+use crate::estimate::Unit;
 use crate::estimate::{CoilState, PeriodEstimate};
 use crate::model::Model;
 use crate::params::{ConfigError, Conflict, Field, Params, positive};
-use crate::qmath::{ln_ratio, scale};
+use crate::qmath::ln_ratio;
 use crate::thermal::{ClampHeat, ClampReplica, ClampThermal, CoilHeat, CoilReplica, CoilThermal};
+use crate::tolerance::{Bound, Tolerance};
 use crate::units::{Current, Energy, Volts};
 use fixed::types::I32F32;
 
@@ -145,6 +147,8 @@ pub struct GuardLimits {
     pub policy: Policy,
     /// Retry after a trip (none: latch until cleared).
     pub retry: Option<Retry>,
+    /// The uncertainty of the parameters that the guard's bound covers (default: none).
+    pub tolerance: Tolerance,
 }
 
 impl GuardLimits {
@@ -160,7 +164,15 @@ impl GuardLimits {
             coil_thermal: None,
             policy: Policy::default(),
             retry: None,
+            tolerance: Tolerance::EXACT,
         }
+    }
+
+    /// The same limits covering the declared `tolerance`.
+    #[must_use]
+    pub const fn with_tolerance(mut self, tolerance: Tolerance) -> Self {
+        self.tolerance = tolerance;
+        self
     }
 }
 
@@ -198,8 +210,12 @@ pub struct Output {
     pub latched: Conditions,
     /// The estimate over the period (or event) just ended.
     pub estimate: PeriodEstimate,
-    /// Predicted peak of the coming period at the applied duty.
+    /// Predicted peak of the coming period at the applied duty: the bound's, so at or above the
+    /// true peak for every circuit inside the declared tolerance.
     pub predicted_peak: Current,
+    /// The bound now: at or above the true current inside the declared tolerance. The ceiling,
+    /// trip, release hold and clamp checks act on it; `estimate` is the nominal figure.
+    pub bound: Current,
     /// While `release-hold` is active: the remaining time, µs (`None`: it will not decay).
     pub release_in_us: Option<u32>,
 }
@@ -209,6 +225,10 @@ pub struct Output {
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct GuardState {
     coil: CoilState,
+    /// The upper bound of the current (see [`crate::Tolerance`]).
+    bound: CoilState,
+    /// The switch was on at the end of the period (or event) before the one being advanced.
+    on_at_end: bool,
     clamp_heat: ClampHeat,
     coil_heat: CoilHeat,
     /// Duty applied during the current period (the one the next call will advance over).
@@ -227,9 +247,15 @@ pub struct GuardState {
 }
 
 impl GuardState {
-    /// The coil current estimate.
+    /// The coil current estimate (nominal).
     pub const fn current(&self) -> Current {
         self.coil.current()
+    }
+
+    /// The bound of the coil current: at or above the true current for every circuit inside the
+    /// declared tolerance.
+    pub const fn bound(&self) -> Current {
+        self.bound.current()
     }
 
     /// The winding thermal image.
@@ -274,6 +300,7 @@ impl GuardState {
 #[derive(Debug, Clone, PartialEq)]
 pub struct Guard {
     model: Model,
+    bound: Bound,
     ceiling: i64,
     trip: i64,
     release: i64,
@@ -322,6 +349,7 @@ impl Guard {
     /// The first problem found, naming its field (drive fields first, then the guard's).
     pub fn new(params: &Params, limits: &GuardLimits) -> Result<Self, ConfigError> {
         let model = params.validate()?;
+        let bound = Bound::new(params, &model, &limits.tolerance)?;
         let ceiling = amps_to_raw(&model, Field::GuardCurrentCeiling, limits.current_ceiling)?;
         let trip = amps_to_raw(&model, Field::GuardTripCurrent, limits.trip_current)?;
         if trip < ceiling {
@@ -341,7 +369,15 @@ impl Guard {
                 Conflict::ReleaseNotBelowTrip,
             ));
         }
+        if bound.ring() > 0 && release <= bound.ring() + 8 {
+            return Err(ConfigError::conflict(
+                Field::GuardReleaseCurrent,
+                Conflict::ReleaseBelowRing,
+            ));
+        }
         let v_max = Volts::from_bits((f64::from(params.supply.max) * 65_536.0) as u32);
+        // The highest true supply while the reading is at most the maximum.
+        let v_max_hi = Volts::from_bits(bound.supply_hi(v_max.to_bits()));
         let v_min = Volts::from_bits((f64::from(params.supply.min) * 65_536.0) as u32);
         let (pulse_rating, ceiling) = match limits.clamp_pulse_energy {
             Some(j) => {
@@ -358,7 +394,11 @@ impl Guard {
                 let (mut lo, mut hi) = (0i64, Current::LIMIT.to_bits());
                 while hi - lo > 1 {
                     let mid = lo + (hi - lo) / 2;
-                    if model.turn_off_energy(Current::from_bits(mid), v_max) <= rating {
+                    if bound
+                        .fall
+                        .turn_off_energy(Current::from_bits(mid), v_max_hi)
+                        <= rating
+                    {
                         lo = mid;
                     } else {
                         hi = mid;
@@ -400,7 +440,7 @@ impl Guard {
         };
         // Worst-case current after a reset: the steady on-current at the maximum supply, or the
         // trip current if higher.
-        let worst_current = model.on_asymptote(v_max.to_bits()).max(trip);
+        let worst_current = bound.rise.on_asymptote(v_max_hi.to_bits()).max(trip);
         Ok(Self {
             ceiling,
             trip,
@@ -417,6 +457,7 @@ impl Guard {
             stale_per_kelvin,
             model_temperature: crate::model::q32_signed(f64::from(params.coil.winding_temperature)),
             model,
+            bound,
         })
     }
 
@@ -450,6 +491,8 @@ impl Guard {
     pub fn start_idle(&self) -> GuardState {
         GuardState {
             coil: CoilState::idle(),
+            bound: CoilState::idle(),
+            on_at_end: false,
             clamp_heat: ClampHeat::default(),
             coil_heat: CoilHeat::default(),
             applied: 0,
@@ -478,6 +521,7 @@ impl Guard {
     pub fn start_with_current(&self, current: Current) -> GuardState {
         GuardState {
             coil: CoilState::with_current(current),
+            bound: CoilState::with_current(current),
             ..self.start_idle()
         }
     }
@@ -537,10 +581,48 @@ impl Guard {
         self.pulse_rating.is_some() || self.clamp.is_some()
     }
 
-    /// Predicted peak of the coming period at duty `n` from current `i0` (raw).
-    fn peak_at(&self, i0: i64, n: u32, vs: u32) -> i64 {
-        let a = self.model.on_asymptote(vs);
-        (i0 + scale(a - i0, self.model.on_duty.eval(n))).max(i0)
+    /// The bound's peak of the coming period at duty `n` from the bound `b0` (raw), at the high
+    /// supply `vh`.
+    fn peak_at(&self, b0: i64, n: u32, vh: u32) -> i64 {
+        self.bound.on(b0, n, vh, Unit::Count).max(b0)
+    }
+
+    /// Whether duty `n` from the bound `b0` keeps the bound at or below the ceiling in the coming
+    /// period and in one more at the same duty. The look-ahead makes limiting settle at the duty
+    /// that holds the ceiling, instead of alternating full periods with nearly empty ones.
+    /// Monotone in `n` (every segment map of the bound is monotone in its start and length).
+    fn holds(&self, b0: i64, n: u32, vh: u32, on_at_end: bool, f: u64) -> bool {
+        let full = self.model.duty_full;
+        let b = &self.bound;
+        let b1 = b.on(b0, n, vh, Unit::Count);
+        if Self::raised(b1.max(b0), f) > self.ceiling {
+            return false;
+        }
+        let opened = n < full && (n > 0 || on_at_end);
+        let (off_peak, b2) = b.off(b1, full - n, vh, opened, Unit::Count);
+        let b3 = b.on(b2, n, vh, Unit::Count);
+        Self::raised(b3.max(off_peak), f) <= self.ceiling
+    }
+
+    /// Advances the bound over one segment pair (on for `on_len`, then off for `off_len`
+    /// units): returns its peak and end, and updates the state.
+    fn advance_bound(
+        &self,
+        state: &mut GuardState,
+        on_len: u32,
+        off_len: u32,
+        vh: u32,
+        unit: Unit,
+    ) -> (i64, i64) {
+        let b = &self.bound;
+        let b0 = state.bound.current().working_bits();
+        let b1 = b.on(b0, on_len, vh, unit);
+        // A turn-off: the switch opens inside this span, or at its start after being on.
+        let opened = off_len > 0 && (on_len > 0 || state.on_at_end);
+        let (off_peak, b2) = b.off(b1, off_len, vh, opened, unit);
+        state.bound = CoilState::with_current(Current::from_bits(b2));
+        state.on_at_end = off_len == 0 && on_len > 0;
+        (b0.max(b1).max(off_peak).max(b2), b2)
     }
 
     /// One control period. `input.duty` is the request for the coming period; the guard
@@ -577,28 +659,40 @@ impl Guard {
         // 1. The period just ended.
         let was = state.applied.min(n_full);
         let est = m.step(&mut state.coil, was, input.supply);
-        // 2. Replicas. Off-segment energy: exact to zero, else the chord bound.
-        // Only worth computing when a pulse rating or a clamp replica will use it.
+        let vh = self.bound.supply_hi(vs);
+        let b_start = state.bound.current().working_bits();
+        let (b_peak, b_end) = self.advance_bound(state, was, n_full - was, vh, Unit::Count);
+        // 2. Replicas, fed by the bound. Off-segment energy: the whole turn-off once the bound
+        // has decayed to its floor, else the chord bound. Only worth computing when a pulse
+        // rating or a clamp replica will use it.
         let energy = if was >= n_full || !self.uses_clamp_energy() {
             Energy::ZERO
         } else {
-            let off_start = est.peak;
-            if est.end.to_bits() == 0 {
-                m.turn_off_energy(off_start, input.supply)
+            let f = &self.bound.fall;
+            if b_end <= self.bound.ring() + 2 {
+                f.turn_off_energy(Current::from_bits(b_peak), Volts::from_bits(vh))
             } else {
-                m.off_segment_energy_bound(off_start, est.end, n_full - was)
+                f.off_segment_energy_bound(
+                    Current::from_bits(b_peak),
+                    Current::from_bits(b_end),
+                    n_full - was,
+                )
             }
         };
         if let Some(c) = &self.clamp {
             c.period(&mut state.clamp_heat, energy);
         }
         if let Some(c) = &self.coil {
-            c.period(&mut state.coil_heat, est.peak, est.valley);
+            c.period(
+                &mut state.coil_heat,
+                Current::from_bits(b_peak),
+                Current::from_bits(b_start.min(b_end)),
+            );
         }
         // Retry cooldown runs in real time.
         state.cooldown_us = state.cooldown_us.saturating_sub(self.period_us);
         let request = input.duty.min(n_full);
-        self.decide(state, est, vs, request, energy, true)
+        self.decide(state, est, (vs, vh), request, (energy, b_peak), true)
     }
 
     /// One on/off event: the output held its previous state for `elapsed_us` µs (pass the
@@ -618,33 +712,50 @@ impl Guard {
         let vs = m.supply(supply);
         let was_on = state.applied > 0;
         let est = m.advance(&mut state.coil, was_on, elapsed_us, supply);
+        let vh = self.bound.supply_hi(vs);
+        let b_start = state.bound.current().working_bits();
+        let (on_len, off_len) = if was_on {
+            (elapsed_us, 0)
+        } else {
+            (0, elapsed_us)
+        };
+        let (b_peak, b_end) = self.advance_bound(state, on_len, off_len, vh, Unit::Micro);
         let energy = if was_on || !self.uses_clamp_energy() {
             Energy::ZERO
         } else {
-            let full = m.turn_off_energy(est.start, supply);
-            Energy::from_bits(
-                full.to_bits()
-                    .saturating_sub(m.turn_off_energy(est.end, supply).to_bits()),
-            )
+            let f = &self.bound.fall;
+            let v = Volts::from_bits(vh);
+            let full = f.turn_off_energy(Current::from_bits(b_peak), v);
+            let left = if b_end <= self.bound.ring() + 2 {
+                Energy::ZERO
+            } else {
+                f.turn_off_energy(Current::from_bits(b_end), v)
+            };
+            Energy::from_bits(full.to_bits().saturating_sub(left.to_bits()))
         };
         if let Some(c) = &self.clamp {
             c.event(&mut state.clamp_heat, energy, elapsed_us);
         }
         if let Some(c) = &self.coil {
-            c.event(&mut state.coil_heat, est.peak, est.valley, elapsed_us);
+            c.event(
+                &mut state.coil_heat,
+                Current::from_bits(b_peak),
+                Current::from_bits(b_start.min(b_end)),
+                elapsed_us,
+            );
         }
         state.cooldown_us = state.cooldown_us.saturating_sub(elapsed_us);
         let request = if request_on { m.duty_full } else { 0 };
-        self.decide(state, est, vs, request, energy, false)
+        self.decide(state, est, (vs, vh), request, (energy, b_peak), false)
     }
 
     /// Time from the present estimate until the on-current would reach the ceiling, µs
     /// (`None`: it never will at this supply). `τ_on·ln((A_on − i)/(A_on − C))`.
     pub fn on_time_to_ceiling_us(&self, state: &GuardState, supply: Volts) -> Option<u32> {
-        let m = &self.model;
-        let a = m.on_asymptote(m.supply(supply));
+        let r = &self.bound.rise;
+        let a = r.on_asymptote(self.bound.supply_hi(r.supply(supply)));
         let i = Self::raised(
-            state.coil.current().working_bits(),
+            state.bound.current().working_bits(),
             self.stale_factor(state),
         );
         if a <= self.ceiling {
@@ -655,7 +766,12 @@ impl Guard {
         }
         let ln = ln_ratio((a - i) as u64, (a - self.ceiling) as u64);
         // Rounded down: an event scheduled at this time finds the current at most at the ceiling.
-        let t = crate::clamp::time_q64(ln, m.tau_on_us) >> 64;
+        // A saturating coil: the saturated time constant, the shorter one, throughout.
+        let tau = match &r.saturation {
+            Some(s) if self.ceiling > s.at => s.tau_us,
+            _ => r.tau_on_us,
+        };
+        let t = crate::clamp::time_q64(ln, tau) >> 64;
         Some(t.min(u128::from(u32::MAX)) as u32)
     }
 
@@ -664,15 +780,14 @@ impl Guard {
         &self,
         state: &mut GuardState,
         est: PeriodEstimate,
-        vs: u32,
+        (vs, vh): (u32, u32),
         request: u32,
-        energy: Energy,
+        (energy, b_peak): (Energy, i64),
         pwm: bool,
     ) -> Output {
-        let m = &self.model;
         let f = self.stale_factor(state);
-        let i_now = Self::raised(state.coil.current().working_bits(), f);
-        let i_peak = Self::raised(est.peak.working_bits(), f);
+        let i_now = Self::raised(state.bound.current().working_bits(), f);
+        let i_peak = Self::raised(b_peak, f);
         let prev = state.active;
         let mut active = Conditions::NONE;
         let mut hold = false;
@@ -784,34 +899,32 @@ impl Guard {
             if pol.held_request == HeldRequest::Drop {
                 state.dropped = true;
             }
-            release_in = m.decay_time_us(
+            release_in = self.bound.fall.decay_time_us(
                 Current::from_bits(i_now),
                 Current::from_bits(self.release),
-                Volts::from_bits(vs),
+                Volts::from_bits(vh),
             );
         }
         // Ceiling.
-        let i0 = state.coil.current().working_bits();
+        let i0 = state.bound.current().working_bits();
         let mut predicted = i0;
         if duty > 0 {
             if pwm {
-                let peak = Self::raised(self.peak_at(i0, duty, vs), f);
-                if peak > self.ceiling {
-                    // Largest n with a predicted peak at or below the ceiling (bisection).
+                let on_at_end = state.on_at_end;
+                let holds = |n| self.holds(i0, n, vh, on_at_end, f);
+                if !holds(duty) {
+                    // Largest n that holds the bound under the ceiling (bisection; `holds` is
+                    // monotone in n).
                     let (mut lo, mut hi) = (0u32, duty);
                     while hi - lo > 1 {
                         let mid = lo + (hi - lo) / 2;
-                        if Self::raised(self.peak_at(i0, mid, vs), f) <= self.ceiling {
+                        if holds(mid) {
                             lo = mid;
                         } else {
                             hi = mid;
                         }
                     }
-                    duty = if Self::raised(self.peak_at(i0, lo, vs), f) <= self.ceiling {
-                        lo
-                    } else {
-                        0
-                    };
+                    duty = if holds(lo) { lo } else { 0 };
                     active.insert(Condition::CurrentLimit);
                 }
             } else if i_now >= self.ceiling {
@@ -820,7 +933,7 @@ impl Guard {
             }
         }
         if duty > 0 && pwm {
-            predicted = self.peak_at(i0, duty, vs);
+            predicted = self.peak_at(i0, duty, vh);
         }
         if active.contains(Condition::CurrentLimit) {
             state.limit_linger = LIMIT_LINGER;
@@ -832,7 +945,11 @@ impl Guard {
         if duty == 0
             && state.applied > 0
             && let Some(r) = self.pulse_rating
-            && m.turn_off_energy(Current::from_bits(i_now), Volts::from_bits(vs)) > r
+            && self
+                .bound
+                .fall
+                .turn_off_energy(Current::from_bits(i_now), Volts::from_bits(vh))
+                > r
         {
             active.insert(Condition::ClampPulse);
             if pol.clamp_pulse == Action::Trip {
@@ -851,6 +968,7 @@ impl Guard {
             latched: state.latched,
             estimate: est,
             predicted_peak: Current::from_bits(predicted),
+            bound: state.bound.current(),
             release_in_us: release_in,
         }
     }

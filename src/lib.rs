@@ -35,6 +35,7 @@ mod params;
 mod qmath;
 mod steady;
 pub mod thermal;
+mod tolerance;
 mod units;
 
 pub use adc::SupplySense;
@@ -48,7 +49,8 @@ pub use hold::{HoldPhase, PullInHold};
 pub use model::{Derived, Model, PathKind};
 pub use params::{
     COPPER_TEMPERATURE_COEFFICIENT, ClampPath, CoilParams, ConfigError, Conflict, ControlParams,
-    Field, Params, Problem, SupplyParams, SwitchParams,
+    Field, Params, Problem, Saturation, SupplyParams, SwitchParams,
 };
 pub use steady::SteadyState;
+pub use tolerance::Tolerance;
 pub use units::{Charge, Current, Energy, SignedVolts, Speed, Volts};

@@ -14,9 +14,16 @@
 //!
 //!   with τ_off = L/(R + R_p). The current stops at zero (the path blocks reverse current).
 //!
-//! The switch-node capacitance is not part of the per-period model: it delays the clamp by
-//! roughly `C·V_p/I` (nanoseconds for the parts in the contract's range). It is used only for
-//! the turn-off peak when nothing clamps the switch.
+//! With two-slope saturation ([`Saturation`](crate::Saturation)) an on-segment that crosses the
+//! saturation current is split there: the unsaturated exponential up to the crossing (its time
+//! `τ_on·ln((A − i0)/(A − I_sat))`, one fixed-point logarithm, rounded down to whole units so the
+//! saturated part is never short), then the saturated one with `τ_sat = L_sat/(R + R_on)` toward
+//! the same asymptote. Off-segments keep the unsaturated inductance: saturation only speeds a
+//! decay, so the decay time and clamp energy stay upper bounds.
+//!
+//! The switch-node capacitance is not part of the nominal per-period model: it delays the clamp
+//! by roughly `C·V_p/I`. It is used for the turn-off peak when nothing clamps the switch, and by
+//! the guard's upper bound (see [`Tolerance`](crate::Tolerance)).
 
 use crate::params::{
     ClampPath, CoilParams, ConfigError, Conflict, ControlParams, Field, Params, Problem,
@@ -78,9 +85,25 @@ pub struct Derived {
     pub period: f32,
 }
 
+/// The saturated part of the on-segment (see the module documentation).
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct SatPart {
+    /// Saturation current, raw.
+    pub(crate) at: i64,
+    /// Decay tables of the saturated on-segment, per timer count and per µs.
+    pub(crate) on_duty: DecayTable<DUTY_DIGITS>,
+    pub(crate) on_event: DecayTable<EVENT_DIGITS>,
+    /// Unsaturated τ_on in timer counts, Q32.32 (τ_on in µs is [`Model::tau_on_us`]).
+    pub(crate) tau_on_counts: u64,
+    /// Saturated τ_on in µs, Q32.32.
+    pub(crate) tau_us: u64,
+}
+
 /// The immutable fixed-point model of one drive. See the module documentation.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Model {
+    /// Two-slope saturation, when the coil has it.
+    pub(crate) saturation: Option<SatPart>,
     pub(crate) on_duty: DecayTable<DUTY_DIGITS>,
     pub(crate) off_duty: DecayTable<DUTY_DIGITS>,
     pub(crate) on_event: DecayTable<EVENT_DIGITS>,
@@ -153,6 +176,8 @@ pub(crate) struct Winding {
     pub(crate) r: f64,
     /// Switch-node capacitance, F.
     pub(crate) cap: Option<f64>,
+    /// Saturation current (A) and saturated inductance (H).
+    pub(crate) sat: Option<(f64, f64)>,
 }
 
 /// Validates the supply: `(nominal, min, max)` in volts.
@@ -212,7 +237,31 @@ pub(crate) fn coil_values(c: &CoilParams) -> Result<Winding, ConfigError> {
             Conflict::ResistanceAtTemperature,
         ));
     }
-    Ok(Winding { l, r, cap })
+    let sat = match c.saturation {
+        Some(s) => {
+            let at = f64::from(positive(
+                Field::CoilSaturationCurrent,
+                s.current,
+                1e-4,
+                1e4,
+            )?);
+            let ls = f64::from(positive(
+                Field::CoilSaturatedInductance,
+                s.inductance,
+                1e-6,
+                1e3,
+            )?);
+            if ls > l {
+                return Err(ConfigError::conflict(
+                    Field::CoilSaturatedInductance,
+                    Conflict::SaturatedAboveInductance,
+                ));
+            }
+            Some((at, ls))
+        }
+        None => None,
+    };
+    Ok(Winding { l, r, cap, sat })
 }
 
 /// Validates a switch against the maximum supply: `(on_resistance, breakdown)`.
@@ -273,7 +322,7 @@ impl Model {
     /// The first problem found, naming its field; see [`Conflict`] for the cross-checks.
     pub fn new(p: &Params) -> Result<Self, ConfigError> {
         let (v_nom, _, v_max) = supply_values(&p.supply)?;
-        let Winding { l, r, cap } = coil_values(&p.coil)?;
+        let Winding { l, r, cap, sat } = coil_values(&p.coil)?;
 
         let (r_on, bv) = switch_values(p.switch, v_max)?;
 
@@ -359,6 +408,29 @@ impl Model {
                 Conflict::PeriodTooShort,
             ));
         }
+        let saturation = match sat {
+            Some((at, ls)) => {
+                let tau_sat = ls / r_on_total;
+                if !tau_ok(tau_sat) {
+                    return Err(ConfigError::conflict(
+                        Field::CoilSaturatedInductance,
+                        Conflict::TimeConstantOutOfRange,
+                    ));
+                }
+                let count_s = t / f64::from(n_full);
+                Some(SatPart {
+                    // Capped at the working limit 2^61 raw: a saturation current beyond it is
+                    // never reached by a working current.
+                    at: libm::round(at / fs * 1_099_511_627_776.0).min(2_305_843_009_213_693_952.0)
+                        as i64,
+                    on_duty: DecayTable::new(count_s / tau_sat),
+                    on_event: DecayTable::new(1e-6 / tau_sat),
+                    tau_on_counts: q32(tau_on / count_s),
+                    tau_us: q32(tau_sat * 1e6),
+                })
+            }
+            None => None,
+        };
         let v_cap = 2.0 * v_max;
         let through_supply = kind.through_supply();
         let a_on_max = v_cap / r_on_total / fs;
@@ -410,6 +482,7 @@ impl Model {
         };
 
         Ok(Model {
+            saturation,
             on_duty: DecayTable::new(count / tau_on),
             off_duty: DecayTable::new(count / tau_off),
             on_event: DecayTable::new(1e-6 / tau_on),

@@ -59,8 +59,42 @@ pub struct CoilParams {
     /// Default: the reference temperature.
     pub winding_temperature: f32,
     /// Parasitic capacitance at the switch node (drain to ground), F, if known.
-    /// Range 1 fF ..= 1 mF. Used for the turn-off peak when nothing clamps the switch.
+    /// Range 1 fF ..= 1 mF. Used for the turn-off peak when nothing clamps the switch, and by
+    /// the guard's bound for the charge the node takes at each turn-off.
     pub node_capacitance: Option<f32>,
+    /// Two-slope saturation of the core, if the coil saturates within its working range.
+    pub saturation: Option<Saturation>,
+}
+
+/// Two-slope saturation: below [`current`](Self::current) the coil has its inductance; above it
+/// the incremental inductance `dψ/di` falls to [`inductance`](Self::inductance), so the flux
+/// linkage is `L·I_sat + L_sat·(i − I_sat)` (the piecewise-linear magnetisation curve of any
+/// electromechanics text; see `DEVELOPERS.md`).
+///
+/// ```
+/// use coilward::{CoilParams, Saturation};
+/// // A plunger coil whose inductance falls to a quarter above 0.8 A.
+/// let coil = CoilParams::new(0.1, 12.0).with_saturation(Saturation::new(0.8, 0.025));
+/// assert_eq!(coil.saturation.unwrap().current, 0.8);
+/// ```
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub struct Saturation {
+    /// Current at which the core saturates, A. Range 100 µA ..= 10 kA.
+    pub current: f32,
+    /// Incremental inductance above that current, H. Range 1 µH ..= the coil's inductance.
+    pub inductance: f32,
+}
+
+impl Saturation {
+    /// Saturation above `current` (A), with incremental inductance `inductance` (H) there.
+    pub const fn new(current: f32, inductance: f32) -> Self {
+        Self {
+            current,
+            inductance,
+        }
+    }
 }
 
 impl CoilParams {
@@ -73,7 +107,15 @@ impl CoilParams {
             temperature_coefficient: COPPER_TEMPERATURE_COEFFICIENT,
             winding_temperature: 20.0,
             node_capacitance: None,
+            saturation: None,
         }
+    }
+
+    /// The same coil with two-slope saturation.
+    #[must_use]
+    pub const fn with_saturation(mut self, saturation: Saturation) -> Self {
+        self.saturation = Some(saturation);
+        self
     }
 
     /// The same coil at another winding temperature (°C).
@@ -237,6 +279,10 @@ pub enum Field {
     CoilWindingTemperature,
     /// `coil.node_capacitance`
     CoilNodeCapacitance,
+    /// `coil.saturation.current`
+    CoilSaturationCurrent,
+    /// `coil.saturation.inductance`
+    CoilSaturatedInductance,
     /// `switch.on_resistance`
     SwitchOnResistance,
     /// `switch.breakdown`
@@ -309,6 +355,18 @@ pub enum Field {
     BusSinkCurrent,
     /// `guard.reversal_dead_time` (full bridge)
     GuardReversalDeadTime,
+    /// `tolerance.inductance`
+    ToleranceInductance,
+    /// `tolerance.resistance`
+    ToleranceResistance,
+    /// `tolerance.supply_reading`
+    ToleranceSupplyReading,
+    /// `tolerance.node_capacitance`
+    ToleranceNodeCapacitance,
+    /// `tolerance.saturation_current`
+    ToleranceSaturationCurrent,
+    /// `tolerance.saturated_inductance`
+    ToleranceSaturatedInductance,
 }
 
 impl Field {
@@ -324,6 +382,8 @@ impl Field {
             Field::CoilTemperatureCoefficient => "coil.temperature_coefficient",
             Field::CoilWindingTemperature => "coil.winding_temperature",
             Field::CoilNodeCapacitance => "coil.node_capacitance",
+            Field::CoilSaturationCurrent => "coil.saturation.current",
+            Field::CoilSaturatedInductance => "coil.saturation.inductance",
             Field::SwitchOnResistance => "switch.on_resistance",
             Field::SwitchBreakdown => "switch.breakdown",
             Field::ClampForwardDrop => "clamp.forward_drop",
@@ -360,6 +420,12 @@ impl Field {
             Field::BusCapacitance => "bus.capacitance",
             Field::BusSinkCurrent => "bus.sink_current",
             Field::GuardReversalDeadTime => "guard.reversal_dead_time",
+            Field::ToleranceInductance => "tolerance.inductance",
+            Field::ToleranceResistance => "tolerance.resistance",
+            Field::ToleranceSupplyReading => "tolerance.supply_reading",
+            Field::ToleranceNodeCapacitance => "tolerance.node_capacitance",
+            Field::ToleranceSaturationCurrent => "tolerance.saturation_current",
+            Field::ToleranceSaturatedInductance => "tolerance.saturated_inductance",
         }
     }
 }
@@ -429,6 +495,14 @@ pub enum Conflict {
     /// The resting supply is already at its maximum: the bulk capacitance has no headroom to
     /// take returned energy.
     NoBusHeadroom,
+    /// The saturated inductance is above the coil's inductance.
+    SaturatedAboveInductance,
+    /// A spread of the declared tolerance leaves a parameter the model cannot take (a time
+    /// constant or a resistance out of range at a corner of the box).
+    CornerOutOfRange,
+    /// The release current is at or below the ring a turn-off can leave in the switch-node
+    /// capacitance, so a release could never be confirmed.
+    ReleaseBelowRing,
 }
 
 /// A parameter was refused: which one, and why.
@@ -491,6 +565,15 @@ impl fmt::Display for Conflict {
             }
             Conflict::NoBusHeadroom => {
                 "nominal supply equals the maximum, leaving no headroom for returned energy"
+            }
+            Conflict::SaturatedAboveInductance => {
+                "saturated inductance is above the coil's inductance"
+            }
+            Conflict::CornerOutOfRange => {
+                "at a corner of the declared tolerance a time constant or resistance leaves its range"
+            }
+            Conflict::ReleaseBelowRing => {
+                "release current is at or below the ring the switch-node capacitance can leave after a turn-off"
             }
         })
     }

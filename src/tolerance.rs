@@ -1,0 +1,393 @@
+//! The declared tolerance, and the guard's upper bound of the coil current inside it.
+//!
+//! Without a current sensor the guard cannot see a coil that differs from its parameters. What
+//! it can do is carry, beside its nominal estimate, a current that is provably at or above the
+//! true one for every circuit inside a box the user declares ([`Tolerance`]), and act on that.
+//!
+//! # The box
+//! Inductance `L·(1 ± f_L)`, winding resistance `R·(1 ± f_R)` (a resistance spread covers a
+//! winding-temperature range: copper changes by 0.393 %/K, IEC 60028), the supply reading within
+//! `± f_V` of the true supply, the switch-node capacitance up to `C·(1 + f_C)`, and, for a
+//! saturating coil, the saturation current `I_sat·(1 ± f_I)` and saturated inductance
+//! `L_sat·(1 ± f_S)`. The on-resistance and the clamp path are taken as given.
+//!
+//! # Construction (proof sketch; the contributor guide has the long form)
+//! Every segment of constant drive is `L(i)·di/dt = V − R_t·i` with `L(i) > 0`. Two facts carry
+//! the whole bound:
+//! 1. *Monotone in the start.* A segment's end is an increasing function of its start (the map
+//!    `i ↦ A + (i − A)·e^(−t/τ)` has slope `e^(−t/τ) > 0`; the stop at zero keeps it monotone),
+//!    so a bound fed through a composition of segment maps stays a bound.
+//! 2. *Comparison.* If `f_b(i) ≥ f(i)` for every `i`, the solution of `i' = f_b(i)` from a higher
+//!    start stays higher (the comparison theorem for scalar ODEs). For a rising segment
+//!    (`V − R_t·i > 0`) the right side `(V − R_t·i)/L(i)` is largest with the highest asymptote
+//!    and the smallest inductance; for a falling one, with the highest asymptote and the largest
+//!    inductance. The corners are taken separately, so they need not be one physical coil:
+//!    - on-segments use the *rise corner*: `A_on = V_hi/(R_lo + R_on)` and
+//!      `τ = L_lo/(R_hi + R_on)` (a fictitious coil of resistance `R_lo` and inductance
+//!      `L_lo·(R_lo + R_on)/(R_hi + R_on)` has exactly these), with the saturated inductance
+//!      `min(L_sat,lo, L_lo)` above `I_sat,lo`, the crossing rounded toward more saturated time;
+//!      when the bound is already at or above `A_on` it is held (the true current falls);
+//!    - off-segments use the *fall corner*: the highest (least negative) asymptote at `R_hi` and
+//!      `V_hi`, and `τ = L_hi/(R_lo + R_p)`, unsaturated (saturation only speeds a decay). The
+//!      same corner bounds the decay time and the clamp energy (both grow with τ and fall with
+//!      the asymptote's magnitude).
+//! 3. *The node's charge at each turn-off.* With capacitance C at the switch node the current
+//!    first charges the node to the clamp's voltage `V_n` (`Vs + V_p` for a freewheel path, the
+//!    clamp or breakdown voltage across the switch), during which the coil still sees part of
+//!    the supply. Replacing that charge time `T_c = C·V_n/i` by the clamped decay, the decay
+//!    from a raised start `i + C·V_n²/(2·L·i) + C·V_n·R_t/L` (first order in `T_c/τ`) ends where
+//!    the true current ends; the bound raises the start by 1.25 × that while `T_c ≤ τ/8` and
+//!    `T_c` fits in the off-time. Whatever the start, the charge can add at most
+//!    `(V_hi + 1.5 V)·√(C/L_min)` (energy: the node takes `C·(V − v)` at a voltage below the
+//!    supply, at most `½·C·(V + V_bd)²`, with the body diode holding the node above `−V_bd`).
+//!    The true end is *not* monotone in the start (a small current charges the node slowly and
+//!    gains more), so the bound takes the supremum over every start up to its own: the raise
+//!    `x + K/x` is convex, so its largest value is at an end of the interval. After a decay to
+//!    zero, the LC ring can leave up to `V_ring·√(C/L)` flowing (energy: the node holds at most
+//!    `½·C·V_ring²` at the zero crossing), so the bound does not fall below that.
+//!
+//! Rounding: every corner is widened by 10⁻⁶ relative, which covers the tables' 2⁻²⁴ and the
+//! gains' 2⁻³², and each segment of the bound adds 2 raw units for the truncating products.
+//!
+//! # Panics
+//! None: as the estimate (see [`crate::CoilState`]); the node-charge terms use the fixed-point
+//! `log2`/`exp2` kernels (saturating) and u128 products.
+
+use crate::estimate::{Unit, segment};
+use crate::model::Model;
+use crate::params::{ConfigError, Conflict, Field, Params, Problem, Saturation, non_negative};
+use crate::qmath::{Gain, exp2, log2};
+
+/// The uncertainty the guard is told to cover: each a relative spread around the parameter's
+/// nominal value (0.1 = ±10 %). The default, [`Tolerance::EXACT`], trusts the parameters.
+///
+/// ```
+/// use coilward::Tolerance;
+/// // Inductance ±20 %, resistance ±10 % (about ±25 K of copper), supply reading ±2 %.
+/// let t = Tolerance::EXACT.with_inductance(0.2).with_resistance(0.1).with_supply_reading(0.02);
+/// assert_eq!(t.inductance, 0.2);
+/// ```
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub struct Tolerance {
+    /// Inductance spread, ± fraction (0 ..= 0.9).
+    pub inductance: f32,
+    /// Winding-resistance spread at the model's temperature, ± fraction (0 ..= 0.9).
+    pub resistance: f32,
+    /// Error of the supply reading against the true supply, ± fraction (0 ..= 0.5).
+    pub supply_reading: f32,
+    /// Switch-node capacitance up to `coil.node_capacitance·(1 + this)` (0 ..= 10).
+    pub node_capacitance: f32,
+    /// Saturation-current spread, ± fraction (0 ..= 0.9).
+    pub saturation_current: f32,
+    /// Saturated-inductance spread, ± fraction (0 ..= 0.9).
+    pub saturated_inductance: f32,
+}
+
+impl Tolerance {
+    /// No spread: the guard trusts its parameters exactly (its bound then differs from the
+    /// nominal estimate by rounding and the node-charge terms only).
+    pub const EXACT: Self = Self {
+        inductance: 0.0,
+        resistance: 0.0,
+        supply_reading: 0.0,
+        node_capacitance: 0.0,
+        saturation_current: 0.0,
+        saturated_inductance: 0.0,
+    };
+
+    /// With an inductance spread.
+    #[must_use]
+    pub const fn with_inductance(mut self, f: f32) -> Self {
+        self.inductance = f;
+        self
+    }
+
+    /// With a resistance spread.
+    #[must_use]
+    pub const fn with_resistance(mut self, f: f32) -> Self {
+        self.resistance = f;
+        self
+    }
+
+    /// With a supply-reading error.
+    #[must_use]
+    pub const fn with_supply_reading(mut self, f: f32) -> Self {
+        self.supply_reading = f;
+        self
+    }
+
+    /// With a node-capacitance upper spread.
+    #[must_use]
+    pub const fn with_node_capacitance(mut self, f: f32) -> Self {
+        self.node_capacitance = f;
+        self
+    }
+
+    /// With saturation spreads (current, saturated inductance).
+    #[must_use]
+    pub const fn with_saturation(mut self, current: f32, inductance: f32) -> Self {
+        self.saturation_current = current;
+        self.saturated_inductance = inductance;
+        self
+    }
+}
+
+impl Default for Tolerance {
+    fn default() -> Self {
+        Self::EXACT
+    }
+}
+
+/// Spreads validated, as f64 fractions.
+struct Spreads {
+    l: f64,
+    r: f64,
+    v: f64,
+    c: f64,
+    i_sat: f64,
+    l_sat: f64,
+}
+
+fn spreads(t: &Tolerance) -> Result<Spreads, ConfigError> {
+    let f = |field, v, max| non_negative(field, v, max).map(f64::from);
+    Ok(Spreads {
+        l: f(Field::ToleranceInductance, t.inductance, 0.9)?,
+        r: f(Field::ToleranceResistance, t.resistance, 0.9)?,
+        v: f(Field::ToleranceSupplyReading, t.supply_reading, 0.5)?,
+        c: f(Field::ToleranceNodeCapacitance, t.node_capacitance, 10.0)?,
+        i_sat: f(Field::ToleranceSaturationCurrent, t.saturation_current, 0.9)?,
+        l_sat: f(
+            Field::ToleranceSaturatedInductance,
+            t.saturated_inductance,
+            0.9,
+        )?,
+    })
+}
+
+/// Widening of every corner against rounding (see the module documentation).
+const MARGIN: f64 = 1e-6;
+/// Raw units added to each segment of the bound for the truncating products.
+const ROUNDING: i64 = 2;
+/// Body-diode drop allowed below ground at the switch node, V (a silicon body diode drops
+/// about 0.7 ..= 1.2 V: common practice, with margin).
+const BODY_DIODE: f64 = 1.5;
+
+/// The turn-off node-charge terms (see the module documentation, item 3).
+#[derive(Debug, Clone, PartialEq)]
+struct NodeCharge {
+    /// `log2` of 1.25·C/(2·L·I_fs²)·2⁸⁰⁻³² (Q31.32): with `2·log2(V_n bits) − log2(i)` it
+    /// gives the first raise in raw units.
+    log_k1: i64,
+    /// Second raise 1.25·C·V_n,max·R_t/L, raw.
+    k2: i64,
+    /// Smallest current for which `T_c ≤ τ/8`, raw.
+    i_min: i64,
+    /// `C·V_n,max` per time unit: the charge completes within `n` units when `i·n` reaches it
+    /// (raw·counts, raw·µs).
+    charge_counts: u64,
+    charge_us: u64,
+    /// Raw current per supply bit of `√(C/L_min)`: the most a start can gain while the node
+    /// charges is `(V + 1.5 V)·√(C/L)`.
+    sqrt_c_over_l: Gain,
+    /// `1.5 V` in supply bits.
+    body: u32,
+    /// `V_n = base (+ supply)`, supply bits.
+    node_base: u32,
+    node_adds_supply: bool,
+    /// Ring left after a decay to zero, raw.
+    ring: i64,
+}
+
+/// The guard's bound: the two corner models, the reading error and the node charge.
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct Bound {
+    pub(crate) rise: Model,
+    pub(crate) fall: Model,
+    /// `f_V` (widened): the true supply is at most `reading·(1 + f_V)`.
+    reading: Gain,
+    node: Option<NodeCharge>,
+}
+
+/// The corner of `p` with inductance and resistance (at the winding temperature) scaled.
+fn corner(p: &Params, l: f64, r: f64, sat: Option<Saturation>) -> Params {
+    let mut q = *p;
+    q.coil.inductance = (f64::from(p.coil.inductance) * l) as f32;
+    q.coil.resistance = (f64::from(p.coil.resistance) * r) as f32;
+    q.coil.saturation = sat;
+    q
+}
+
+/// Blames a corner's refusal on the spread that produced it.
+fn blame(e: ConfigError) -> ConfigError {
+    let field = match e.field {
+        Field::CoilResistance | Field::CoilWindingTemperature => Field::ToleranceResistance,
+        Field::CoilSaturationCurrent => Field::ToleranceSaturationCurrent,
+        Field::CoilSaturatedInductance => Field::ToleranceSaturatedInductance,
+        _ => Field::ToleranceInductance,
+    };
+    ConfigError::new(field, Problem::Conflict(Conflict::CornerOutOfRange))
+}
+
+impl Bound {
+    /// Builds the corners of `p` for the tolerance `t` (`nominal` is `p` validated).
+    pub(crate) fn new(p: &Params, nominal: &Model, t: &Tolerance) -> Result<Self, ConfigError> {
+        let s = spreads(t)?;
+        let d = nominal.derived();
+        let r_w = f64::from(d.resistance);
+        let r_on = f64::from(p.switch.on_resistance);
+        let r_p = f64::from(d.path_resistance);
+        let (r_lo, r_hi) = (1.0 - s.r - MARGIN, 1.0 + s.r + MARGIN);
+        let (l_lo, l_hi) = (1.0 - s.l - MARGIN, 1.0 + s.l + MARGIN);
+        // Rise corner: R_lo, and the inductance that gives τ = L_lo/(R_hi + R_on).
+        let squeeze = (r_w * r_lo + r_on) / (r_w * r_hi + r_on);
+        let l_nom = f64::from(p.coil.inductance);
+        let sat_lo = p.coil.saturation.map(|sat| {
+            let ls = (f64::from(sat.inductance) * (1.0 - s.l_sat - MARGIN)).min(l_nom * l_lo);
+            Saturation::new(
+                (f64::from(sat.current) * (1.0 - s.i_sat - MARGIN)) as f32,
+                (ls * squeeze) as f32,
+            )
+        });
+        let rise = Model::new(&corner(p, l_lo * squeeze, r_lo, sat_lo)).map_err(blame)?;
+        // Fall corner: R_hi, and the inductance that gives τ = L_hi/(R_lo + R_p).
+        let stretch = (r_w * r_hi + r_p) / (r_w * r_lo + r_p);
+        let fall = Model::new(&corner(p, l_hi * stretch, r_hi, None)).map_err(blame)?;
+        let node = p
+            .coil
+            .node_capacitance
+            .map(|c| Self::node_charge(p, nominal, &s, f64::from(c)));
+        Ok(Self {
+            rise,
+            fall,
+            reading: Gain::new(s.v + MARGIN),
+            node,
+        })
+    }
+
+    fn node_charge(p: &Params, nominal: &Model, s: &Spreads, c: f64) -> NodeCharge {
+        let d = nominal.derived();
+        let c_hi = c * (1.0 + s.c + MARGIN);
+        let l_nom = f64::from(p.coil.inductance);
+        let mut l_min = l_nom * (1.0 - s.l - MARGIN);
+        if let Some(sat) = p.coil.saturation {
+            l_min = l_min.min(f64::from(sat.inductance) * (1.0 - s.l_sat - MARGIN));
+        }
+        let fs = f64::from(d.full_scale);
+        let raw = 1_099_511_627_776.0 / fs;
+        let v_max = f64::from(p.supply.max);
+        let v_p = f64::from(d.path_voltage);
+        let adds = !nominal.path().through_supply();
+        // The node's highest clamp voltage, at twice the maximum supply (the reading's cap).
+        let v_n_max = if adds { 2.0 * v_max + v_p } else { v_p };
+        let r_t_hi = f64::from(d.resistance) * (1.0 + s.r + MARGIN) + f64::from(d.path_resistance);
+        let count = f64::from(d.period) / f64::from(nominal.duty_resolution());
+        // The node rings about the supply from at most V_p above it (freewheel paths) or from at
+        // most the clamp or breakdown voltage (paths across the switch): V_p bounds both.
+        let ring_v = v_p;
+        let k1 = 1.25 * c_hi / (2.0 * l_min * fs * fs);
+        NodeCharge {
+            log_k1: crate::model::q32_signed(libm::log2(k1) + 80.0 - 32.0),
+            k2: libm::ceil(1.25 * c_hi * v_n_max * r_t_hi / l_min * raw) as i64,
+            i_min: libm::ceil(8.0 * c_hi * v_n_max * r_t_hi / l_min * raw) as i64,
+            charge_counts: libm::ceil(c_hi * v_n_max / count * raw).min(1.8e19) as u64,
+            charge_us: libm::ceil(c_hi * v_n_max / 1e-6 * raw).min(1.8e19) as u64,
+            sqrt_c_over_l: Gain::new(libm::sqrt(c_hi / l_min) * raw / 65_536.0 * (1.0 + MARGIN)),
+            body: crate::model::volts_bits(BODY_DIODE),
+            node_base: crate::model::volts_bits(v_p),
+            node_adds_supply: adds,
+            ring: libm::ceil(ring_v * libm::sqrt(c_hi / l_min) * raw) as i64,
+        }
+    }
+
+    /// The ring floor (raw), zero without a node capacitance.
+    pub(crate) fn ring(&self) -> i64 {
+        self.node.as_ref().map_or(0, |n| n.ring)
+    }
+
+    /// The highest true supply for a reading (supply bits, at most the model's cap).
+    #[inline]
+    pub(crate) fn supply_hi(&self, vs: u32) -> u32 {
+        let up = self.reading.apply(vs).min(u64::from(u32::MAX)) as u32;
+        self.rise.supply(crate::Volts::from_bits(
+            vs.saturating_add(up).saturating_add(1),
+        ))
+    }
+
+    /// The bound's on-segment of `len` units from `i0` at the high supply `vh`.
+    #[inline]
+    pub(crate) fn on(&self, i0: i64, len: u32, vh: u32, unit: Unit) -> i64 {
+        if len == 0 {
+            return i0;
+        }
+        let a = self.rise.on_asymptote(vh);
+        if a <= i0 {
+            // The true current falls toward an asymptote at or below this one: hold.
+            return i0;
+        }
+        self.rise.on_part(i0, a, len, unit) + ROUNDING
+    }
+
+    /// The bound's off-segment of `len` units from `i1` at the high supply `vh`; `opened`: the
+    /// switch opened at its start (a turn-off, which charges the node). Returns the highest
+    /// current inside the segment and its end.
+    #[inline]
+    pub(crate) fn off(&self, i1: i64, len: u32, vh: u32, opened: bool, unit: Unit) -> (i64, i64) {
+        if len == 0 {
+            return (i1, i1);
+        }
+        let f = &self.fall;
+        let a = f.off_asymptote(vh);
+        let table = |n| match unit {
+            Unit::Count => f.off_duty.eval(n),
+            Unit::Micro => f.off_event.eval(n),
+        };
+        let decay = |start: i64| {
+            if a < start {
+                segment(start, a, table(len))
+            } else {
+                // An asymptote above the start (a supply at or above a clamp across the switch):
+                // the current rises at most to it.
+                a
+            }
+        };
+        let Some(n) = &self.node else {
+            return (i1, decay(i1) + ROUNDING);
+        };
+        if !opened {
+            return (i1, decay(i1).max(n.ring) + ROUNDING);
+        }
+        // The true end is not monotone in the start (a small current charges the node slowly and
+        // gains more), so the bound is the supremum over every start x in 0 ..= i1:
+        // - any x: at most x + c, c = (V + V_bd)·√(C/L) (energy);
+        // - x >= x_lo (the charge completes early): at most decay(h(x)), h(x) = x + K/x + k2,
+        //   convex, so its largest value on x_lo ..= i1 is at an end.
+        let c = n.sqrt_c_over_l.apply(vh.saturating_add(n.body)) as i64;
+        let peak = i1.saturating_add(c);
+        let charge = match unit {
+            Unit::Count => n.charge_counts,
+            Unit::Micro => n.charge_us,
+        };
+        // x_lo = max(i_min, C·V_n/t_off), the quotient from logarithms, rounded up.
+        let q = exp2(log2(charge) - log2(u64::from(len)));
+        let x_lo = n
+            .i_min
+            .max((q.min(1 << 61) as i64).saturating_add((q >> 20) as i64 + 2));
+        if i1 < x_lo {
+            return (peak, peak.max(n.ring) + ROUNDING);
+        }
+        let v_n = n
+            .node_base
+            .saturating_add(if n.node_adds_supply { vh } else { 0 });
+        let log_k = n.log_k1 + 2 * log2(u64::from(v_n));
+        // x >= x_lo >= 1 here.
+        let h = |x: i64| {
+            let raise = exp2(log_k - log2(x as u64)).min(1 << 61) as i64;
+            x.saturating_add(raise).saturating_add(n.k2)
+        };
+        let y = h(x_lo).max(h(i1));
+        let end = decay(y).min(peak).max(x_lo.saturating_add(c)).max(n.ring);
+        (peak, end + ROUNDING)
+    }
+}
