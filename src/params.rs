@@ -367,6 +367,8 @@ pub enum Field {
     ToleranceSaturationCurrent,
     /// `tolerance.saturated_inductance`
     ToleranceSaturatedInductance,
+    /// `tolerance.clamp_voltage`
+    ToleranceClampVoltage,
 }
 
 impl Field {
@@ -426,6 +428,7 @@ impl Field {
             Field::ToleranceNodeCapacitance => "tolerance.node_capacitance",
             Field::ToleranceSaturationCurrent => "tolerance.saturation_current",
             Field::ToleranceSaturatedInductance => "tolerance.saturated_inductance",
+            Field::ToleranceClampVoltage => "tolerance.clamp_voltage",
         }
     }
 }

@@ -9,7 +9,9 @@
 //! winding-temperature range: copper changes by 0.393 %/K, IEC 60028), the supply reading within
 //! `± f_V` of the true supply, the switch-node capacitance up to `C·(1 + f_C)`, and, for a
 //! saturating coil, the saturation current `I_sat·(1 ± f_I)` and saturated inductance
-//! `L_sat·(1 ± f_S)`. The on-resistance and the clamp path are taken as given.
+//! `L_sat·(1 ± f_S)`, and the clamp path's voltage `V_p·(1 ± f_P)`. The on-resistance, the
+//! clamp's resistance and the switch's breakdown are taken as given (fold an on-resistance
+//! spread into the resistance spread: `f_R' = f_R + f_on·R_on/R`).
 //!
 //! # Construction (proof sketch; the contributor guide has the long form)
 //! Every segment of constant drive is `L(i)·di/dt = V − R_t·i` with `L(i) > 0`. Two facts carry
@@ -55,7 +57,9 @@
 
 use crate::estimate::{Unit, segment};
 use crate::model::Model;
-use crate::params::{ConfigError, Conflict, Field, Params, Problem, Saturation, non_negative};
+use crate::params::{
+    ClampPath, ConfigError, Conflict, Field, Params, Problem, Saturation, non_negative,
+};
 use crate::qmath::{Gain, exp2, log2};
 
 /// The uncertainty the guard is told to cover: each a relative spread around the parameter's
@@ -83,6 +87,10 @@ pub struct Tolerance {
     pub saturation_current: f32,
     /// Saturated-inductance spread, ± fraction (0 ..= 0.9).
     pub saturated_inductance: f32,
+    /// Spread of the clamp path's voltage (diode drop, diode + zener, or the clamp across the
+    /// switch), ± fraction (0 ..= 0.9). A lower voltage decays slower and puts more energy in
+    /// the clamp; the switch's own breakdown is taken as given.
+    pub clamp_voltage: f32,
 }
 
 impl Tolerance {
@@ -95,6 +103,7 @@ impl Tolerance {
         node_capacitance: 0.0,
         saturation_current: 0.0,
         saturated_inductance: 0.0,
+        clamp_voltage: 0.0,
     };
 
     /// With an inductance spread.
@@ -125,6 +134,13 @@ impl Tolerance {
         self
     }
 
+    /// With a clamp-voltage spread.
+    #[must_use]
+    pub const fn with_clamp_voltage(mut self, f: f32) -> Self {
+        self.clamp_voltage = f;
+        self
+    }
+
     /// With saturation spreads (current, saturated inductance).
     #[must_use]
     pub const fn with_saturation(mut self, current: f32, inductance: f32) -> Self {
@@ -148,6 +164,7 @@ struct Spreads {
     c: f64,
     i_sat: f64,
     l_sat: f64,
+    clamp: f64,
 }
 
 fn spreads(t: &Tolerance) -> Result<Spreads, ConfigError> {
@@ -163,6 +180,7 @@ fn spreads(t: &Tolerance) -> Result<Spreads, ConfigError> {
             t.saturated_inductance,
             0.9,
         )?,
+        clamp: f(Field::ToleranceClampVoltage, t.clamp_voltage, 0.9)?,
     })
 }
 
@@ -205,7 +223,7 @@ struct NodeCharge {
 pub(crate) struct Bound {
     pub(crate) rise: Model,
     pub(crate) fall: Model,
-    /// `f_V` (widened): the true supply is at most `reading·(1 + f_V)`.
+    /// `f_V/(1 − f_V)` (widened): the true supply is at most `reading/(1 − f_V)`.
     reading: Gain,
     node: Option<NodeCharge>,
 }
@@ -217,6 +235,24 @@ fn corner(p: &Params, l: f64, r: f64, sat: Option<Saturation>) -> Params {
     q.coil.resistance = (f64::from(p.coil.resistance) * r) as f32;
     q.coil.saturation = sat;
     q
+}
+
+/// `p` with the clamp path's voltage scaled by `k`.
+fn clamp_scaled(p: &mut Params, k: f64) {
+    let s = |v: &mut f32| *v = (f64::from(*v) * k) as f32;
+    match &mut p.clamp {
+        ClampPath::None => {}
+        ClampPath::Freewheel { forward_drop, .. } => s(forward_drop),
+        ClampPath::FreewheelZener {
+            forward_drop,
+            zener_voltage,
+            ..
+        } => {
+            s(forward_drop);
+            s(zener_voltage);
+        }
+        ClampPath::SwitchClamp { clamp_voltage, .. } => s(clamp_voltage),
+    }
 }
 
 /// Blames a corner's refusal on the spread that produced it.
@@ -253,7 +289,17 @@ impl Bound {
         let rise = Model::new(&corner(p, l_lo * squeeze, r_lo, sat_lo)).map_err(blame)?;
         // Fall corner: R_hi, and the inductance that gives τ = L_hi/(R_lo + R_p).
         let stretch = (r_w * r_hi + r_p) / (r_w * r_lo + r_p);
-        let fall = Model::new(&corner(p, l_hi * stretch, r_hi, None)).map_err(blame)?;
+        let mut fall = corner(p, l_hi * stretch, r_hi, None);
+        clamp_scaled(&mut fall, 1.0 - s.clamp - MARGIN);
+        let fall = Model::new(&fall).map_err(|e| match e.field {
+            Field::ClampForwardDrop | Field::ClampZenerVoltage | Field::ClampVoltage => {
+                ConfigError::new(
+                    Field::ToleranceClampVoltage,
+                    Problem::Conflict(Conflict::CornerOutOfRange),
+                )
+            }
+            _ => blame(e),
+        })?;
         let node = p
             .coil
             .node_capacitance
@@ -261,7 +307,8 @@ impl Bound {
         Ok(Self {
             rise,
             fall,
-            reading: Gain::new(s.v + MARGIN),
+            // |reading − true| <= f_V·true, so true <= reading/(1 − f_V) = reading·(1 + f_V/(1 − f_V)).
+            reading: Gain::new(s.v / (1.0 - s.v) + MARGIN),
             node,
         })
     }
@@ -277,7 +324,7 @@ impl Bound {
         let fs = f64::from(d.full_scale);
         let raw = 1_099_511_627_776.0 / fs;
         let v_max = f64::from(p.supply.max);
-        let v_p = f64::from(d.path_voltage);
+        let v_p = f64::from(d.path_voltage) * (1.0 + s.clamp + MARGIN);
         let adds = !nominal.path().through_supply();
         // The node's highest clamp voltage, at twice the maximum supply (the reading's cap).
         let v_n_max = if adds { 2.0 * v_max + v_p } else { v_p };

@@ -1,4 +1,4 @@
-//! Prints the fault-injection table of the README:
+//! Prints the fault-suite table of the README:
 //! `cargo run --release -p coilward-sim --example fault_table`.
 
 use coilward_sim::faults;
@@ -8,9 +8,9 @@ fn main() {
     let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
         .join("../examples/scenarios/valve-at-ceiling.toml");
     let base = Scenario::load(&path).unwrap_or_else(|e| panic!("{e}"));
-    let outcomes: Vec<_> = faults::suite()
+    let outcomes: Vec<_> = faults::suite(&base)
         .iter()
-        .map(|f| faults::run(&base, f))
+        .map(|c| faults::run(c).0)
         .collect();
     print!("{}", faults::table(&outcomes, base.period));
 }

@@ -104,6 +104,9 @@ pub struct EstimateError {
     pub rms_error_a: f64,
     /// Largest (estimate − true) shortfall, A: how far the guard underestimated at worst.
     pub max_underestimate_a: f64,
+    /// Smallest (bound − true) at the period starts, A: the guard's bound is sound while this
+    /// stays at or above zero (see `coilward::Tolerance`).
+    pub min_bound_margin_a: f64,
 }
 
 /// What a run produced.
@@ -345,6 +348,12 @@ fn simulate(
             let err = est_now - plant.state.current;
             out.estimate.max_abs_error_a = out.estimate.max_abs_error_a.max(err.abs());
             out.estimate.max_underestimate_a = out.estimate.max_underestimate_a.max(-err);
+            let margin = f64::from(model.amps(o.bound)) - plant.state.current;
+            out.estimate.min_bound_margin_a = if count == 0 {
+                margin
+            } else {
+                out.estimate.min_bound_margin_a.min(margin)
+            };
             sum_sq += err * err;
             count += 1;
             if o.duty != counts {

@@ -23,7 +23,7 @@ use crate::units::{self, Spread, Unit};
 use coilward::thermal::{ClampThermal, CoilThermal, FosterStage};
 use coilward::{
     Action, ClampPath, CoilParams, ConfigError, ControlParams, GuardLimits, HeldRequest, Params,
-    Retry, SupplyParams, SwitchParams,
+    Retry, Saturation, SupplyParams, SwitchParams, Tolerance,
 };
 use serde::Deserialize;
 use std::collections::{BTreeMap, HashMap};
@@ -333,6 +333,66 @@ impl Knob {
     fn from_name(s: &str) -> Option<Knob> {
         Knob::ALL.into_iter().find(|k| k.name() == s)
     }
+
+    /// Whether the library's parameters hold this value (so a `[model]` belief reaches the
+    /// guard). The source resistance and the body diode exist in the plant only.
+    pub const fn guard_uses(self) -> bool {
+        !matches!(self, Knob::SourceResistance | Knob::BodyDiodeVoltage)
+    }
+}
+
+/// The `[tolerance]` key for the error of the supply reading (not a circuit value, so not a
+/// [`Knob`]): the guard covers it; sweeps leave the reading to `[adc]`.
+pub const SUPPLY_READING: &str = "supply_reading";
+
+/// The box the guard is told to cover, from the spreads around the beliefs: inductance,
+/// resistance (with the winding temperature's and the on-resistance's spreads folded in),
+/// node capacitance, saturation, the clamp path's voltage and the supply reading. The supply
+/// itself, its source resistance and the switch's breakdown and body diode are measured or
+/// taken as given, so their spreads reach sweeps only.
+pub fn declared(b: &Values, spreads: &[(Knob, Spread)], supply_reading: f64) -> Tolerance {
+    let frac = |k: Knob| {
+        spreads.iter().find(|(x, _)| *x == k).map_or(0.0, |&(_, sp)| {
+            let nominal = b.get(k);
+            let (lo, hi) = sp.bounds(nominal);
+            if nominal.abs() > 0.0 {
+                ((nominal - lo).abs().max((hi - nominal).abs()) / nominal.abs()).min(0.9)
+            } else {
+                0.0
+            }
+        })
+    };
+    let r_w = b.hot_resistance();
+    // The winding temperature's spread as a resistance spread (copper's linear law).
+    let temp = spreads
+        .iter()
+        .find(|(x, _)| *x == Knob::Temperature)
+        .map_or(0.0, |&(_, sp)| {
+            let (lo, hi) = sp.bounds(b.temperature);
+            let r = |t: f64| {
+                b.resistance * (1.0 + b.temperature_coefficient * (t - b.reference_temperature))
+            };
+            ((r(hi) - r_w).abs().max((r_w - r(lo)).abs()) / r_w).min(0.9)
+        });
+    let r = ((1.0 + frac(Knob::Resistance)) * (1.0 + temp) - 1.0
+        + frac(Knob::OnResistance) * b.on_resistance / r_w)
+        .min(0.9);
+    let clamp = match b.path {
+        PathName::None => 0.0,
+        PathName::Freewheel => frac(Knob::ForwardVoltage),
+        PathName::FreewheelZener => frac(Knob::ForwardVoltage).max(frac(Knob::ZenerVoltage)),
+        PathName::SwitchClamp => frac(Knob::ClampVoltage),
+    };
+    Tolerance::EXACT
+        .with_inductance(frac(Knob::Inductance) as f32)
+        .with_resistance(r as f32)
+        .with_supply_reading(supply_reading.min(0.5) as f32)
+        .with_node_capacitance(frac(Knob::Capacitance) as f32)
+        .with_saturation(
+            frac(Knob::SaturationCurrent) as f32,
+            frac(Knob::SaturatedInductance) as f32,
+        )
+        .with_clamp_voltage(clamp as f32)
 }
 
 /// The clamp path's kind.
@@ -621,8 +681,10 @@ pub struct Scenario {
     pub duration: f64,
     /// Supply steps and ripple.
     pub supply_profile: SupplyProfile,
-    /// Spreads for sweeps.
+    /// Spreads for sweeps; the guard is told the box they span (see [`declared`]).
     pub tolerance: Vec<(Knob, Spread)>,
+    /// Declared error of the supply reading, ± fraction (`[tolerance] supply_reading`).
+    pub supply_reading: f64,
     /// Defaults the file left to the simulator, as `key = value` notes.
     pub assumed: Vec<String>,
     spans: HashMap<String, Range<usize>>,
@@ -832,6 +894,9 @@ fn scenario_key(field: &str) -> &str {
         "supply.nominal" => "supply.voltage",
         "coil.winding_temperature" => "coil.temperature",
         "coil.node_capacitance" => "switch.capacitance",
+        "coil.saturation.current" => "coil.saturation_current",
+        "coil.saturation.inductance" => "coil.saturated_inductance",
+        "tolerance.node_capacitance" => "tolerance.capacitance",
         "clamp.forward_drop" => "clamp.forward_voltage",
         "clamp.zener_voltage" => "clamp.zener_voltage",
         "clamp.clamp_voltage" => "clamp.clamp_voltage",
@@ -1104,6 +1169,14 @@ impl Scenario {
             if !plant.applies(knob) {
                 return Err(cx.error(&name, Some(value.span()), "does not apply to this circuit"));
             }
+            if !knob.guard_uses() {
+                return Err(cx.error(
+                    &name,
+                    Some(value.span()),
+                    "the guard has no such parameter, so a belief about it would change nothing; \
+                     remove it (the plant's value stays in its own section)",
+                ));
+            }
             let x = cx.required(&name, &Some(value.clone()), knob.unit())?;
             beliefs.set(knob, x);
             overridden.push(knob);
@@ -1374,14 +1447,24 @@ impl Scenario {
 
         // [tolerance]
         let mut tolerance = Vec::new();
+        let mut supply_reading = 0.0;
         for (key, value) in raw.tolerance.iter().flatten() {
             let name = format!("tolerance.{key}");
+            if key == SUPPLY_READING {
+                supply_reading = match units::parse_spread(value.get_ref(), Unit::Volt) {
+                    Ok(Spread::Relative(f)) => f,
+                    Ok(Spread::Absolute(a)) => a / beliefs.voltage,
+                    Err(e) => return Err(cx.error(&name, Some(value.span()), e.0)),
+                };
+                cx.spans.insert(name, value.span());
+                continue;
+            }
             let knob = Knob::from_name(key).ok_or_else(|| {
                 cx.error(
                     &name,
                     Some(value.span()),
                     format!(
-                        "unknown key; [tolerance] takes {}",
+                        "unknown key; [tolerance] takes {SUPPLY_READING}, {}",
                         Knob::ALL.map(Knob::name).join(", ")
                     ),
                 )
@@ -1395,6 +1478,7 @@ impl Scenario {
             tolerance.push((knob, spread));
         }
         plant.supply_min = plant.supply_min.min(plant.voltage);
+        limits.tolerance = declared(&beliefs, &tolerance, supply_reading);
         let scenario = Scenario {
             file: path.to_path_buf(),
             name: raw.name.clone().unwrap_or_else(|| {
@@ -1416,6 +1500,7 @@ impl Scenario {
             duration,
             supply_profile,
             tolerance,
+            supply_reading,
             assumed,
             spans: cx.spans,
             source: text.to_string(),
@@ -1449,6 +1534,9 @@ impl Scenario {
         coil.temperature_coefficient = b.temperature_coefficient as f32;
         coil.winding_temperature = b.temperature as f32;
         coil.node_capacitance = Some(b.capacitance as f32);
+        if let Some((at, ls)) = b.saturation_current.zip(b.saturated_inductance) {
+            coil.saturation = Some(Saturation::new(at as f32, ls as f32));
+        }
         Params::new(
             SupplyParams::new(b.voltage as f32, b.supply_min as f32, b.supply_max as f32),
             coil,
