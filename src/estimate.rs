@@ -76,6 +76,41 @@ pub(crate) fn segment(i: i64, a: i64, e: Decay) -> i64 {
     if next < 0 { 0 } else { next }
 }
 
+/// A rising segment of `len` units from `i0` toward `a` with the unsaturated decay `unsat`,
+/// split where it crosses the saturation current when `sat` = (saturation current, unsaturated
+/// time constant in the same units as Q32.32, saturated decay) is given.
+#[inline]
+pub(crate) fn rise(
+    i0: i64,
+    a: i64,
+    len: u32,
+    unsat: impl Fn(u32) -> Decay,
+    sat: Option<(i64, u64, impl Fn(u32) -> Decay)>,
+) -> i64 {
+    let Some((at, tau_units, sat)) = sat else {
+        return segment(i0, a, unsat(len));
+    };
+    if a <= at || i0 < 0 {
+        // The current cannot pass the saturation current in this segment.
+        return segment(i0, a, unsat(len));
+    }
+    if i0 >= at {
+        return segment(i0, a, sat(len));
+    }
+    let i1 = segment(i0, a, unsat(len));
+    if i1 <= at {
+        return i1;
+    }
+    // Crossing time τ·ln((A − i0)/(A − I_sat)), rounded down: the logarithm is lowered by its
+    // error bound (2^−28, 16 units of Q32.32) and the product truncated, so the saturated part
+    // is never shorter than the true one. a > at > i0 >= 0: both differences are positive and
+    // below 2^62.
+    let ln = crate::qmath::ln_ratio((a - i0) as u64, (a - at) as u64).saturating_sub(16);
+    let t_cross = crate::clamp::time_q64(ln, tau_units) >> 64;
+    let rest = u128::from(len).saturating_sub(t_cross) as u32; // <= len
+    segment(at, a, sat(rest))
+}
+
 impl PeriodEstimate {
     #[inline(always)]
     fn of(i0: i64, i1: i64, i2: i64) -> Self {
@@ -98,36 +133,28 @@ impl Model {
             Unit::Count => self.on_duty.eval(n),
             Unit::Micro => self.on_event.eval(n),
         };
-        let Some(s) = &self.saturation else {
-            return segment(i0, a, unsat(len));
-        };
-        let sat = |n| match unit {
-            Unit::Count => s.on_duty.eval(n),
-            Unit::Micro => s.on_event.eval(n),
-        };
-        if a <= s.at || i0 < 0 {
-            // The current cannot pass the saturation current in this segment.
-            return segment(i0, a, unsat(len));
-        }
-        if i0 >= s.at {
-            return segment(i0, a, sat(len));
-        }
-        let i1 = segment(i0, a, unsat(len));
-        if i1 <= s.at {
-            return i1;
-        }
-        // Crossing time τ·ln((A − i0)/(A − I_sat)), rounded down: the logarithm is lowered by its
-        // error bound (2^−28, 16 units of Q32.32) and the product truncated, so the saturated
-        // part is never shorter than the true one. a > s.at > i0 >= 0: both differences are
-        // positive and below 2^62.
-        let ln = crate::qmath::ln_ratio((a - i0) as u64, (a - s.at) as u64).saturating_sub(16);
-        let tau_units = match unit {
+        let tau_units = |s: &crate::model::SatPart| match unit {
             Unit::Count => s.tau_on_counts,
             Unit::Micro => self.tau_on_us,
         };
-        let t_cross = crate::clamp::time_q64(ln, tau_units) >> 64;
-        let rest = u128::from(len).saturating_sub(t_cross) as u32; // <= len
-        segment(s.at, a, sat(rest))
+        rise(i0, a, len, unsat, self.saturated(unit, tau_units))
+    }
+
+    /// The saturated part in `unit`, as [`rise`] takes it: (saturation current, the unsaturated
+    /// time constant in that unit, the saturated decay).
+    #[inline]
+    pub(crate) fn saturated(
+        &self,
+        unit: Unit,
+        tau_units: impl Fn(&crate::model::SatPart) -> u64,
+    ) -> Option<(i64, u64, impl Fn(u32) -> Decay + '_)> {
+        self.saturation.as_ref().map(move |s| {
+            let eval = move |n| match unit {
+                Unit::Count => s.on_duty.eval(n),
+                Unit::Micro => s.on_event.eval(n),
+            };
+            (s.at, tau_units(s), eval)
+        })
     }
 
     /// Advances `state` over one control period in which duty `duty` (counts, clamped to the

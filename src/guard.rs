@@ -49,7 +49,7 @@ use crate::model::Model;
 use crate::params::{ConfigError, Conflict, Field, Params, positive};
 use crate::qmath::ln_ratio;
 use crate::thermal::{ClampHeat, ClampReplica, ClampThermal, CoilHeat, CoilReplica, CoilThermal};
-use crate::tolerance::{Bound, Tolerance};
+use crate::tolerance::{Bound, SLICES, Tolerance};
 use crate::units::{Current, Energy, Volts};
 use fixed::types::I32F32;
 
@@ -225,8 +225,9 @@ pub struct Output {
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct GuardState {
     coil: CoilState,
-    /// The upper bound of the current (see [`crate::Tolerance`]).
-    bound: CoilState,
+    /// The upper bound of the current per slice of the inductance range (see
+    /// [`crate::Tolerance`]); the bound is their largest.
+    bound: [CoilState; SLICES],
     /// The switch was on at the end of the period (or event) before the one being advanced.
     on_at_end: bool,
     clamp_heat: ClampHeat,
@@ -254,8 +255,16 @@ impl GuardState {
 
     /// The bound of the coil current: at or above the true current for every circuit inside the
     /// declared tolerance.
-    pub const fn bound(&self) -> Current {
-        self.bound.current()
+    pub fn bound(&self) -> Current {
+        Current::from_bits(self.bound_bits())
+    }
+
+    /// The largest slice bound, raw.
+    fn bound_bits(&self) -> i64 {
+        self.bound
+            .iter()
+            .map(|b| b.current().working_bits())
+            .fold(0, i64::max)
     }
 
     /// The winding thermal image.
@@ -491,7 +500,7 @@ impl Guard {
     pub fn start_idle(&self) -> GuardState {
         GuardState {
             coil: CoilState::idle(),
-            bound: CoilState::idle(),
+            bound: [CoilState::idle(); SLICES],
             on_at_end: false,
             clamp_heat: ClampHeat::default(),
             coil_heat: CoilHeat::default(),
@@ -521,7 +530,7 @@ impl Guard {
     pub fn start_with_current(&self, current: Current) -> GuardState {
         GuardState {
             coil: CoilState::with_current(current),
-            bound: CoilState::with_current(current),
+            bound: [CoilState::with_current(current); SLICES],
             ..self.start_idle()
         }
     }
@@ -581,48 +590,73 @@ impl Guard {
         self.pulse_rating.is_some() || self.clamp.is_some()
     }
 
-    /// The bound's peak of the coming period at duty `n` from the bound `b0` (raw), at the high
-    /// supply `vh`.
-    fn peak_at(&self, b0: i64, n: u32, vh: u32) -> i64 {
-        self.bound.on(b0, n, vh, Unit::Count).max(b0)
-    }
-
-    /// Whether duty `n` from the bound `b0` keeps the bound at or below the ceiling in the coming
-    /// period and in one more at the same duty. The look-ahead makes limiting settle at the duty
-    /// that holds the ceiling, instead of alternating full periods with nearly empty ones.
-    /// Monotone in `n` (every segment map of the bound is monotone in its start and length).
-    fn holds(&self, b0: i64, n: u32, vh: u32, on_at_end: bool, f: u64) -> bool {
+    /// Whether duty `n` keeps every slice's bound at or below the ceiling in the coming period
+    /// and in one more at the same duty. The look-ahead makes limiting settle at the duty that
+    /// holds the ceiling, instead of alternating full periods with nearly empty ones. Monotone
+    /// in `n` (every segment map of the bound is monotone in its start and length).
+    fn holds(&self, state: &GuardState, n: u32, vh: u32, f: u64) -> bool {
         let full = self.model.duty_full;
         let b = &self.bound;
-        let b1 = b.on(b0, n, vh, Unit::Count);
-        if Self::raised(b1.max(b0), f) > self.ceiling {
-            return false;
-        }
-        let opened = n < full && (n > 0 || on_at_end);
-        let (off_peak, b2) = b.off(b1, full - n, vh, opened, Unit::Count);
-        let b3 = b.on(b2, n, vh, Unit::Count);
-        Self::raised(b3.max(off_peak), f) <= self.ceiling
+        let opened = n < full && (n > 0 || state.on_at_end);
+        (0..b.used()).all(|j| {
+            let b0 = state.bound.get(j).map_or(0, |c| c.current().working_bits());
+            let b1 = b.on_slice(j, b0, n, vh);
+            if Self::raised(b1.max(b0), f) > self.ceiling {
+                return false;
+            }
+            let (off_peak, b2) = b.off_slice(j, b1, full - n, vh, opened);
+            let b3 = b.on_slice(j, b2, n, vh);
+            Self::raised(b3.max(off_peak), f) <= self.ceiling
+        })
     }
 
-    /// Advances the bound over one segment pair (on for `on_len`, then off for `off_len`
-    /// units): returns its peak and end, and updates the state.
-    fn advance_bound(
-        &self,
-        state: &mut GuardState,
-        on_len: u32,
-        off_len: u32,
-        vh: u32,
-        unit: Unit,
-    ) -> (i64, i64) {
+    /// The bound's peak in the coming period at duty `n` (raw).
+    fn peak_at(&self, state: &GuardState, n: u32, vh: u32) -> i64 {
+        (0..self.bound.used()).fold(0, |m, j| {
+            let b0 = state.bound.get(j).map_or(0, |c| c.current().working_bits());
+            m.max(self.bound.on_slice(j, b0, n, vh).max(b0))
+        })
+    }
+
+    /// Advances the bound over one period of duty `n`: returns its peak and end (the largest
+    /// over the slices) and updates the state.
+    fn advance_period(&self, state: &mut GuardState, n: u32, vh: u32) -> (i64, i64) {
+        let full = self.model.duty_full;
         let b = &self.bound;
-        let b0 = state.bound.current().working_bits();
-        let b1 = b.on(b0, on_len, vh, unit);
-        // A turn-off: the switch opens inside this span, or at its start after being on.
-        let opened = off_len > 0 && (on_len > 0 || state.on_at_end);
-        let (off_peak, b2) = b.off(b1, off_len, vh, opened, unit);
-        state.bound = CoilState::with_current(Current::from_bits(b2));
-        state.on_at_end = off_len == 0 && on_len > 0;
-        (b0.max(b1).max(off_peak).max(b2), b2)
+        // A turn-off: the switch opens inside the period, or at its start after being on.
+        let opened = n < full && (n > 0 || state.on_at_end);
+        let (mut peak, mut end) = (0, 0);
+        for (j, slot) in state.bound.iter_mut().enumerate().take(b.used()) {
+            let b0 = slot.current().working_bits();
+            let b1 = b.on_slice(j, b0, n, vh);
+            let (off_peak, b2) = b.off_slice(j, b1, full - n, vh, opened);
+            *slot = CoilState::with_current(Current::from_bits(b2));
+            peak = peak.max(b0).max(b1).max(off_peak);
+            end = end.max(b2);
+        }
+        // Slots past the slices in use follow the first, so that the largest is the bound.
+        let first = state.bound[0];
+        for slot in state.bound.iter_mut().skip(b.used()) {
+            *slot = first;
+        }
+        state.on_at_end = n >= full;
+        (peak.max(end), end)
+    }
+
+    /// Advances the bound over one event (on or off for `us` µs) with the whole box's corners:
+    /// every slice continues from the largest.
+    fn advance_event(&self, state: &mut GuardState, on: bool, us: u32, vh: u32) -> (i64, i64) {
+        let b = &self.bound;
+        let b0 = state.bound_bits();
+        let (peak, end) = if on {
+            let b1 = b.on_event_or_whole(b0, us, vh, Unit::Micro);
+            (b1, b1)
+        } else {
+            b.off_event_or_whole(b0, us, vh, state.on_at_end, Unit::Micro)
+        };
+        state.bound = [CoilState::with_current(Current::from_bits(end)); SLICES];
+        state.on_at_end = on;
+        (peak.max(b0).max(end), end)
     }
 
     /// One control period. `input.duty` is the request for the coming period; the guard
@@ -660,8 +694,8 @@ impl Guard {
         let was = state.applied.min(n_full);
         let est = m.step(&mut state.coil, was, input.supply);
         let vh = self.bound.supply_hi(vs);
-        let b_start = state.bound.current().working_bits();
-        let (b_peak, b_end) = self.advance_bound(state, was, n_full - was, vh, Unit::Count);
+        let b_start = state.bound_bits();
+        let (b_peak, b_end) = self.advance_period(state, was, vh);
         // 2. Replicas, fed by the bound. Off-segment energy: the whole turn-off once the bound
         // has decayed to its floor, else the chord bound. Only worth computing when a pulse
         // rating or a clamp replica will use it.
@@ -713,13 +747,8 @@ impl Guard {
         let was_on = state.applied > 0;
         let est = m.advance(&mut state.coil, was_on, elapsed_us, supply);
         let vh = self.bound.supply_hi(vs);
-        let b_start = state.bound.current().working_bits();
-        let (on_len, off_len) = if was_on {
-            (elapsed_us, 0)
-        } else {
-            (0, elapsed_us)
-        };
-        let (b_peak, b_end) = self.advance_bound(state, on_len, off_len, vh, Unit::Micro);
+        let b_start = state.bound_bits();
+        let (b_peak, b_end) = self.advance_event(state, was_on, elapsed_us, vh);
         let energy = if was_on || !self.uses_clamp_energy() {
             Energy::ZERO
         } else {
@@ -754,10 +783,7 @@ impl Guard {
     pub fn on_time_to_ceiling_us(&self, state: &GuardState, supply: Volts) -> Option<u32> {
         let r = &self.bound.rise;
         let a = r.on_asymptote(self.bound.supply_hi(r.supply(supply)));
-        let i = Self::raised(
-            state.bound.current().working_bits(),
-            self.stale_factor(state),
-        );
+        let i = Self::raised(state.bound_bits(), self.stale_factor(state));
         if a <= self.ceiling {
             return None;
         }
@@ -786,7 +812,7 @@ impl Guard {
         pwm: bool,
     ) -> Output {
         let f = self.stale_factor(state);
-        let i_now = Self::raised(state.bound.current().working_bits(), f);
+        let i_now = Self::raised(state.bound_bits(), f);
         let i_peak = Self::raised(b_peak, f);
         let prev = state.active;
         let mut active = Conditions::NONE;
@@ -906,12 +932,11 @@ impl Guard {
             );
         }
         // Ceiling.
-        let i0 = state.bound.current().working_bits();
+        let i0 = state.bound_bits();
         let mut predicted = i0;
         if duty > 0 {
             if pwm {
-                let on_at_end = state.on_at_end;
-                let holds = |n| self.holds(i0, n, vh, on_at_end, f);
+                let holds = |n| self.holds(state, n, vh, f);
                 if !holds(duty) {
                     // Largest n that holds the bound under the ceiling (bisection; `holds` is
                     // monotone in n).
@@ -933,7 +958,7 @@ impl Guard {
             }
         }
         if duty > 0 && pwm {
-            predicted = self.peak_at(i0, duty, vh);
+            predicted = self.peak_at(state, duty, vh);
         }
         if active.contains(Condition::CurrentLimit) {
             state.limit_linger = LIMIT_LINGER;
@@ -968,7 +993,7 @@ impl Guard {
             latched: state.latched,
             estimate: est,
             predicted_peak: Current::from_bits(predicted),
-            bound: state.bound.current(),
+            bound: state.bound(),
             release_in_us: release_in,
         }
     }

@@ -55,12 +55,12 @@
 //! None: as the estimate (see [`crate::CoilState`]); the node-charge terms use the fixed-point
 //! `log2`/`exp2` kernels (saturating) and u128 products.
 
-use crate::estimate::{Unit, segment};
+use crate::estimate::{Unit, rise, segment};
 use crate::model::Model;
 use crate::params::{
     ClampPath, ConfigError, Conflict, Field, Params, Problem, Saturation, non_negative,
 };
-use crate::qmath::{Gain, exp2, log2};
+use crate::qmath::{DUTY_DIGITS, DecayTable, Gain, exp2, log2};
 
 /// The uncertainty the guard is told to cover: each a relative spread around the parameter's
 /// nominal value (0.1 = ±10 %). The default, [`Tolerance::EXACT`], trusts the parameters.
@@ -221,11 +221,32 @@ struct NodeCharge {
 /// The guard's bound: the two corner models, the reading error and the node charge.
 #[derive(Debug, Clone, PartialEq)]
 pub(crate) struct Bound {
+    /// The rise corner (L_lo, R_lo, saturation at its lowest), whole box: event mode.
     pub(crate) rise: Model,
+    /// The fall corner (L_hi, R_lo, the lowest clamp voltage), whole box: event mode, decay
+    /// times and clamp energies.
     pub(crate) fall: Model,
+    /// The per-period tables of each slice of the inductance range, and how many are in use
+    /// (one without an inductance spread).
+    slices: [Slice; SLICES],
+    used: usize,
     /// `f_V/(1 − f_V)` (widened): the true supply is at most `reading/(1 − f_V)`.
     reading: Gain,
     node: Option<NodeCharge>,
+}
+
+/// Slices of the inductance range tracked side by side in PWM (see the module documentation).
+pub(crate) const SLICES: usize = 4;
+
+/// One slice `L_a ..= L_b` of the inductance range: its rise and fall tables per timer count.
+#[derive(Debug, Clone, PartialEq)]
+struct Slice {
+    /// `τ = L_a/(R_lo + R_on)`.
+    on: DecayTable<DUTY_DIGITS>,
+    /// `τ = L_b/(R_lo + R_p)`.
+    off: DecayTable<DUTY_DIGITS>,
+    /// The rise's τ in timer counts, Q32.32 (for the saturation crossing).
+    tau_on_counts: u64,
 }
 
 /// The corner of `p` with inductance and resistance (at the winding temperature) scaled.
@@ -274,22 +295,20 @@ impl Bound {
         let r_w = f64::from(d.resistance);
         let r_on = f64::from(p.switch.on_resistance);
         let r_p = f64::from(d.path_resistance);
-        let (r_lo, r_hi) = (1.0 - s.r - MARGIN, 1.0 + s.r + MARGIN);
+        let r_lo = 1.0 - s.r - MARGIN;
         let (l_lo, l_hi) = (1.0 - s.l - MARGIN, 1.0 + s.l + MARGIN);
-        // Rise corner: R_lo, and the inductance that gives τ = L_lo/(R_hi + R_on).
-        let squeeze = (r_w * r_lo + r_on) / (r_w * r_hi + r_on);
+        // Rise corner: the largest right side of L·di/dt = V − R_t·i while it is positive.
         let l_nom = f64::from(p.coil.inductance);
         let sat_lo = p.coil.saturation.map(|sat| {
             let ls = (f64::from(sat.inductance) * (1.0 - s.l_sat - MARGIN)).min(l_nom * l_lo);
             Saturation::new(
                 (f64::from(sat.current) * (1.0 - s.i_sat - MARGIN)) as f32,
-                (ls * squeeze) as f32,
+                ls as f32,
             )
         });
-        let rise = Model::new(&corner(p, l_lo * squeeze, r_lo, sat_lo)).map_err(blame)?;
-        // Fall corner: R_hi, and the inductance that gives τ = L_hi/(R_lo + R_p).
-        let stretch = (r_w * r_hi + r_p) / (r_w * r_lo + r_p);
-        let mut fall = corner(p, l_hi * stretch, r_hi, None);
+        let rise = Model::new(&corner(p, l_lo, r_lo, sat_lo)).map_err(blame)?;
+        // Fall corner: the largest (least negative) right side with the switch off.
+        let mut fall = corner(p, l_hi, r_lo, None);
         clamp_scaled(&mut fall, 1.0 - s.clamp - MARGIN);
         let fall = Model::new(&fall).map_err(|e| match e.field {
             Field::ClampForwardDrop | Field::ClampZenerVoltage | Field::ClampVoltage => {
@@ -304,9 +323,31 @@ impl Bound {
             .coil
             .node_capacitance
             .map(|c| Self::node_charge(p, nominal, &s, f64::from(c)));
+        // Slices: L_lo·q^j ..= L_lo·q^(j+1), q = (L_hi/L_lo)^(1/SLICES).
+        let used = if s.l > 0.0 { SLICES } else { 1 };
+        let q = libm::pow(l_hi / l_lo, 1.0 / used as f64);
+        let count = f64::from(d.period) / f64::from(nominal.duty_resolution());
+        let slice = |j: usize| {
+            let l_a = l_nom * l_lo * libm::pow(q, j as f64);
+            // The last slice ends exactly at L_hi (no rounding gap at the top).
+            let l_b = if j + 1 >= used {
+                l_nom * l_hi
+            } else {
+                l_nom * l_lo * libm::pow(q, (j + 1) as f64)
+            };
+            let tau_on = l_a / (r_w * r_lo + r_on);
+            Slice {
+                on: DecayTable::new(count / tau_on),
+                off: DecayTable::new(count / (l_b / (r_w * r_lo + r_p))),
+                tau_on_counts: crate::model::q32(tau_on / count),
+            }
+        };
+        let slices = core::array::from_fn(|j| slice(j.min(used - 1)));
         Ok(Self {
             rise,
             fall,
+            slices,
+            used,
             // |reading − true| <= f_V·true, so true <= reading/(1 − f_V) = reading·(1 + f_V/(1 − f_V)).
             reading: Gain::new(s.v / (1.0 - s.v) + MARGIN),
             node,
@@ -362,9 +403,48 @@ impl Bound {
         ))
     }
 
-    /// The bound's on-segment of `len` units from `i0` at the high supply `vh`.
+    /// Slices in use.
     #[inline]
-    pub(crate) fn on(&self, i0: i64, len: u32, vh: u32, unit: Unit) -> i64 {
+    pub(crate) const fn used(&self) -> usize {
+        self.used
+    }
+
+    /// Slice `j`'s on-segment of `n` counts from `i0` at the high supply `vh`.
+    #[inline]
+    pub(crate) fn on_slice(&self, j: usize, i0: i64, n: u32, vh: u32) -> i64 {
+        let Some(sl) = self.slices.get(j) else {
+            return self.on_event_or_whole(i0, n, vh, Unit::Count);
+        };
+        self.on_with(i0, n, vh, |k| sl.on.eval(k), sl.tau_on_counts, Unit::Count)
+    }
+
+    /// The whole box's on-segment (event mode: `unit` is µs).
+    #[inline]
+    pub(crate) fn on_event_or_whole(&self, i0: i64, len: u32, vh: u32, unit: Unit) -> i64 {
+        let r = &self.rise;
+        let tau = match unit {
+            Unit::Count => r.saturation.as_ref().map_or(0, |s| s.tau_on_counts),
+            Unit::Micro => r.tau_on_us,
+        };
+        let unsat = |k| match unit {
+            Unit::Count => r.on_duty.eval(k),
+            Unit::Micro => r.on_event.eval(k),
+        };
+        self.on_with(i0, len, vh, unsat, tau, unit)
+    }
+
+    /// An on-segment with the unsaturated decay `unsat` (its τ in the segment's units `tau`),
+    /// split at the rise corner's saturation current when the coil saturates.
+    #[inline]
+    fn on_with(
+        &self,
+        i0: i64,
+        len: u32,
+        vh: u32,
+        unsat: impl Fn(u32) -> crate::qmath::Decay,
+        tau: u64,
+        unit: Unit,
+    ) -> i64 {
         if len == 0 {
             return i0;
         }
@@ -373,23 +453,52 @@ impl Bound {
             // The true current falls toward an asymptote at or below this one: hold.
             return i0;
         }
-        self.rise.on_part(i0, a, len, unit) + ROUNDING
+        rise(i0, a, len, unsat, self.rise.saturated(unit, |_| tau)) + ROUNDING
     }
 
-    /// The bound's off-segment of `len` units from `i1` at the high supply `vh`; `opened`: the
+    /// Slice `j`'s off-segment of `n` counts from `i1` at the high supply `vh`; `opened`: the
     /// switch opened at its start (a turn-off, which charges the node). Returns the highest
     /// current inside the segment and its end.
     #[inline]
-    pub(crate) fn off(&self, i1: i64, len: u32, vh: u32, opened: bool, unit: Unit) -> (i64, i64) {
+    pub(crate) fn off_slice(&self, j: usize, i1: i64, n: u32, vh: u32, opened: bool) -> (i64, i64) {
+        match self.slices.get(j) {
+            Some(sl) => self.off_with(i1, n, vh, opened, Unit::Count, |k| sl.off.eval(k)),
+            None => self.off_event_or_whole(i1, n, vh, opened, Unit::Count),
+        }
+    }
+
+    /// The whole box's off-segment (event mode: `unit` is µs).
+    #[inline]
+    pub(crate) fn off_event_or_whole(
+        &self,
+        i1: i64,
+        len: u32,
+        vh: u32,
+        opened: bool,
+        unit: Unit,
+    ) -> (i64, i64) {
+        let f = &self.fall;
+        self.off_with(i1, len, vh, opened, unit, |k| match unit {
+            Unit::Count => f.off_duty.eval(k),
+            Unit::Micro => f.off_event.eval(k),
+        })
+    }
+
+    /// An off-segment with the fall corner's asymptote and the decay `table`.
+    #[inline]
+    fn off_with(
+        &self,
+        i1: i64,
+        len: u32,
+        vh: u32,
+        opened: bool,
+        unit: Unit,
+        table: impl Fn(u32) -> crate::qmath::Decay,
+    ) -> (i64, i64) {
         if len == 0 {
             return (i1, i1);
         }
-        let f = &self.fall;
-        let a = f.off_asymptote(vh);
-        let table = |n| match unit {
-            Unit::Count => f.off_duty.eval(n),
-            Unit::Micro => f.off_event.eval(n),
-        };
+        let a = self.fall.off_asymptote(vh);
         let decay = |start: i64| {
             if a < start {
                 segment(start, a, table(len))

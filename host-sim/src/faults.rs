@@ -101,7 +101,12 @@ fn read_off(s: &mut Scenario, e: f64) {
 
 /// The suite for `base`: nominal, corners, random points, named faults outside the box.
 pub fn suite(base: &Scenario) -> Vec<Case> {
-    let mut out = vec![case(base, "nominal (the plant is what the guard believes)", true, |_| {})];
+    let mut out = vec![case(
+        base,
+        "nominal (the plant is what the guard believes)",
+        true,
+        |_| {},
+    )];
     let spreads: Vec<_> = base.tolerance.iter().take(CORNER_KNOBS).copied().collect();
     // A reading within ±f of the true supply: at a nominal supply an offset of ∓f·V reads low
     // or high by exactly f (the worst the box allows).
@@ -115,14 +120,15 @@ pub fn suite(base: &Scenario) -> Vec<Case> {
                     let (lo, hi) = spread.bounds(base.plant.get(knob));
                     let high = mask & (1 << j) != 0;
                     s.plant.set(knob, if high { hi } else { lo });
-                    label.push(format!("{} {}", knob.name(), if high { "high" } else { "low" }));
+                    label.push(format!(
+                        "{} {}",
+                        knob.name(),
+                        if high { "high" } else { "low" }
+                    ));
                 }
                 if end != 0.0 {
                     read_off(s, end * reading);
-                    label.push(format!(
-                        "reads {}",
-                        if end < 0.0 { "low" } else { "high" }
-                    ));
+                    label.push(format!("reads {}", if end < 0.0 { "low" } else { "high" }));
                 }
             });
             if !label.is_empty() {
@@ -167,7 +173,11 @@ fn outside(base: &Scenario) -> Vec<Case> {
     let r_out = (spread_below(base, Knob::Resistance) + 0.1).min(0.9);
     let read_out = base.supply_reading + 0.03;
     let len = base.duration;
-    let (v, v_min, v_max) = (base.plant.voltage, base.plant.supply_min, base.plant.supply_max);
+    let (v, v_min, v_max) = (
+        base.plant.voltage,
+        base.plant.supply_min,
+        base.plant.supply_max,
+    );
     let mut out = vec![
         case(
             base,
@@ -185,7 +195,9 @@ fn outside(base: &Scenario) -> Vec<Case> {
             s.plant.inductance *= 0.5;
             s.plant.resistance *= 0.5;
         }),
-        case(base, "open coil (1 MΩ)", false, |s| s.plant.resistance = 1e6),
+        case(base, "open coil (1 MΩ)", false, |s| {
+            s.plant.resistance = 1e6
+        }),
         case(
             base,
             format!("supply reads {:.0} % low", read_out * 100.0),
@@ -195,7 +207,9 @@ fn outside(base: &Scenario) -> Vec<Case> {
         case(base, "ADC noise 1 % rms (unbounded)", false, |s| {
             s.adc.noise = 0.01 * s.plant.voltage;
         }),
-        case(base, "5 % of ticks missed", false, |s| s.ticks.missed = 0.05),
+        case(base, "5 % of ticks missed", false, |s| {
+            s.ticks.missed = 0.05
+        }),
         case(base, "5 % of ticks late", false, |s| s.ticks.late = 0.05),
         case(base, "winding 100 K hotter than the model", false, |s| {
             s.plant.temperature += 100.0;
@@ -247,11 +261,9 @@ fn outside(base: &Scenario) -> Vec<Case> {
 pub fn run(case: &Case) -> (Outcome, Run) {
     let s = &case.scenario;
     let r = cosim::run(s, Options { rows: true });
-    let ceiling = s
-        .guard()
-        .map_or(f64::from(s.limits.current_ceiling), |g| {
-            f64::from(g.model().amps(g.ceiling()))
-        });
+    let ceiling = s.guard().map_or(f64::from(s.limits.current_ceiling), |g| {
+        f64::from(g.model().amps(g.ceiling()))
+    });
     let pulse_over_rating = s
         .limits
         .clamp_pulse_energy

@@ -70,6 +70,18 @@ enum Command {
         #[arg(long, value_name = "PATH")]
         json: Option<PathBuf>,
     },
+    /// Run the fault suite on the scenario: its declared tolerance's corners and random points
+    /// inside, and named faults outside.
+    #[command(
+        after_help = "Example:\n  coilward-sim faults examples/scenarios/valve-at-ceiling.toml --json faults.json\n\nThe scenario's [tolerance] section (and supply_reading) is the box the guard covers. A case\nexceeds when the true current passes the guard's ceiling, a clamp pulse passes its rating, or\nthe load is switched on before its current fell below the release current. Exit status: 0\nnothing inside the box exceeded, 1 something inside it did, 2 bad input."
+    )]
+    Faults {
+        /// Scenario file (TOML).
+        file: PathBuf,
+        /// Write every case's outcome here (JSON).
+        #[arg(long, value_name = "PATH")]
+        json: Option<PathBuf>,
+    },
     /// Fit a coil's inductance and resistance to a captured current trace (CSV).
     #[command(
         after_help = "Examples:\n  coilward-sim fit examples/captures/valve-pull-in.csv --supply \"24 V\" --on-resistance \"0.1 Ω\"\n  coilward-sim fit scope.csv --supply \"12 V\" --column t=Time,i=CH2 --units t=s,i=V --shunt \"0.1 Ω\" --svg fit.svg\n\nThe capture must start before the switch-on (or switch-off) edge. Exit status: 0 a trustworthy\nfit, 1 the capture cannot give one (the message says why), 2 bad input."
@@ -249,6 +261,57 @@ fn write_file(
         eprintln!("error: cannot write the {what} to {}: {e}", path.display());
         ExitCode::from(2)
     })
+}
+
+fn faults_cmd(file: &Path, json: Option<&Path>) -> Result<ExitCode, ExitCode> {
+    use rayon::prelude::*;
+    let s = load(file)?;
+    // The output is checked writable before the work.
+    if let Some(p) = json {
+        write_file(p, "fault report", |p| {
+            std::fs::write(p, "").map_err(|e| e.to_string())
+        })?;
+    }
+    let cases = coilward_sim::faults::suite(&s);
+    let outcomes: Vec<_> = cases
+        .par_iter()
+        .map(|c| coilward_sim::faults::run(c).0)
+        .collect();
+    println!("{} ({})", s.name, file.display());
+    println!(
+        "  {:<64} {:>6} {:>11} {:>11} {:>6} {:>9} {:>8}",
+        "case", "inside", "peak/ceil.", "pulse/rat.", "early", "exceeded", "flagged"
+    );
+    let yes = |b: bool| if b { "yes" } else { "no" };
+    for o in &outcomes {
+        println!(
+            "  {:<64} {:>6} {:>11.3} {:>11.3} {:>6} {:>9} {:>8}",
+            o.name,
+            yes(o.inside_tolerance),
+            o.peak_over_ceiling,
+            o.pulse_over_rating,
+            yes(o.early_turn_on),
+            yes(o.exceeded),
+            yes(o.flagged)
+        );
+    }
+    let inside = outcomes.iter().filter(|o| o.inside_tolerance).count();
+    let bad = outcomes
+        .iter()
+        .filter(|o| o.inside_tolerance && o.exceeded)
+        .count();
+    println!("\n  inside the declared tolerance: {inside} cases, {bad} exceeded");
+    if let Some(p) = json {
+        let doc = serde_json::json!({ "scenario": s.name, "cases": outcomes });
+        write_file(p, "fault report", |p| {
+            std::fs::write(
+                p,
+                serde_json::to_string_pretty(&doc).unwrap_or_default() + "\n",
+            )
+            .map_err(|e| e.to_string())
+        })?;
+    }
+    Ok(ExitCode::from(u8::from(bad > 0)))
 }
 
 fn run(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
@@ -633,6 +696,14 @@ fn main() -> ExitCode {
             shard,
             json,
         } => sweep_cmd(file, *samples, *seed, shard.as_deref(), json.as_deref()),
+        Command::Faults { file, .. } if is_bridge(file) => {
+            eprintln!(
+                "error: {}: the fault suite covers low-side scenarios only so far",
+                file.display()
+            );
+            Err(ExitCode::from(2))
+        }
+        Command::Faults { file, json } => faults_cmd(file, json.as_deref()),
         Command::Fit {
             file,
             supply,

@@ -352,15 +352,18 @@ pub const SUPPLY_READING: &str = "supply_reading";
 /// taken as given, so their spreads reach sweeps only.
 pub fn declared(b: &Values, spreads: &[(Knob, Spread)], supply_reading: f64) -> Tolerance {
     let frac = |k: Knob| {
-        spreads.iter().find(|(x, _)| *x == k).map_or(0.0, |&(_, sp)| {
-            let nominal = b.get(k);
-            let (lo, hi) = sp.bounds(nominal);
-            if nominal.abs() > 0.0 {
-                ((nominal - lo).abs().max((hi - nominal).abs()) / nominal.abs()).min(0.9)
-            } else {
-                0.0
-            }
-        })
+        spreads
+            .iter()
+            .find(|(x, _)| *x == k)
+            .map_or(0.0, |&(_, sp)| {
+                let nominal = b.get(k);
+                let (lo, hi) = sp.bounds(nominal);
+                if nominal.abs() > 0.0 {
+                    ((nominal - lo).abs().max((hi - nominal).abs()) / nominal.abs()).min(0.9)
+                } else {
+                    0.0
+                }
+            })
     };
     let r_w = b.hot_resistance();
     // The winding temperature's spread as a resistance spread (copper's linear law).

@@ -58,7 +58,9 @@ fn the_unmodelled_source_resistance_makes_the_guard_overestimate() {
 #[test]
 fn a_guard_believing_a_faster_decay_lets_the_coil_on_too_early() {
     // The firmware thinks the coil is 10 mH (τ four times shorter) and the drive asks to pull
-    // in again 1 ms after the release: the guard allows it while 0.28 A still flows.
+    // in again 1 ms after the release. The file's declared tolerance (inductance ±20 %) is
+    // around that belief, so the true 40 mH is far outside the box the bound covers: the guard
+    // holds for its bound's decay (about 1 ms) and then switches on while current still flows.
     let t = text("irrigation-valve.toml")
         .replace("at = \"140 ms\"", "at = \"121 ms\"")
         .replace("at = \"155 ms\"", "at = \"136 ms\"")
@@ -69,7 +71,8 @@ fn a_guard_believing_a_faster_decay_lets_the_coil_on_too_early() {
         .iter()
         .find(|f| f.kind == "on-before-release")
         .expect("flagged");
-    assert!((f.t_s - 0.121).abs() < 1e-4, "{f:?}");
+    assert!(f.t_s > 0.121 && f.t_s < 0.123, "{f:?}");
+    assert!(r.events.iter().any(|e| e.condition == "release-hold"));
     // With the true inductance the guard holds the output instead (and says so).
     let t = text("irrigation-valve.toml")
         .replace("at = \"140 ms\"", "at = \"121 ms\"")
