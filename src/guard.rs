@@ -230,6 +230,9 @@ pub struct GuardState {
     bound: [CoilState; SLICES],
     /// The switch was on at the end of the period (or event) before the one being advanced.
     on_at_end: bool,
+    /// With nothing across the switch: the envelope of a ring under the breakdown, part of the
+    /// bound (see [`crate::Tolerance`]).
+    envelope: CoilState,
     clamp_heat: ClampHeat,
     coil_heat: CoilHeat,
     /// Duty applied during the current period (the one the next call will advance over).
@@ -259,12 +262,12 @@ impl GuardState {
         Current::from_bits(self.bound_bits())
     }
 
-    /// The largest slice bound, raw.
+    /// The largest slice bound, or the ring's envelope if larger, raw.
     fn bound_bits(&self) -> i64 {
         self.bound
             .iter()
             .map(|b| b.current().working_bits())
-            .fold(0, i64::max)
+            .fold(self.envelope.current().working_bits(), i64::max)
     }
 
     /// The winding thermal image.
@@ -502,6 +505,7 @@ impl Guard {
             coil: CoilState::idle(),
             bound: [CoilState::idle(); SLICES],
             on_at_end: false,
+            envelope: CoilState::idle(),
             clamp_heat: ClampHeat::default(),
             coil_heat: CoilHeat::default(),
             applied: 0,
@@ -531,6 +535,8 @@ impl Guard {
         GuardState {
             coil: CoilState::with_current(current),
             bound: [CoilState::with_current(current); SLICES],
+            // The output is off with current flowing: the switch has just opened.
+            on_at_end: current.working_bits() > 0,
             ..self.start_idle()
         }
     }
@@ -598,8 +604,11 @@ impl Guard {
         let full = self.model.duty_full;
         let b = &self.bound;
         let opened = n < full && (n > 0 || state.on_at_end);
+        let e = state.envelope.current().working_bits();
         (0..b.used()).all(|j| {
             let b0 = state.bound.get(j).map_or(0, |c| c.current().working_bits());
+            // A turn-on meets a ringing current at most at its envelope.
+            let b0 = if n > 0 { b0.max(e) } else { b0 };
             let b1 = b.on_slice(j, b0, n, vh);
             if Self::raised(b1.max(b0), f) > self.ceiling {
                 return false;
@@ -612,8 +621,10 @@ impl Guard {
 
     /// The bound's peak in the coming period at duty `n` (raw).
     fn peak_at(&self, state: &GuardState, n: u32, vh: u32) -> i64 {
+        let e = state.envelope.current().working_bits();
         (0..self.bound.used()).fold(0, |m, j| {
             let b0 = state.bound.get(j).map_or(0, |c| c.current().working_bits());
+            let b0 = if n > 0 { b0.max(e) } else { b0 };
             m.max(self.bound.on_slice(j, b0, n, vh).max(b0))
         })
     }
@@ -626,9 +637,14 @@ impl Guard {
         // A turn-off: the switch opens inside the period, or at its start after being on.
         let opened = n < full && (n > 0 || state.on_at_end);
         let (mut peak, mut end) = (0, 0);
+        let e0 = state.envelope.current().working_bits();
+        let mut opened_at = 0;
         for (j, slot) in state.bound.iter_mut().enumerate().take(b.used()) {
             let b0 = slot.current().working_bits();
+            // A turn-on meets a ringing current at most at its envelope.
+            let b0 = if n > 0 { b0.max(e0) } else { b0 };
             let b1 = b.on_slice(j, b0, n, vh);
+            opened_at = opened_at.max(b1);
             let (off_peak, b2) = b.off_slice(j, b1, full - n, vh, opened);
             *slot = CoilState::with_current(Current::from_bits(b2));
             peak = peak.max(b0).max(b1).max(off_peak);
@@ -639,8 +655,15 @@ impl Guard {
         for slot in state.bound.iter_mut().skip(b.used()) {
             *slot = first;
         }
+        // The ring: switching on ends it (the switch shorts the node); a turn-off may start one.
+        let e_on = if n > 0 { 0 } else { e0 };
+        let e1 = b.ring_after_off(e_on, opened_at, full - n, vh, opened, Unit::Count);
+        state.envelope = CoilState::with_current(Current::from_bits(e1));
+        if opened {
+            peak = peak.max(b.ring_peak(opened_at, vh));
+        }
         state.on_at_end = n >= full;
-        (peak.max(end), end)
+        (peak.max(end).max(e1), end.max(e1))
     }
 
     /// Advances the bound over one event (on or off for `us` µs) with the whole box's corners:
@@ -648,15 +671,26 @@ impl Guard {
     fn advance_event(&self, state: &mut GuardState, on: bool, us: u32, vh: u32) -> (i64, i64) {
         let b = &self.bound;
         let b0 = state.bound_bits();
-        let (peak, end) = if on {
+        let e0 = state.envelope.current().working_bits();
+        let opened = !on && state.on_at_end;
+        let (peak, end, e1) = if on {
             let b1 = b.on_event_or_whole(b0, us, vh, Unit::Micro);
-            (b1, b1)
+            (b1, b1, 0)
         } else {
-            b.off_event_or_whole(b0, us, vh, state.on_at_end, Unit::Micro)
+            let bb = state
+                .bound
+                .iter()
+                .map(|c| c.current().working_bits())
+                .fold(0, i64::max);
+            let (p, e) = b.off_event_or_whole(bb, us, vh, opened, Unit::Micro);
+            let ring = b.ring_after_off(e0, bb, us, vh, opened, Unit::Micro);
+            let rp = if opened { b.ring_peak(bb, vh) } else { 0 };
+            (p.max(rp), e, ring)
         };
         state.bound = [CoilState::with_current(Current::from_bits(end)); SLICES];
+        state.envelope = CoilState::with_current(Current::from_bits(e1));
         state.on_at_end = on;
-        (peak.max(b0).max(end), end)
+        (peak.max(b0).max(end).max(e1), end.max(e1))
     }
 
     /// One control period. `input.duty` is the request for the coming period; the guard
@@ -925,11 +959,15 @@ impl Guard {
             if pol.held_request == HeldRequest::Drop {
                 state.dropped = true;
             }
-            release_in = self.bound.fall.decay_time_us(
+            let decay = self.bound.fall.decay_time_us(
                 Current::from_bits(i_now),
                 Current::from_bits(self.release),
                 Volts::from_bits(vh),
             );
+            let ring = self
+                .bound
+                .ring_time_us(state.envelope.current().working_bits(), self.release);
+            release_in = decay.zip(ring).map(|(a, b)| a.max(b));
         }
         // Ceiling.
         let i0 = state.bound_bits();

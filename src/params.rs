@@ -506,6 +506,9 @@ pub enum Conflict {
     /// The release current is at or below the ring a turn-off can leave in the switch-node
     /// capacitance, so a release could never be confirmed.
     ReleaseBelowRing,
+    /// With nothing across the switch, the node capacitance makes the turn-off (nearly)
+    /// overdamped at a corner of the declared tolerance, outside what the ring model covers.
+    RingOverdamped,
 }
 
 /// A parameter was refused: which one, and why.
@@ -574,6 +577,9 @@ impl fmt::Display for Conflict {
             }
             Conflict::CornerOutOfRange => {
                 "at a corner of the declared tolerance a time constant or resistance leaves its range"
+            }
+            Conflict::RingOverdamped => {
+                "node capacitance makes the unclamped turn-off (nearly) overdamped, outside the ring model"
             }
             Conflict::ReleaseBelowRing => {
                 "release current is at or below the ring the switch-node capacitance can leave after a turn-off"

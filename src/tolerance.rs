@@ -47,6 +47,13 @@
 //!    `x + K/x` is convex, so its largest value is at an end of the interval. After a decay to
 //!    zero, the LC ring can leave up to `V_ring·√(C/L)` flowing (energy: the node holds at most
 //!    `½·C·V_ring²` at the zero crossing), so the bound does not fall below that.
+//! 4. *Nothing across the switch: the ring under breakdown.* With only the node capacitance a
+//!    turn-off from a small current rings below the breakdown instead of avalanching: the
+//!    current reverses and dies as `e^(−R·t/2L)`, far slower than an avalanche. Its envelope
+//!    (the series-RLC closed form, shared/REFERENCES.md §10) is carried beside the bound and
+//!    decays with `τ = 2·L_hi/R_lo`; a turn-on waits for it like any other release. Above the
+//!    current at which every circuit in the box certainly avalanches, the ring left after the
+//!    avalanche (`BV·√(C/L)`) is carried instead.
 //!
 //! Rounding: every corner is widened by 10⁻⁶ relative, which covers the tables' 2⁻²⁴ and the
 //! gains' 2⁻³², and each segment of the bound adds 2 raw units for the truncating products.
@@ -56,11 +63,11 @@
 //! `log2`/`exp2` kernels (saturating) and u128 products.
 
 use crate::estimate::{Unit, rise, segment};
-use crate::model::Model;
+use crate::model::{Model, PathKind};
 use crate::params::{
     ClampPath, ConfigError, Conflict, Field, Params, Problem, Saturation, non_negative,
 };
-use crate::qmath::{DUTY_DIGITS, DecayTable, Gain, exp2, log2};
+use crate::qmath::{DUTY_DIGITS, DecayTable, EVENT_DIGITS, Gain, exp2, log2};
 
 /// The uncertainty the guard is told to cover: each a relative spread around the parameter's
 /// nominal value (0.1 = ±10 %). The default, [`Tolerance::EXACT`], trusts the parameters.
@@ -191,6 +198,8 @@ const ROUNDING: i64 = 2;
 /// Body-diode drop allowed below ground at the switch node, V (a silicon body diode drops
 /// about 0.7 ..= 1.2 V: common practice, with margin).
 const BODY_DIODE: f64 = 1.5;
+/// [`BODY_DIODE`] in supply bits (U16F16).
+const BODY_BITS: u32 = 98_304;
 
 /// The turn-off node-charge terms (see the module documentation, item 3).
 #[derive(Debug, Clone, PartialEq)]
@@ -218,6 +227,23 @@ struct NodeCharge {
     ring: i64,
 }
 
+/// With nothing across the switch and a node capacitance: the ring that a turn-off leaves when
+/// the node peaks under the breakdown (see the module documentation, item 4).
+#[derive(Debug, Clone, PartialEq)]
+struct Ring {
+    /// At or above this current (raw) every circuit in the box avalanches at turn-off.
+    certain: i64,
+    /// Raw current per supply bit of `(V + 1.5 V)·√(C/L)/√(1 − α²LC)`: the ring's amplitude is
+    /// at most the current at the opening plus this.
+    lift: Gain,
+    /// The ring left after an avalanche: `BV·√(C/L)/√(1 − α²LC)`, raw.
+    residual: i64,
+    /// The envelope's decay, `τ = 2·L_hi/R_lo`, per timer count and per µs; τ in µs (Q32.32).
+    per_count: DecayTable<DUTY_DIGITS>,
+    per_us: DecayTable<EVENT_DIGITS>,
+    tau_us: u64,
+}
+
 /// The guard's bound: the two corner models, the reading error and the node charge.
 #[derive(Debug, Clone, PartialEq)]
 pub(crate) struct Bound {
@@ -233,6 +259,7 @@ pub(crate) struct Bound {
     /// `f_V/(1 − f_V)` (widened): the true supply is at most `reading/(1 − f_V)`.
     reading: Gain,
     node: Option<NodeCharge>,
+    ring: Option<Ring>,
 }
 
 /// Slices of the inductance range tracked side by side in PWM (see the module documentation).
@@ -319,10 +346,20 @@ impl Bound {
             }
             _ => blame(e),
         })?;
-        let node = p
+        let mut node = p
             .coil
             .node_capacitance
             .map(|c| Self::node_charge(p, nominal, &s, f64::from(c)));
+        let ring = match (nominal.path(), p.coil.node_capacitance) {
+            (PathKind::Avalanche, Some(c)) => {
+                // The ring's envelope replaces the permanent floor on this path.
+                if let Some(n) = &mut node {
+                    n.ring = 0;
+                }
+                Some(Self::ring_model(p, nominal, &s, f64::from(c))?)
+            }
+            _ => None,
+        };
         // Slices: L_lo·q^j ..= L_lo·q^(j+1), q = (L_hi/L_lo)^(1/SLICES).
         let used = if s.l > 0.0 { SLICES } else { 1 };
         let q = libm::pow(l_hi / l_lo, 1.0 / used as f64);
@@ -351,6 +388,7 @@ impl Bound {
             // |reading − true| <= f_V·true, so true <= reading/(1 − f_V) = reading·(1 + f_V/(1 − f_V)).
             reading: Gain::new(s.v / (1.0 - s.v) + MARGIN),
             node,
+            ring,
         })
     }
 
@@ -387,6 +425,127 @@ impl Bound {
             node_adds_supply: adds,
             ring: libm::ceil(ring_v * libm::sqrt(c_hi / l_min) * raw) as i64,
         }
+    }
+
+    /// The unclamped ring's constants (configuration time, f64).
+    ///
+    /// Series RLC after the switch opens with the node at 0 (shared/REFERENCES.md §10):
+    /// `i(t) = e^(−αt)·[I0·cos ωd·t + B·sin ωd·t]`, so `|i| ≤ e^(−αt)·√(I0² + B²)` with
+    /// `B = ((Vs − R·I0)/L + α·I0)/ωd ≤ Vs/(L·ωd)`. Avalanche is certain when the energy at the
+    /// opening, less what the resistance can dissipate before the node peaks (at most
+    /// `R·M²·π/ωd`, M the amplitude), exceeds `½·C·BV²` (the node's energy at breakdown with the
+    /// supply at its least help, 0 V).
+    fn ring_model(p: &Params, nominal: &Model, s: &Spreads, c: f64) -> Result<Ring, ConfigError> {
+        let d = nominal.derived();
+        let l_nom = f64::from(p.coil.inductance);
+        let (l_lo, l_hi) = (l_nom * (1.0 - s.l - MARGIN), l_nom * (1.0 + s.l + MARGIN));
+        let c_hi = c * (1.0 + s.c + MARGIN);
+        let r_w = f64::from(d.resistance);
+        let (r_lo, r_hi) = (r_w * (1.0 - s.r - MARGIN), r_w * (1.0 + s.r + MARGIN));
+        // Underdamped at every corner, with margin: 1 − α²LC ≥ 0.1.
+        let damp = 1.0 - r_hi * r_hi * c_hi / (4.0 * l_lo);
+        if damp < 0.1 {
+            return Err(ConfigError::conflict(
+                Field::CoilNodeCapacitance,
+                Conflict::RingOverdamped,
+            ));
+        }
+        let k = libm::sqrt(c_hi / l_lo) / libm::sqrt(damp);
+        let fs = f64::from(d.full_scale);
+        let raw = 1_099_511_627_776.0 / fs;
+        let bv = f64::from(p.switch.breakdown);
+        let v_hi = 2.0 * f64::from(p.supply.max) + BODY_DIODE;
+        let omega_d = libm::sqrt(damp / (l_hi * c_hi));
+        let excess = |i: f64| {
+            let m = i + v_hi * k;
+            0.5 * l_lo * i * i
+                - r_hi * m * m * core::f64::consts::PI / omega_d
+                - 0.5 * c_hi * bv * bv
+        };
+        // Smallest current with a certain avalanche (the excess grows once ½·L dominates).
+        let top = fs * 2_097_152.0;
+        let certain = if excess(top) < 0.0 {
+            i64::MAX
+        } else {
+            let (mut lo, mut hi) = (0.0, top);
+            for _ in 0..200 {
+                let mid = 0.5 * (lo + hi);
+                if excess(mid) >= 0.0 {
+                    hi = mid;
+                } else {
+                    lo = mid;
+                }
+            }
+            libm::ceil(hi * raw).min(2.3e18) as i64
+        };
+        let tau = 2.0 * l_hi / r_lo;
+        let count = f64::from(d.period) / f64::from(nominal.duty_resolution());
+        Ok(Ring {
+            certain,
+            lift: Gain::new(k * raw / 65_536.0 * (1.0 + MARGIN)),
+            residual: libm::ceil(bv * k * raw).min(2.3e18) as i64,
+            per_count: DecayTable::new(count / tau),
+            per_us: DecayTable::new(1e-6 / tau),
+            tau_us: crate::model::q32(tau * 1e6),
+        })
+    }
+
+    /// The ring envelope after an off-segment of `len` units: the envelope `e` before it decays
+    /// by `e^(−αt)`; a turn-off (`opened`) from `i1` adds its own ring (from the opening, so it
+    /// decays over the whole segment) or, for a current that certainly avalanches, the residual
+    /// ring (from the avalanche's end, so it is not decayed). Zero on other paths.
+    #[inline]
+    pub(crate) fn ring_after_off(
+        &self,
+        e: i64,
+        i1: i64,
+        len: u32,
+        vh: u32,
+        opened: bool,
+        unit: Unit,
+    ) -> i64 {
+        let Some(r) = &self.ring else { return 0 };
+        let table = |start: i64| {
+            let d = match unit {
+                Unit::Count => r.per_count.eval(len),
+                Unit::Micro => r.per_us.eval(len),
+            };
+            segment(start, 0, d) + ROUNDING
+        };
+        let mut out = if e > 0 { table(e) } else { 0 };
+        if opened {
+            out = out.max(if i1 < r.certain {
+                let lift = r.lift.apply(vh.saturating_add(BODY_BITS)) as i64;
+                table(i1.saturating_add(lift))
+            } else {
+                r.residual
+            });
+        }
+        out
+    }
+
+    /// The ring's amplitude at a turn-off from `i1` (its peak), zero on other paths.
+    #[inline]
+    pub(crate) fn ring_peak(&self, i1: i64, vh: u32) -> i64 {
+        self.ring.as_ref().map_or(0, |r| {
+            if i1 < r.certain {
+                i1.saturating_add(r.lift.apply(vh.saturating_add(BODY_BITS)) as i64)
+            } else {
+                r.residual
+            }
+        })
+    }
+
+    /// Time for a ring envelope `e` to fall to `to`, µs rounded up (`Some(0)` when it is
+    /// already there or there is no ring).
+    pub(crate) fn ring_time_us(&self, e: i64, to: i64) -> Option<u32> {
+        let Some(r) = &self.ring else { return Some(0) };
+        if e <= to || to <= 0 {
+            return Some(if e <= to { 0 } else { u32::MAX });
+        }
+        let ln = crate::qmath::ln_ratio(e as u64, to as u64).saturating_add(16);
+        let t = crate::clamp::time_q64(ln, r.tau_us);
+        u32::try_from((t >> 64) + 1).ok()
     }
 
     /// The ring floor (raw), zero without a node capacitance.

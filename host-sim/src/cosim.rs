@@ -314,7 +314,7 @@ fn simulate(
     // The last opening of the switch in PWM: (time, current, off-segment tally).
     let mut last_open: Option<(f64, f64, Tally)> = None;
     // Inside a release (after a turn-off record opened): whether the current has been below the
-    // release current since.
+    // release current since (for the report; the turn-on check looks at the current itself).
     let mut releasing: Option<bool> = None;
     for k in 0..n {
         let tk = k as f64 * t;
@@ -421,9 +421,11 @@ fn simulate(
             releasing = Some(tally.below_at.is_some());
         }
         if applied > 0 {
-            // Turning on again: before the freewheel current has decayed?
+            // Turning on again: before the current has decayed? Judged on its magnitude at the
+            // turn-on, not on a first crossing: with nothing across the switch the current can
+            // ring through zero and back.
             let i = plant.state.current;
-            if releasing == Some(false) && i > release {
+            if releasing.is_some() && i.abs() > release {
                 out.first("on-before-release", tk, || {
                     format!("switched on with {i:.4} A still flowing (release current {release} A)")
                 });
