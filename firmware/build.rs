@@ -1,14 +1,12 @@
 //! Picks the memory layout of the emulated board for the target being built:
-//! thumbv6m → BBC micro:bit (nRF51822), thumbv7em → MPS2 AN386, thumbv8m.main → MPS2 AN505.
+//! thumbv6m → MPS2 AN385 (a Cortex-M3 that runs the v6-M build; the micro:bit's 16 KiB of RAM
+//! no longer holds the guard), thumbv7em → MPS2 AN386, thumbv8m.main → MPS2 AN505.
 use std::{env, fs, path::PathBuf};
 
 fn main() {
     let target = env::var("TARGET").unwrap_or_default();
-    let memory = if target.starts_with("thumbv6m") {
-        // nRF51822: 256 KiB flash at 0, 16 KiB RAM at 0x2000_0000.
-        "MEMORY { FLASH : ORIGIN = 0x00000000, LENGTH = 256K\n RAM : ORIGIN = 0x20000000, LENGTH = 16K }\n"
-    } else if target.starts_with("thumbv7em") {
-        // MPS2 AN386: 4 MiB ZBT SSRAM1 at 0 (code), 4 MiB SSRAM2/3 at 0x2000_0000.
+    let memory = if target.starts_with("thumbv6m") || target.starts_with("thumbv7em") {
+        // MPS2 AN385/AN386: 4 MiB ZBT SSRAM1 at 0 (code), 4 MiB SSRAM2/3 at 0x2000_0000.
         "MEMORY { FLASH : ORIGIN = 0x00000000, LENGTH = 4096K\n RAM : ORIGIN = 0x20000000, LENGTH = 4096K }\n"
     } else if target.starts_with("thumbv8m") {
         // MPS2 AN505 (secure aliases): SSRAM1 at 0x1000_0000, SSRAM2/3 at 0x3800_0000.

@@ -39,11 +39,14 @@ pub enum Condition {
     ReversalHold,
     /// `supply-pump` (full bridge only)
     SupplyPump,
+    /// `clamp-power`: the clamp's average power over its window is above the declared limit
+    /// (low side, when no clamp thermal replica is configured)
+    ClampPower,
 }
 
 impl Condition {
     /// Every condition, in bit order.
-    pub const ALL: [Condition; 9] = [
+    pub const ALL: [Condition; 10] = [
         Condition::ReleaseHold,
         Condition::CurrentLimit,
         Condition::Overcurrent,
@@ -53,6 +56,7 @@ impl Condition {
         Condition::SupplyRange,
         Condition::ReversalHold,
         Condition::SupplyPump,
+        Condition::ClampPower,
     ];
 
     /// The stable name, e.g. `"release-hold"`.
@@ -67,6 +71,7 @@ impl Condition {
             Condition::SupplyRange => "supply-range",
             Condition::ReversalHold => "reversal-hold",
             Condition::SupplyPump => "supply-pump",
+            Condition::ClampPower => "clamp-power",
         }
     }
 
@@ -322,7 +327,7 @@ mod tests {
 
     #[test]
     fn names_are_stable() {
-        let names: [&str; 9] = Condition::ALL.map(Condition::name);
+        let names: [&str; 10] = Condition::ALL.map(Condition::name);
         assert_eq!(
             names,
             [
@@ -334,7 +339,8 @@ mod tests {
                 "coil-overheat",
                 "supply-range",
                 "reversal-hold",
-                "supply-pump"
+                "supply-pump",
+                "clamp-power"
             ]
         );
     }

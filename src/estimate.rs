@@ -76,6 +76,38 @@ pub(crate) fn segment(i: i64, a: i64, e: Decay) -> i64 {
     if next < 0 { 0 } else { next }
 }
 
+/// A segment that runs on the decay `first` until the current reaches `at`, then on `second`
+/// (τ of the first part in the segment's units, Q32.32). The crossing time
+/// `τ·ln(|A − i0|/|A − at|)` is rounded down: the logarithm is lowered by its error bound
+/// (2^−28, 16 units of Q32.32) and the product truncated, so the second part is never short
+/// (it is the faster one on a rise into saturation and the slower one on a decay out of it, so
+/// the result errs high either way by at most one unit of time).
+#[inline]
+fn split(
+    i0: i64,
+    a: i64,
+    len: u32,
+    first: impl Fn(u32) -> Decay,
+    second: impl Fn(u32) -> Decay,
+    at: i64,
+    tau_first: u64,
+) -> i64 {
+    let i1 = segment(i0, a, first(len));
+    let crosses = if a > i0 {
+        i0 < at && i1 > at
+    } else {
+        i0 > at && i1 < at
+    };
+    if !crosses {
+        return i1;
+    }
+    // at lies strictly between i0 and a: both differences are positive and below 2^62.
+    let ln = crate::qmath::ln_ratio(a.abs_diff(i0), a.abs_diff(at)).saturating_sub(16);
+    let t_cross = crate::clamp::time_q64(ln, tau_first) >> 64;
+    let rest = u128::from(len).saturating_sub(t_cross) as u32; // <= len
+    segment(at, a, second(rest))
+}
+
 /// A rising segment of `len` units from `i0` toward `a` with the unsaturated decay `unsat`,
 /// split where it crosses the saturation current when `sat` = (saturation current, unsaturated
 /// time constant in the same units as Q32.32, saturated decay) is given.
@@ -87,28 +119,28 @@ pub(crate) fn rise(
     unsat: impl Fn(u32) -> Decay,
     sat: Option<(i64, u64, impl Fn(u32) -> Decay)>,
 ) -> i64 {
-    let Some((at, tau_units, sat)) = sat else {
-        return segment(i0, a, unsat(len));
-    };
-    if a <= at || i0 < 0 {
-        // The current cannot pass the saturation current in this segment.
-        return segment(i0, a, unsat(len));
+    match sat {
+        Some((at, _, sat)) if a > at && i0 >= at => segment(i0, a, sat(len)),
+        Some((at, tau, sat)) if a > at && i0 >= 0 => split(i0, a, len, unsat, sat, at, tau),
+        _ => segment(i0, a, unsat(len)),
     }
-    if i0 >= at {
-        return segment(i0, a, sat(len));
+}
+
+/// A falling segment of `len` units from `i0` toward `a < i0` with the unsaturated decay
+/// `unsat`; from above the saturation current it falls on `sat` = (saturation current,
+/// saturated time constant in the same units as Q32.32, saturated decay) until it reaches it.
+#[inline]
+pub(crate) fn fall(
+    i0: i64,
+    a: i64,
+    len: u32,
+    unsat: impl Fn(u32) -> Decay,
+    sat: Option<(i64, u64, impl Fn(u32) -> Decay)>,
+) -> i64 {
+    match sat {
+        Some((at, tau, sat)) if i0 > at && a < at => split(i0, a, len, sat, unsat, at, tau),
+        _ => segment(i0, a, unsat(len)),
     }
-    let i1 = segment(i0, a, unsat(len));
-    if i1 <= at {
-        return i1;
-    }
-    // Crossing time τ·ln((A − i0)/(A − I_sat)), rounded down: the logarithm is lowered by its
-    // error bound (2^−28, 16 units of Q32.32) and the product truncated, so the saturated part
-    // is never shorter than the true one. a > at > i0 >= 0: both differences are positive and
-    // below 2^62.
-    let ln = crate::qmath::ln_ratio((a - i0) as u64, (a - at) as u64).saturating_sub(16);
-    let t_cross = crate::clamp::time_q64(ln, tau_units) >> 64;
-    let rest = u128::from(len).saturating_sub(t_cross) as u32; // <= len
-    segment(at, a, sat(rest))
 }
 
 impl PeriodEstimate {
@@ -138,6 +170,36 @@ impl Model {
             Unit::Micro => self.tau_on_us,
         };
         rise(i0, a, len, unsat, self.saturated(unit, tau_units))
+    }
+
+    /// The off-segment of `len` units from `i1` toward `a`, falling through the saturation
+    /// current from above when the coil saturates.
+    #[inline]
+    pub(crate) fn off_part(&self, i1: i64, a: i64, len: u32, unit: Unit) -> i64 {
+        let unsat = |n| match unit {
+            Unit::Count => self.off_duty.eval(n),
+            Unit::Micro => self.off_event.eval(n),
+        };
+        fall(i1, a, len, unsat, self.saturated_off(unit))
+    }
+
+    /// The saturated decay in `unit`, as [`fall`] takes it.
+    #[inline]
+    pub(crate) fn saturated_off(
+        &self,
+        unit: Unit,
+    ) -> Option<(i64, u64, impl Fn(u32) -> Decay + '_)> {
+        self.saturation.as_ref().map(move |s| {
+            let eval = move |n| match unit {
+                Unit::Count => s.off_duty.eval(n),
+                Unit::Micro => s.off_event.eval(n),
+            };
+            let tau = match unit {
+                Unit::Count => s.tau_off_counts,
+                Unit::Micro => s.tau_off_us,
+            };
+            (s.at, tau, eval)
+        })
     }
 
     /// The saturated part in `unit`, as [`rise`] takes it: (saturation current, the unsaturated
@@ -196,11 +258,7 @@ impl Model {
         let i0 = state.current.to_bits();
         let i1 = self.on_part(i0, self.on_asymptote(vs), n, Unit::Count);
         // n <= duty_full, so the subtraction cannot wrap.
-        let i2 = segment(
-            i1,
-            self.off_asymptote(vs),
-            self.off_duty.eval(self.duty_full - n),
-        );
+        let i2 = self.off_part(i1, self.off_asymptote(vs), self.duty_full - n, Unit::Count);
         state.current = Current::from_bits(i2);
         PeriodEstimate::of(i0, i1, i2)
     }
@@ -222,7 +280,7 @@ impl Model {
         let i1 = if on {
             self.on_part(i0, self.on_asymptote(vs), micros, Unit::Micro)
         } else {
-            segment(i0, self.off_asymptote(vs), self.off_event.eval(micros))
+            self.off_part(i0, self.off_asymptote(vs), micros, Unit::Micro)
         };
         state.current = Current::from_bits(i1);
         PeriodEstimate::of(i0, i1, i1)

@@ -48,7 +48,9 @@ use crate::estimate::{CoilState, PeriodEstimate};
 use crate::model::Model;
 use crate::params::{ConfigError, Conflict, Field, Params, positive};
 use crate::qmath::ln_ratio;
-use crate::thermal::{ClampHeat, ClampReplica, ClampThermal, CoilHeat, CoilReplica, CoilThermal};
+use crate::thermal::{
+    ClampAverage, ClampHeat, ClampReplica, ClampThermal, CoilHeat, CoilReplica, CoilThermal,
+};
 use crate::tolerance::{Bound, SLICES, Tolerance};
 use crate::units::{Current, Energy, Volts};
 use fixed::types::I32F32;
@@ -81,6 +83,8 @@ pub struct Policy {
     pub clamp_pulse: Action,
     /// `clamp-overheat`; default [`Action::Hold`] (turn-ons wait for the hysteresis).
     pub clamp_overheat: Action,
+    /// `clamp-power`; default [`Action::Trip`].
+    pub clamp_power: Action,
     /// `coil-overheat`; default [`Action::Trip`].
     pub coil_overheat: Action,
     /// `supply-range` below the minimum; default [`Action::Report`].
@@ -97,6 +101,7 @@ impl Default for Policy {
             overcurrent: Action::Trip,
             clamp_pulse: Action::Trip,
             clamp_overheat: Action::Hold,
+            clamp_power: Action::Trip,
             coil_overheat: Action::Trip,
             supply_low: Action::Report,
             supply_high: Action::Trip,
@@ -126,6 +131,37 @@ impl Retry {
     }
 }
 
+/// The clamp's average power limit: checked when no clamp thermal replica is configured, on a
+/// first-order average of the energy each period puts into the clamp path (or into the switch
+/// in avalanche) with time constant `window`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub struct ClampPower {
+    /// Highest average power, W (1 µW ..= 10 kW).
+    pub max_average: f32,
+    /// Averaging time constant, s (1 ms ..= 1000 s).
+    pub window: f32,
+}
+
+impl ClampPower {
+    /// When nothing is declared: 0.5 W over 1 s. Small surface-mount diodes and TVS parts
+    /// dissipate about 0.5 ..= 1 W steadily on a typical board (common practice, no single
+    /// source); declare the part's own figure, or configure its thermal replica.
+    pub const DEFAULT: Self = Self {
+        max_average: 0.5,
+        window: 1.0,
+    };
+
+    /// At most `max_average` W averaged over `window` s.
+    pub const fn new(max_average: f32, window: f32) -> Self {
+        Self {
+            max_average,
+            window,
+        }
+    }
+}
+
 /// The guard's limits in SI units (configuration time).
 #[derive(Debug, Clone, Copy, PartialEq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
@@ -141,6 +177,9 @@ pub struct GuardLimits {
     pub clamp_pulse_energy: Option<f32>,
     /// Thermal model of the clamp device.
     pub clamp_thermal: Option<ClampThermal>,
+    /// The clamp's average power limit, used when `clamp_thermal` is not configured (`None`:
+    /// [`ClampPower::DEFAULT`]).
+    pub clamp_power: Option<ClampPower>,
     /// Thermal image of the winding.
     pub coil_thermal: Option<CoilThermal>,
     /// What each condition does.
@@ -161,6 +200,7 @@ impl GuardLimits {
             release_current,
             clamp_pulse_energy: None,
             clamp_thermal: None,
+            clamp_power: None,
             coil_thermal: None,
             policy: Policy::default(),
             retry: None,
@@ -225,6 +265,8 @@ pub struct Output {
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct GuardState {
     coil: CoilState,
+    /// The clamp's average energy per period (see [`ClampPower`]).
+    clamp_power: Energy,
     /// The upper bound of the current per slice of the inductance range (see
     /// [`crate::Tolerance`]); the bound is their largest.
     bound: [CoilState; SLICES],
@@ -318,6 +360,8 @@ pub struct Guard {
     release: i64,
     pulse_rating: Option<Energy>,
     clamp: Option<ClampReplica>,
+    /// The clamp's average power limit (when no replica is configured).
+    power: Option<ClampAverage>,
     coil: Option<CoilReplica>,
     policy: Policy,
     retry: Option<(u32, u8)>,
@@ -425,6 +469,14 @@ impl Guard {
             Some(c) => Some(ClampReplica::new(c, d.period, d.energy_unit)?),
             None => None,
         };
+        let power = match (&clamp, limits.clamp_power) {
+            (Some(_), _) => None,
+            (None, p) => Some(ClampAverage::new(
+                p.unwrap_or(ClampPower::DEFAULT),
+                d.period,
+                d.energy_unit,
+            )?),
+        };
         let (coil, stale_per_kelvin) = match &limits.coil_thermal {
             Some(c) => {
                 let alpha = f64::from(params.coil.temperature_coefficient);
@@ -459,6 +511,7 @@ impl Guard {
             release,
             pulse_rating,
             clamp,
+            power,
             coil,
             policy: limits.policy,
             retry,
@@ -503,6 +556,7 @@ impl Guard {
     pub fn start_idle(&self) -> GuardState {
         GuardState {
             coil: CoilState::idle(),
+            clamp_power: Energy::ZERO,
             bound: [CoilState::idle(); SLICES],
             on_at_end: false,
             envelope: CoilState::idle(),
@@ -593,7 +647,7 @@ impl Guard {
 
     /// Whether the off-segment energy has a consumer (the pulse rating or the clamp replica).
     fn uses_clamp_energy(&self) -> bool {
-        self.pulse_rating.is_some() || self.clamp.is_some()
+        self.pulse_rating.is_some() || self.clamp.is_some() || self.power.is_some()
     }
 
     /// Whether duty `n` keeps every slice's bound at or below the ceiling in the coming period
@@ -750,6 +804,9 @@ impl Guard {
         if let Some(c) = &self.clamp {
             c.period(&mut state.clamp_heat, energy);
         }
+        if let Some(w) = &self.power {
+            state.clamp_power = w.period(state.clamp_power, energy);
+        }
         if let Some(c) = &self.coil {
             c.period(
                 &mut state.coil_heat,
@@ -798,6 +855,9 @@ impl Guard {
         };
         if let Some(c) = &self.clamp {
             c.event(&mut state.clamp_heat, energy, elapsed_us);
+        }
+        if let Some(w) = &self.power {
+            state.clamp_power = w.event(state.clamp_power, energy, elapsed_us);
         }
         if let Some(c) = &self.coil {
             c.event(
@@ -910,6 +970,18 @@ impl Guard {
                     pol.clamp_overheat,
                 );
             }
+        }
+        // Clamp average power (no replica configured).
+        if let Some(w) = &self.power
+            && w.over(state.clamp_power)
+        {
+            apply(
+                &mut active,
+                &mut hold,
+                &mut state.latched,
+                Condition::ClampPower,
+                pol.clamp_power,
+            );
         }
         // Winding image.
         if let Some(c) = &self.coil

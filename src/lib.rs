@@ -42,7 +42,8 @@ pub use adc::SupplySense;
 pub use condition::{Action, Condition, Conditions, Edge, Event, EventLog};
 pub use estimate::{CoilState, PeriodEstimate};
 pub use guard::{
-    Guard, GuardLimits, GuardState, HeldRequest, Input, LIMIT_LINGER, Output, Policy, Retry,
+    ClampPower, Guard, GuardLimits, GuardState, HeldRequest, Input, LIMIT_LINGER, Output, Policy,
+    Retry,
 };
 pub use hal::{GuardedPwm, GuardedSwitch};
 pub use hold::{HoldPhase, PullInHold};

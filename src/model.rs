@@ -18,8 +18,10 @@
 //! saturation current is split there: the unsaturated exponential up to the crossing (its time
 //! `τ_on·ln((A − i0)/(A − I_sat))`, one fixed-point logarithm, rounded down to whole units so the
 //! saturated part is never short), then the saturated one with `τ_sat = L_sat/(R + R_on)` toward
-//! the same asymptote. Off-segments keep the unsaturated inductance: saturation only speeds a
-//! decay, so the decay time and clamp energy stay upper bounds.
+//! the same asymptote. A decay from above the saturation current is split the same way (the
+//! saturated part first, its crossing rounded down so the slower unsaturated part is never
+//! short). The closed forms for the decay time and the clamp energy keep the unsaturated
+//! inductance: saturation only speeds a decay, so they stay upper bounds.
 //!
 //! The switch-node capacitance is not part of the nominal per-period model: it delays the clamp
 //! by roughly `C·V_p/I`. It is used for the turn-off peak when nothing clamps the switch, and by
@@ -29,7 +31,7 @@ use crate::params::{
     ClampPath, CoilParams, ConfigError, Conflict, ControlParams, Field, Params, Problem,
     SupplyParams, SwitchParams, in_range, non_negative, positive,
 };
-use crate::qmath::{DUTY_DIGITS, DecayTable, EVENT_DIGITS, Gain};
+use crate::qmath::{BitTable, DUTY_DIGITS, DecayTable, Gain};
 
 /// Headroom of the current format: asymptotes must stay within ±2²¹ full scale.
 pub(crate) const ASYMPTOTE_LIMIT: f64 = 2_097_152.0;
@@ -92,11 +94,18 @@ pub(crate) struct SatPart {
     pub(crate) at: i64,
     /// Decay tables of the saturated on-segment, per timer count and per µs.
     pub(crate) on_duty: DecayTable<DUTY_DIGITS>,
-    pub(crate) on_event: DecayTable<EVENT_DIGITS>,
+    pub(crate) on_event: BitTable,
     /// Unsaturated τ_on in timer counts, Q32.32 (τ_on in µs is [`Model::tau_on_us`]).
     pub(crate) tau_on_counts: u64,
     /// Saturated τ_on in µs, Q32.32.
     pub(crate) tau_us: u64,
+    /// Decay tables of the saturated off-segment (τ = L_sat/(R + R_p)), per count and per µs,
+    /// and that τ in counts and in µs (Q32.32): a decay from above the saturation current runs
+    /// on these until it reaches it.
+    pub(crate) off_duty: DecayTable<DUTY_DIGITS>,
+    pub(crate) off_event: BitTable,
+    pub(crate) tau_off_counts: u64,
+    pub(crate) tau_off_us: u64,
 }
 
 /// The immutable fixed-point model of one drive. See the module documentation.
@@ -106,8 +115,8 @@ pub struct Model {
     pub(crate) saturation: Option<SatPart>,
     pub(crate) on_duty: DecayTable<DUTY_DIGITS>,
     pub(crate) off_duty: DecayTable<DUTY_DIGITS>,
-    pub(crate) on_event: DecayTable<EVENT_DIGITS>,
-    pub(crate) off_event: DecayTable<EVENT_DIGITS>,
+    pub(crate) on_event: BitTable,
+    pub(crate) off_event: BitTable,
     /// Counts in a period (100 % duty).
     pub(crate) duty_full: u32,
     /// On asymptote per supply bit (current raw per U16F16 bit).
@@ -411,7 +420,8 @@ impl Model {
         let saturation = match sat {
             Some((at, ls)) => {
                 let tau_sat = ls / r_on_total;
-                if !tau_ok(tau_sat) {
+                let tau_sat_off = ls / r_off_total;
+                if !tau_ok(tau_sat) || !tau_ok(tau_sat_off) {
                     return Err(ConfigError::conflict(
                         Field::CoilSaturatedInductance,
                         Conflict::TimeConstantOutOfRange,
@@ -424,9 +434,13 @@ impl Model {
                     at: libm::round(at / fs * 1_099_511_627_776.0).min(2_305_843_009_213_693_952.0)
                         as i64,
                     on_duty: DecayTable::new(count_s / tau_sat),
-                    on_event: DecayTable::new(1e-6 / tau_sat),
+                    on_event: BitTable::new(1e-6 / tau_sat),
                     tau_on_counts: q32(tau_on / count_s),
                     tau_us: q32(tau_sat * 1e6),
+                    off_duty: DecayTable::new(count_s / tau_sat_off),
+                    off_event: BitTable::new(1e-6 / tau_sat_off),
+                    tau_off_counts: q32(tau_sat_off / count_s),
+                    tau_off_us: q32(tau_sat_off * 1e6),
                 })
             }
             None => None,
@@ -485,8 +499,8 @@ impl Model {
             saturation,
             on_duty: DecayTable::new(count / tau_on),
             off_duty: DecayTable::new(count / tau_off),
-            on_event: DecayTable::new(1e-6 / tau_on),
-            off_event: DecayTable::new(1e-6 / tau_off),
+            on_event: BitTable::new(1e-6 / tau_on),
+            off_event: BitTable::new(1e-6 / tau_off),
             duty_full: n_full,
             on_gain,
             off_gain,

@@ -315,6 +315,10 @@ pub enum Field {
     GuardClampPulseEnergy,
     /// `guard.retry_cooldown`
     GuardRetryCooldown,
+    /// `guard.clamp_power.max_average`
+    GuardClampPowerMax,
+    /// `guard.clamp_power.window`
+    GuardClampPowerWindow,
     /// `clamp_thermal.stages` (one of the Foster stages)
     ClampThermalStage,
     /// `clamp_thermal.ambient`
@@ -402,6 +406,8 @@ impl Field {
             Field::GuardReleaseCurrent => "guard.release_current",
             Field::GuardClampPulseEnergy => "guard.clamp_pulse_energy",
             Field::GuardRetryCooldown => "guard.retry_cooldown",
+            Field::GuardClampPowerMax => "guard.clamp_power.max_average",
+            Field::GuardClampPowerWindow => "guard.clamp_power.window",
             Field::ClampThermalStage => "clamp_thermal.stages",
             Field::ClampThermalAmbient => "clamp_thermal.ambient",
             Field::ClampThermalCeiling => "clamp_thermal.ceiling",
@@ -506,6 +512,8 @@ pub enum Conflict {
     /// The release current is at or below the ring a turn-off can leave in the switch-node
     /// capacitance, so a release could never be confirmed.
     ReleaseBelowRing,
+    /// The clamp-power averaging window is not longer than the control period.
+    WindowNotAbovePeriod,
     /// With nothing across the switch, the node capacitance makes the turn-off (nearly)
     /// overdamped at a corner of the declared tolerance, outside what the ring model covers.
     RingOverdamped,
@@ -577,6 +585,9 @@ impl fmt::Display for Conflict {
             }
             Conflict::CornerOutOfRange => {
                 "at a corner of the declared tolerance a time constant or resistance leaves its range"
+            }
+            Conflict::WindowNotAbovePeriod => {
+                "the averaging window is not longer than the control period"
             }
             Conflict::RingOverdamped => {
                 "node capacitance makes the unclamped turn-off (nearly) overdamped, outside the ring model"

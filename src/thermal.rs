@@ -406,3 +406,71 @@ impl CoilReplica {
         I32F32::from_bits(self.ambient.saturating_add(rise as i64))
     }
 }
+
+/// The clamp's average power against a limit, when no replica is configured: a first-order
+/// average of the energy per control period, `P̄ ← P̄·e^(−Δt/τ_w) + E·T/τ_w` (in energy per
+/// period; for the per-period update `e^(−T/τ_w)` is taken as `1 − T/τ_w`, its first-order
+/// form, which decays slower and so errs high).
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct ClampAverage {
+    /// The limit, energy per period.
+    limit: Energy,
+    /// `T/τ_w`, Q0.32.
+    share: u64,
+    /// `1/(τ_w·ln 2)` per µs, Q32.32 (the event decay's binary exponent per µs).
+    per_us: u64,
+}
+
+impl ClampAverage {
+    /// Validates the limit for a model of period `period` (s) and energy unit `unit` (J).
+    pub(crate) fn new(
+        p: crate::guard::ClampPower,
+        period: f32,
+        unit: f32,
+    ) -> Result<Self, ConfigError> {
+        let w = f64::from(positive(
+            Field::GuardClampPowerMax,
+            p.max_average,
+            1e-6,
+            1e4,
+        )?);
+        let tau = f64::from(positive(Field::GuardClampPowerWindow, p.window, 1e-3, 1e3)?);
+        let t = f64::from(period);
+        if t >= tau {
+            return Err(ConfigError::conflict(
+                Field::GuardClampPowerWindow,
+                crate::params::Conflict::WindowNotAbovePeriod,
+            ));
+        }
+        let per_period = (w * t / f64::from(unit)).min(4.0e9);
+        Ok(Self {
+            limit: Energy::from_bits(crate::model::q32(per_period)),
+            share: crate::model::q32(t / tau),
+            per_us: crate::model::q32(1e-6 / (tau * core::f64::consts::LN_2)),
+        })
+    }
+
+    /// One period that put `e` into the clamp.
+    pub(crate) fn period(&self, avg: Energy, e: Energy) -> Energy {
+        let (a, e) = (avg.to_bits(), e.to_bits());
+        // avg + (e − avg)·share, with share < 1: stays between avg and e.
+        let next = if e >= a {
+            a.saturating_add(mul_q32(e - a, self.share))
+        } else {
+            a - mul_q32(a - e, self.share)
+        };
+        Energy::from_bits(next)
+    }
+
+    /// An event of `us` µs that put `e` into the clamp.
+    pub(crate) fn event(&self, avg: Energy, e: Energy, us: u32) -> Energy {
+        let y = u64::from(us).saturating_mul(self.per_us);
+        let kept = mul_exp2_neg(avg.to_bits().min(i64::MAX as u64) as i64, y) as u64;
+        Energy::from_bits(kept.saturating_add(mul_q32(e.to_bits(), self.share)))
+    }
+
+    /// Whether the average is above the limit.
+    pub(crate) fn over(&self, avg: Energy) -> bool {
+        avg > self.limit
+    }
+}

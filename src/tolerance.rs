@@ -13,26 +13,37 @@
 //! clamp's resistance and the switch's breakdown are taken as given (fold an on-resistance
 //! spread into the resistance spread: `f_R' = f_R + f_on·R_on/R`).
 //!
-//! # Construction (proof sketch; the contributor guide has the long form)
-//! Every segment of constant drive is `L(i)·di/dt = V − R_t·i` with `L(i) > 0`. Two facts carry
-//! the whole bound:
-//! 1. *Monotone in the start.* A segment's end is an increasing function of its start (the map
+//! # Construction (proof sketch)
+//! Every segment of constant drive is `L(i)·di/dt = V − R_t·i` with `L(i) > 0`, `R_t` the
+//! winding plus the on-resistance or the clamp path's. Two facts carry the bound:
+//! 1. *Comparison.* If `f_b(t, i) ≥ f(t, i)` wherever the two solutions meet, the solution of
+//!    `i' = f_b` from a higher start stays at or above that of `i' = f` (the comparison theorem
+//!    for scalar ODEs). So a segment is bounded by the pointwise largest right side over the box:
+//!    - switch on, while `V − R_t·i > 0`: the highest supply, the lowest resistance and the
+//!      lowest inductance, one physical corner, the *rise corner* `(L_lo, R_lo, V_hi)`; above
+//!      the lowest saturation current the inductance can be as low as `min(L_sat,lo, L_lo)`,
+//!      so the rise is split there (crossing time rounded toward more saturated time). When the
+//!      bound is at or above the rise corner's asymptote it is held (every true current falls).
+//!    - switch off: the right side `−(V_p + R_t·i)/L(i)` (freewheel; `(Vs − V_p − R_t·i)/L(i)`
+//!      across the switch) is largest with the lowest clamp voltage, the lowest resistance and
+//!      the highest inductance, the *fall corner* `(L_hi, R_lo, V_p,lo)`; above the highest
+//!      saturation current every coil in the box is saturated, so the decay there runs with the
+//!      highest saturated inductance and is split where it passes that current. The same corner
+//!      bounds the decay time and the clamp energy (both grow with τ and fall with the
+//!      asymptote's magnitude).
+//! 2. *Monotone in the start.* A segment's end is an increasing function of its start (the map
 //!    `i ↦ A + (i − A)·e^(−t/τ)` has slope `e^(−t/τ) > 0`; the stop at zero keeps it monotone),
 //!    so a bound fed through a composition of segment maps stays a bound.
-//! 2. *Comparison.* If `f_b(i) ≥ f(i)` for every `i`, the solution of `i' = f_b(i)` from a higher
-//!    start stays higher (the comparison theorem for scalar ODEs). For a rising segment
-//!    (`V − R_t·i > 0`) the right side `(V − R_t·i)/L(i)` is largest with the highest asymptote
-//!    and the smallest inductance; for a falling one, with the highest asymptote and the largest
-//!    inductance. The corners are taken separately, so they need not be one physical coil:
-//!    - on-segments use the *rise corner*: `A_on = V_hi/(R_lo + R_on)` and
-//!      `τ = L_lo/(R_hi + R_on)` (a fictitious coil of resistance `R_lo` and inductance
-//!      `L_lo·(R_lo + R_on)/(R_hi + R_on)` has exactly these), with the saturated inductance
-//!      `min(L_sat,lo, L_lo)` above `I_sat,lo`, the crossing rounded toward more saturated time;
-//!      when the bound is already at or above `A_on` it is held (the true current falls);
-//!    - off-segments use the *fall corner*: the highest (least negative) asymptote at `R_hi` and
-//!      `V_hi`, and `τ = L_hi/(R_lo + R_p)`, unsaturated (saturation only speeds a decay). The
-//!      same corner bounds the decay time and the clamp energy (both grow with τ and fall with
-//!      the asymptote's magnitude).
+//!
+//! *Slices of the inductance range.* Taking the low inductance on every rise and the high one on
+//! every fall lets the bound's inductance change from segment to segment, which no real coil
+//! does: under PWM the bound would drift far above every true current (by the ratio of the two
+//! inductances in the duty balance). So the inductance range is cut into slices `L_a ..= L_b`
+//! of at most 8 % each (up to [`SLICES`]), each slice carries its own bound with the rise at
+//! `L_a` and the fall at `L_b`, and the guard acts on the largest: each slice's bound holds for
+//! every coil in its slice, so the largest holds for the whole box, and the drift shrinks to the
+//! slice's width. Event mode, whose segments are long, uses one whole-box bound.
+//!
 //! 3. *The node's charge at each turn-off.* With capacitance C at the switch node the current
 //!    first charges the node to the clamp's voltage `V_n` (`Vs + V_p` for a freewheel path, the
 //!    clamp or breakdown voltage across the switch), during which the coil still sees part of
@@ -62,12 +73,12 @@
 //! None: as the estimate (see [`crate::CoilState`]); the node-charge terms use the fixed-point
 //! `log2`/`exp2` kernels (saturating) and u128 products.
 
-use crate::estimate::{Unit, rise, segment};
+use crate::estimate::{Unit, fall, rise, segment};
 use crate::model::{Model, PathKind};
 use crate::params::{
     ClampPath, ConfigError, Conflict, Field, Params, Problem, Saturation, non_negative,
 };
-use crate::qmath::{DUTY_DIGITS, DecayTable, EVENT_DIGITS, Gain, exp2, log2};
+use crate::qmath::{BitTable, DUTY_DIGITS, DecayTable, Gain, exp2, log2};
 
 /// The uncertainty the guard is told to cover: each a relative spread around the parameter's
 /// nominal value (0.1 = ±10 %). The default, [`Tolerance::EXACT`], trusts the parameters.
@@ -240,7 +251,7 @@ struct Ring {
     residual: i64,
     /// The envelope's decay, `τ = 2·L_hi/R_lo`, per timer count and per µs; τ in µs (Q32.32).
     per_count: DecayTable<DUTY_DIGITS>,
-    per_us: DecayTable<EVENT_DIGITS>,
+    per_us: BitTable,
     tau_us: u64,
 }
 
@@ -262,8 +273,11 @@ pub(crate) struct Bound {
     ring: Option<Ring>,
 }
 
-/// Slices of the inductance range tracked side by side in PWM (see the module documentation).
-pub(crate) const SLICES: usize = 4;
+/// Slices of the inductance range tracked side by side in PWM, at most (see the module
+/// documentation).
+pub(crate) const SLICES: usize = 8;
+/// The widest a slice may be, `L_b/L_a`.
+const SLICE_RATIO: f64 = 1.08;
 
 /// One slice `L_a ..= L_b` of the inductance range: its rise and fall tables per timer count.
 #[derive(Debug, Clone, PartialEq)]
@@ -334,8 +348,17 @@ impl Bound {
             )
         });
         let rise = Model::new(&corner(p, l_lo, r_lo, sat_lo)).map_err(blame)?;
-        // Fall corner: the largest (least negative) right side with the switch off.
-        let mut fall = corner(p, l_hi, r_lo, None);
+        // Fall corner: the largest (least negative) right side with the switch off. Above the
+        // highest saturation current every coil in the box is saturated, so its inductance is at
+        // most the highest saturated one there.
+        let sat_hi = p.coil.saturation.map(|sat| {
+            let ls = (f64::from(sat.inductance) * (1.0 + s.l_sat + MARGIN)).min(l_nom * l_hi);
+            Saturation::new(
+                (f64::from(sat.current) * (1.0 + s.i_sat + MARGIN)) as f32,
+                ls as f32,
+            )
+        });
+        let mut fall = corner(p, l_hi, r_lo, sat_hi);
         clamp_scaled(&mut fall, 1.0 - s.clamp - MARGIN);
         let fall = Model::new(&fall).map_err(|e| match e.field {
             Field::ClampForwardDrop | Field::ClampZenerVoltage | Field::ClampVoltage => {
@@ -361,7 +384,10 @@ impl Bound {
             _ => None,
         };
         // Slices: L_lo·q^j ..= L_lo·q^(j+1), q = (L_hi/L_lo)^(1/SLICES).
-        let used = if s.l > 0.0 { SLICES } else { 1 };
+        // As many slices as keep each at most 8 % wide (L_b/L_a ≤ 1.08), up to SLICES: 8 for
+        // ±30 %, 3 for ±10 %, 1 without a spread.
+        let used =
+            (libm::ceil(libm::log(l_hi / l_lo) / libm::log(SLICE_RATIO)) as usize).clamp(1, SLICES);
         let q = libm::pow(l_hi / l_lo, 1.0 / used as f64);
         let count = f64::from(d.period) / f64::from(nominal.duty_resolution());
         let slice = |j: usize| {
@@ -485,7 +511,7 @@ impl Bound {
             lift: Gain::new(k * raw / 65_536.0 * (1.0 + MARGIN)),
             residual: libm::ceil(bv * k * raw).min(2.3e18) as i64,
             per_count: DecayTable::new(count / tau),
-            per_us: DecayTable::new(1e-6 / tau),
+            per_us: BitTable::new(1e-6 / tau),
             tau_us: crate::model::q32(tau * 1e6),
         })
     }
@@ -660,7 +686,7 @@ impl Bound {
         let a = self.fall.off_asymptote(vh);
         let decay = |start: i64| {
             if a < start {
-                segment(start, a, table(len))
+                fall(start, a, len, &table, self.fall.saturated_off(unit))
             } else {
                 // An asymptote above the start (a supply at or above a clamp across the switch):
                 // the current rises at most to it.

@@ -5,8 +5,8 @@ mod common;
 
 use coilward::thermal::{ClampThermal, CoilThermal, FosterStage};
 use coilward::{
-    Action, ClampPath, Condition, Current, EventLog, Guard, GuardLimits, HeldRequest, HoldPhase,
-    Input, Params, PullInHold, Retry, Volts,
+    Action, ClampPath, ClampPower, Condition, Current, EventLog, Guard, GuardLimits, HeldRequest,
+    HoldPhase, Input, Params, PullInHold, Retry, Volts,
 };
 use proptest::prelude::*;
 
@@ -255,6 +255,9 @@ fn clamp_rating_lowers_the_ceiling_and_flags_a_hot_turn_off() {
     });
     let mut l = basic();
     l.clamp_pulse_energy = Some(5e-3);
+    // This test is about single pulses: the clamp is declared able to take the average that
+    // chopping at the ceiling puts into it (the default 0.5 W trips; see the next test).
+    l.clamp_power = Some(ClampPower::new(100.0, 1.0));
     let g = Guard::new(&p, &l).unwrap();
     let m = g.model();
     let c = g.ceiling();
@@ -489,6 +492,49 @@ fn pull_in_then_hold_at_the_hold_current() {
     assert!(mean >= 0.45 && below < 0.45, "{below} < 0.45 <= {mean}");
     // At a lower supply the hold duty rises.
     assert!(plan.hold_duty(m, v(18.0)) > d);
+}
+
+#[test]
+fn chopping_into_a_clamp_across_the_switch_trips_on_its_average_power() {
+    // Zener clamp across the switch at 45 V, no thermal replica, no power declared: the default
+    // 0.5 W over 1 s applies. Chopping at a 1 A ceiling each period's off-segment puts about
+    // V_cl·ī·t_off into the clamp: 45 V × 1 A × 25 % of the time ≈ 11 W, far above it.
+    let p = common::valve_with(ClampPath::SwitchClamp {
+        clamp_voltage: 45.0,
+        resistance: 0.0,
+    });
+    let at_ceiling = || GuardLimits::new(1.0, 1.2, 0.05);
+    let g = Guard::new(&p, &at_ceiling()).unwrap();
+    let mut s = g.start_idle();
+    let mut tripped_at = None;
+    for k in 0..40_000u32 {
+        let out = g.tick(&mut s, Input::new(N, v(24.0)));
+        if out.raised.contains(Condition::ClampPower) {
+            tripped_at = Some(k);
+            assert!(out.latched.contains(Condition::ClampPower));
+            break;
+        }
+    }
+    // A first-order average of ~11 W crosses 0.5 W after about τ·ln(11/(11 − 0.5)) ≈ 47 ms
+    // (computed): between 20 and 100 ms of 50 µs periods.
+    let k = tripped_at.expect("clamp-power raised");
+    assert!((400..2000).contains(&k), "{k}");
+    // Declared able to take 20 W, the same drive runs on.
+    let mut l = at_ceiling();
+    l.clamp_power = Some(ClampPower::new(20.0, 1.0));
+    let g = Guard::new(&p, &l).unwrap();
+    let mut s = g.start_idle();
+    for _ in 0..40_000 {
+        let out = g.tick(&mut s, Input::new(N, v(24.0)));
+        assert!(!out.active.contains(Condition::ClampPower));
+    }
+    // A window not longer than the period is refused, naming the field.
+    let mut l = basic();
+    l.clamp_power = Some(ClampPower::new(1.0, 10e-6));
+    assert_eq!(
+        Guard::new(&p, &l).unwrap_err().field,
+        coilward::Field::GuardClampPowerWindow
+    );
 }
 
 #[test]

@@ -517,3 +517,17 @@ fn simulate(
     out.findings.sort_by(|a, b| a.t_s.total_cmp(&b.t_s));
     Ok(())
 }
+
+/// The largest first-order average of the clamp path's power over a run, W: each period's
+/// clamp energy through `P̄ ← P̄ + (E/T − P̄)·T/τ`, the same average the guard keeps for
+/// `clamp-power` (`window` = τ).
+pub fn worst_average_clamp_power(rows: &[Row], period: f64, window: f64) -> f64 {
+    let share = (period / window).min(1.0);
+    let mut avg: f64 = 0.0;
+    let mut worst: f64 = 0.0;
+    for r in rows {
+        avg += (r.clamp_energy_j / period - avg) * share;
+        worst = worst.max(avg);
+    }
+    worst
+}

@@ -409,6 +409,39 @@ fn check(file: &Path) -> Result<ExitCode, ExitCode> {
             );
         }
     }
+    let t = s.limits.tolerance;
+    println!(
+        "\n  declared tolerance the guard covers: inductance ±{:.1} %, resistance ±{:.1} %, \
+         supply reading ±{:.1} %, node capacitance +{:.1} %, clamp voltage ±{:.1} %",
+        t.inductance * 100.0,
+        t.resistance * 100.0,
+        t.supply_reading * 100.0,
+        t.node_capacitance * 100.0,
+        t.clamp_voltage * 100.0
+    );
+    if s.beliefs.saturation_current.is_some() {
+        println!(
+            "  saturation current ±{:.1} %, saturated inductance ±{:.1} %",
+            t.saturation_current * 100.0,
+            t.saturated_inductance * 100.0
+        );
+    }
+    let run = cosim::run(&s, Options { rows: true });
+    let p = s
+        .limits
+        .clamp_power
+        .unwrap_or(coilward::ClampPower::DEFAULT);
+    let worst = cosim::worst_average_clamp_power(&run.rows, s.period, f64::from(p.window));
+    let limit = if s.limits.clamp_thermal.is_some() {
+        "the clamp's thermal replica is configured".to_string()
+    } else {
+        format!("limit {}", si(f64::from(p.max_average), "W", 3))
+    };
+    println!(
+        "  clamp average power, worst      {} over a {} window, simulated ({limit})",
+        si(worst, "W", 3),
+        si(f64::from(p.window), "s", 3)
+    );
     if !s.tolerance.is_empty() {
         println!("\n  tolerance spreads (for sweep):");
         for (k, sp) in &s.tolerance {

@@ -124,6 +124,9 @@ struct RawGuard {
     trip_current: Text,
     release_current: Text,
     clamp_pulse_energy: Text,
+    clamp_max_power: Text,
+    clamp_power_window: Text,
+    clamp_power: Text,
     retry_cooldown: Text,
     max_retries: Option<Spanned<i64>>,
     overcurrent: Text,
@@ -897,6 +900,8 @@ fn scenario_key(field: &str) -> &str {
         "supply.nominal" => "supply.voltage",
         "coil.winding_temperature" => "coil.temperature",
         "coil.node_capacitance" => "switch.capacitance",
+        "guard.clamp_power.max_average" => "guard.clamp_max_power",
+        "guard.clamp_power.window" => "guard.clamp_power_window",
         "coil.saturation.current" => "coil.saturation_current",
         "coil.saturation.inductance" => "coil.saturated_inductance",
         "tolerance.node_capacitance" => "tolerance.capacitance",
@@ -1223,6 +1228,19 @@ impl Scenario {
                 Unit::Joule,
             )?
             .map(|x| x as f32);
+        let max_power = cx.value("guard.clamp_max_power", &g.clamp_max_power, Unit::Watt)?;
+        let window = cx.value(
+            "guard.clamp_power_window",
+            &g.clamp_power_window,
+            Unit::Second,
+        )?;
+        if max_power.is_some() || window.is_some() {
+            let d = coilward::ClampPower::DEFAULT;
+            limits.clamp_power = Some(coilward::ClampPower::new(
+                max_power.map_or(d.max_average, |x| x as f32),
+                window.map_or(d.window, |x| x as f32),
+            ));
+        }
         let cooldown = cx.value("guard.retry_cooldown", &g.retry_cooldown, Unit::Second)?;
         let retries = cx.count("guard.max_retries", &g.max_retries, 0..256)?;
         limits.retry = match (cooldown, retries) {
@@ -1242,6 +1260,7 @@ impl Scenario {
         let mut policy = limits.policy;
         policy.overcurrent = cx.action("guard.overcurrent", &g.overcurrent, policy.overcurrent)?;
         policy.clamp_pulse = cx.action("guard.clamp_pulse", &g.clamp_pulse, policy.clamp_pulse)?;
+        policy.clamp_power = cx.action("guard.clamp_power", &g.clamp_power, policy.clamp_power)?;
         policy.clamp_overheat = cx.action(
             "guard.clamp_overheat",
             &g.clamp_overheat,

@@ -25,6 +25,8 @@ pub enum Unit {
     Ampere,
     /// Joule.
     Joule,
+    /// Watt.
+    Watt,
     /// Degree Celsius (`°C`, `degC`).
     Celsius,
     /// Kelvin, as a temperature difference.
@@ -56,6 +58,7 @@ impl Unit {
             Unit::Volt => "V",
             Unit::Ampere => "A",
             Unit::Joule => "J",
+            Unit::Watt => "W",
             Unit::Celsius => "°C",
             Unit::Kelvin => "K",
             Unit::KelvinPerWatt => "K/W",
@@ -78,6 +81,7 @@ impl Unit {
             Unit::Volt => "\"24 V\"",
             Unit::Ampere => "\"1.2 A\"",
             Unit::Joule => "\"50 mJ\"",
+            Unit::Watt => "\"2 W\"",
             Unit::Celsius => "\"25 °C\"",
             Unit::Kelvin => "\"10 K\"",
             Unit::KelvinPerWatt => "\"2 K/W\"",
@@ -99,6 +103,7 @@ impl Unit {
             Unit::Volt => &["V"],
             Unit::Ampere => &["A"],
             Unit::Joule => &["J"],
+            Unit::Watt => &["W"],
             Unit::Celsius => &["°C", "degC", "℃"],
             Unit::Kelvin => &["K"],
             Unit::KelvinPerWatt => &["K/W"],

@@ -366,3 +366,61 @@ fn a_ring_under_the_breakdown_is_waited_out() {
     assert!(on_again - 5e-3 >= last_above - t_off);
     assert!(!r.findings.iter().any(|f| f.kind == "on-before-release"));
 }
+
+// ---------------------------------------------------------------------------------------------
+// What the bound costs.
+
+/// Mean true current over `from ..= to` (s) of a run.
+fn mean_current(s: &Scenario, from: f64, to: f64) -> f64 {
+    let r = cosim::run(s, Options { rows: true });
+    let rows: Vec<_> = r
+        .rows
+        .iter()
+        .filter(|x| x.t_s >= from && x.t_s < to)
+        .collect();
+    rows.iter().map(|x| x.mean_current_a).sum::<f64>() / rows.len() as f64
+}
+
+/// The scenario's text with its `[tolerance]` section (the last section) removed: the guard is
+/// then told the circuit exactly.
+fn exact(text: &str) -> String {
+    text.split("\n[tolerance]")
+        .next()
+        .unwrap_or(text)
+        .to_string()
+}
+
+/// How much mean current a hold at the ceiling loses to the bound, against a guard told the
+/// circuit exactly, on the same (nominal) coil: the figure the declared tolerance costs.
+fn hold_cost(text: &str, from: f64, to: f64) -> f64 {
+    let bounded = mean_current(&scenario(text), from, to);
+    let informed = mean_current(&scenario(&exact(text)), from, to);
+    1.0 - bounded / informed
+}
+
+#[test]
+fn what_the_bound_costs_in_a_hold_at_the_ceiling() {
+    let valve = std::fs::read_to_string(
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("../examples/scenarios/valve-at-ceiling.toml"),
+    )
+    .unwrap();
+    // The demo valve held at its 1.0 A ceiling from 15 to 40 ms; its box: inductance ±30 %,
+    // resistance ±10 %, supply reading ±2 %. No sound guard can do better than
+    // 1 − 0.9·0.98 = 11.8 % here: at equal duty the box's worst coil (R −10 %, reading 2 % low)
+    // draws 1/(0.9·0.98) times the nominal current.
+    let valve_cost = hold_cost(&valve, 0.015, 0.040);
+    // The saturating coil of the first test, held at its 1.5 A ceiling from 10 to 30 ms.
+    let sat_cost = hold_cost(SATURATING, 0.010, 0.030);
+    eprintln!(
+        "CHECK hold at the ceiling, mean current lost to the bound: demo valve {:.1} %, \
+         saturating coil {:.1} %",
+        valve_cost * 100.0,
+        sat_cost * 100.0
+    );
+    // The goal is at most 15 %. The valve meets it (14.3 % measured). The saturating coil
+    // does not yet (17.2 % measured): the saturated inductance is not sliced, so above the
+    // saturation current its rise and fall still take the two ends of the ±20 % spread. This
+    // bound keeps it from getting worse until it is.
+    assert!(valve_cost > 0.118 && valve_cost <= 0.15, "{valve_cost}");
+    assert!(sat_cost > 0.053 && sat_cost <= 0.18, "{sat_cost}");
+}

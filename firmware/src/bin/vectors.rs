@@ -74,7 +74,10 @@ fn main() -> ! {
     }
     let state = core::mem::size_of::<GuardState>();
     let _ = writeln!(out, "state-bytes {state}");
-    ok &= check(&mut out, "state-at-most-64-bytes", state <= 64);
+    // The budget was 64 bytes before the guard carried its bound: up to eight slices of the
+    // inductance range (64 B), the ring's envelope and the clamp's average power (16 B) make
+    // the state 144 bytes.
+    ok &= check(&mut out, "state-at-most-160-bytes", state <= 160);
 
     let _ = writeln!(
         out,
