@@ -424,3 +424,29 @@ fn what_the_bound_costs_in_a_hold_at_the_ceiling() {
     assert!(valve_cost > 0.118 && valve_cost <= 0.15, "{valve_cost}");
     assert!(sat_cost > 0.053 && sat_cost <= 0.18, "{sat_cost}");
 }
+
+/// The fault suite over a circuit's own box: nothing inside it is exceeded.
+fn suite_holds(name: &str, text: &str) {
+    let s = scenario(text);
+    let cases = coilward_sim::faults::suite(&s);
+    let mut worst: f64 = 0.0;
+    for c in cases.iter().filter(|c| c.inside) {
+        let (o, _) = coilward_sim::faults::run(c);
+        assert!(!o.exceeded, "{name}: {}: {o:?}", o.name);
+        assert!(o.bound_margin_a >= 0.0, "{name}: {}: {o:?}", o.name);
+        worst = worst.max(o.peak_over_ceiling);
+    }
+    eprintln!(
+        "CHECK fault suite, {name}: {} cases inside the box, none exceeded; worst peak {worst:.3} \
+         of the ceiling",
+        cases.iter().filter(|c| c.inside).count()
+    );
+}
+
+#[test]
+fn inside_their_boxes_the_three_circuits_exceed_nothing() {
+    suite_holds("saturating coil", SATURATING);
+    suite_holds("4 % duty, 1 nF", &low_duty_text("1 nF"));
+    let ringing = format!("{RINGING}\n[tolerance]\ninductance = \"±10 %\"\nresistance = \"±5 %\"\ncapacitance = \"±20 %\"\n");
+    suite_holds("ring under breakdown", &ringing);
+}
