@@ -87,7 +87,8 @@ pub struct EventRecord {
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Finding {
     /// Stable identifier: `current-above-trip`, `clamp-pulse-above-rating`,
-    /// `avalanche-with-clamp`, `on-before-release`, `guard-acted`, `plant-stopped`.
+    /// `avalanche-with-clamp`, `on-before-release`, `on-into-ringing-node`, `guard-acted`,
+    /// `plant-stopped`.
     pub kind: &'static str,
     /// First time it happened, s.
     pub t_s: f64,
@@ -428,6 +429,14 @@ fn simulate(
             if releasing.is_some() && i.abs() > release {
                 out.first("on-before-release", tk, || {
                     format!("switched on with {i:.4} A still flowing (release current {release} A)")
+                });
+            }
+            // Switching on into a node still ringing far above the supply: the switch takes the
+            // node capacitance's charge at that voltage (a hard turn-on).
+            let (v, rail) = (plant.state.node, circuit.supply);
+            if releasing.is_some() && v > 1.5 * rail + 1.0 {
+                out.first("on-into-ringing-node", tk, || {
+                    format!("switched on with the node still at {v:.1} V (supply {rail:.1} V)")
                 });
             }
             open = None;

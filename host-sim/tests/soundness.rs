@@ -365,6 +365,26 @@ fn a_ring_under_the_breakdown_is_waited_out() {
     );
     assert!(on_again - 5e-3 >= last_above - t_off);
     assert!(!r.findings.iter().any(|f| f.kind == "on-before-release"));
+    assert!(!r.findings.iter().any(|f| f.kind == "on-into-ringing-node"));
+    // A guard that believes a 1 kΩ winding (its ring would die within 0.1 ms) switches on into
+    // the real ring, and the simulator says so.
+    let blind = scenario(&format!("{RINGING}\n[model]\nresistance = \"1 kΩ\"\n"));
+    let r = cosim::run(&blind, Options::default());
+    let kinds: Vec<_> = r.findings.iter().map(|f| f.kind).collect();
+    eprintln!("CHECK ring, guard misinformed: {kinds:?}");
+    assert!(kinds.contains(&"on-before-release") || kinds.contains(&"on-into-ringing-node"));
+    // A release current above the coil's own current lets the guard switch on one period after
+    // the turn-off, with the node near its 366 V peak: a hard turn-on the simulator flags.
+    let early =
+        scenario(&RINGING.replace("release_current = \"10 mA\"", "release_current = \"0.3 A\""));
+    let r = cosim::run(&early, Options::default());
+    let f = r
+        .findings
+        .iter()
+        .find(|f| f.kind == "on-into-ringing-node")
+        .expect("flagged");
+    eprintln!("CHECK ring, release above the current: {}", f.detail);
+    assert!((f.t_s - 5.05e-3).abs() < 1e-6);
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -447,6 +467,8 @@ fn suite_holds(name: &str, text: &str) {
 fn inside_their_boxes_the_three_circuits_exceed_nothing() {
     suite_holds("saturating coil", SATURATING);
     suite_holds("4 % duty, 1 nF", &low_duty_text("1 nF"));
-    let ringing = format!("{RINGING}\n[tolerance]\ninductance = \"±10 %\"\nresistance = \"±5 %\"\ncapacitance = \"±20 %\"\n");
+    let ringing = format!(
+        "{RINGING}\n[tolerance]\ninductance = \"±10 %\"\nresistance = \"±5 %\"\ncapacitance = \"±20 %\"\n"
+    );
     suite_holds("ring under breakdown", &ringing);
 }
