@@ -705,6 +705,12 @@ impl Bound {
         // - x >= x_lo (the charge completes early): at most decay(h(x)), h(x) = x + K/x + k2,
         //   convex, so its largest value on x_lo ..= i1 is at an end.
         let c = n.sqrt_c_over_l.apply(vh.saturating_add(n.body)) as i64;
+        if a >= i1 {
+            // Not a decay: a supply at or above a clamp across the switch holds the current up,
+            // so it rises toward the asymptote; the node's charge adds at most c on top.
+            let top = a.max(i1).saturating_add(c);
+            return (top, top.max(n.ring) + ROUNDING);
+        }
         let peak = i1.saturating_add(c);
         let charge = match unit {
             Unit::Count => n.charge_counts,

@@ -596,7 +596,8 @@ proptest! {
             prop_assert!(out.duty == 0 || out.predicted_peak <= g.ceiling());
             // The prediction is the bound's: with the output off it is the bound now.
             prop_assert!(out.predicted_peak <= g.ceiling().max(out.bound));
-            prop_assert!(out.bound >= out.estimate.end);
+            // Within the two models' independent rounding (2^10 raw, 10^-9 of full scale).
+            prop_assert!(out.bound.to_bits() + 1024 >= out.estimate.end.to_bits());
             prop_assert!(out.duty <= N);
             let out = g.event(&mut s, duty % 2 == 0, raw, supply);
             prop_assert!(out.duty == 0 || out.duty == N);
