@@ -99,6 +99,11 @@ expect 1 "$SIM" run examples/scenarios/unclamped-avalanche.toml
 # Driven to the ceiling on purpose (the fault suite's base): the guard acts, so the verdict is fail.
 expect 1 "$SIM" run examples/scenarios/valve-at-ceiling.toml
 cargo run --quiet --release -p coilward-sim --example fault_table >"$OUT/faults.md"
+# The fault suite over each low-side demo's declared tolerance: nothing inside it is exceeded.
+for f in irrigation-valve relay-zener unclamped-avalanche valve-at-ceiling; do
+    expect 0 "$SIM" faults "examples/scenarios/$f.toml" --json "$OUT/faults-$f.json"
+    grep -q '"inside_tolerance": true' "$OUT/faults-$f.json"
+done
 expect 0 "$SIM" sweep examples/scenarios/relay-zener.toml --samples 200 --json "$OUT/sweep.json"
 expect 0 "$SIM" fit examples/captures/valve-pull-in.csv --supply "24 V" --on-resistance "0.1 Ω" \
     --svg "$OUT/fit.svg"

@@ -7,7 +7,7 @@
 use coilward::thermal::{ClampThermal, CoilThermal, FosterStage};
 use coilward::{
     ClampPath, CoilParams, Condition, ControlParams, Current, Guard, GuardLimits, Input, Params,
-    Retry, SupplyParams, SupplySense, SwitchParams,
+    Retry, Saturation, SupplyParams, SupplySense, SwitchParams, Tolerance,
 };
 
 /// Periods in the trace.
@@ -34,9 +34,10 @@ pub fn bridge_limits() -> coilward::bridge::BridgeLimits {
     coilward::bridge::BridgeLimits::new(4.0, 5.0, 0.05, 2e-3)
 }
 
-/// The drive: a 24 V valve, 40 mH, 18 Ω at 20 °C, zener clamp across the switch, 20 kHz.
+/// The drive: a 24 V valve, 40 mH, 18 Ω at 20 °C, saturating to 12 mH above 0.9 A, zener clamp
+/// across the switch, 20 kHz.
 pub fn params() -> Params {
-    let mut coil = CoilParams::new(0.040, 18.0);
+    let mut coil = CoilParams::new(0.040, 18.0).with_saturation(Saturation::new(0.9, 0.012));
     coil.node_capacitance = Some(470e-12);
     Params::new(
         SupplyParams::new(24.0, 18.0, 30.0),
@@ -50,9 +51,18 @@ pub fn params() -> Params {
     )
 }
 
-/// Every protection switched on.
+/// Every protection switched on, and a declared tolerance (so the bound's slices, saturation
+/// splits and node charge are all on the trace).
 pub fn limits() -> GuardLimits {
-    let mut l = GuardLimits::new(1.1, 1.3, 0.05);
+    let mut l = GuardLimits::new(1.1, 1.3, 0.05).with_tolerance(
+        Tolerance::EXACT
+            .with_inductance(0.2)
+            .with_resistance(0.1)
+            .with_supply_reading(0.02)
+            .with_node_capacitance(0.5)
+            .with_saturation(0.1, 0.2)
+            .with_clamp_voltage(0.05),
+    );
     l.clamp_pulse_energy = Some(0.02);
     l.clamp_thermal = Some(ClampThermal::new(
         [
@@ -66,6 +76,27 @@ pub fn limits() -> GuardLimits {
     l.coil_thermal = Some(CoilThermal::new(0.5, 0.7, 1.05, 25.0, 60.0));
     l.retry = Some(Retry::new(5e-3, 3));
     l
+}
+
+/// A high-resistance coil with nothing across the switch and 22 nF at its node, whose turn-offs
+/// ring under the breakdown (the bound's ring envelope), with a declared tolerance: for the
+/// panic-free build.
+pub fn ring_params() -> Params {
+    let mut coil = CoilParams::new(0.05, 100.0);
+    coil.node_capacitance = Some(22e-9);
+    Params::new(
+        SupplyParams::new(24.0, 20.0, 26.0),
+        coil,
+        SwitchParams::new(0.05, 400.0),
+        ClampPath::None,
+        ControlParams::new(50e-6, 1000, 0.5),
+    )
+}
+
+/// The ringing coil's limits.
+pub fn ring_limits() -> GuardLimits {
+    GuardLimits::new(0.3, 0.35, 0.01)
+        .with_tolerance(Tolerance::EXACT.with_inductance(0.1).with_resistance(0.05))
 }
 
 /// FNV-1a over 64-bit words.

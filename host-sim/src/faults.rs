@@ -219,7 +219,12 @@ fn outside(base: &Scenario) -> Vec<Case> {
             "reset with current flowing (the guard starts not knowing)",
             true,
             |s| {
-                s.start.current = 0.9 * f64::from(s.limits.current_ceiling);
+                // Where the guard held it before the reset: 0.9 × its effective ceiling (the
+                // configured one, or lower where the clamp's pulse rating sets it).
+                let ceiling = s.guard().map_or(f64::from(s.limits.current_ceiling), |g| {
+                    f64::from(g.model().amps(g.ceiling()))
+                });
+                s.start.current = 0.9 * ceiling;
                 s.start.guard_told = false;
             },
         ),

@@ -49,7 +49,20 @@ fn main() -> ! {
         &black_box(trace::bridge_limits()),
     );
     let mut bridge_state = bridge.as_ref().ok().map(BridgeGuard::start_after_reset);
+    // Nothing across the switch: the ring envelope.
+    let ring = Guard::new(
+        &black_box(trace::ring_params()),
+        &black_box(trace::ring_limits()),
+    );
+    let mut ring_state = ring.as_ref().ok().map(Guard::start_after_reset);
     loop {
+        if let (Ok(g), Some(s)) = (&ring, ring_state.as_mut()) {
+            let v = Volts::from_bits(black_box(24 << 16));
+            let out = g.tick(s, Input::new(black_box(700), v));
+            black_box(out.bound);
+            let out = g.event(s, black_box(false), black_box(4321), v);
+            black_box(out.release_in_us);
+        }
         if let (Ok(b), Some(s)) = (&bridge, bridge_state.as_mut()) {
             let emf = b
                 .model()
