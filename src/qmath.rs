@@ -256,6 +256,22 @@ impl Gain {
         }
     }
 
+    /// `x·g` in u128 for an operand below 2⁹⁶, saturating at 2¹⁰⁰ (the node-charge raise).
+    pub(crate) fn apply_u128_full(self, x: u128) -> u128 {
+        let cap: u128 = 1 << 100;
+        let p = x.min(1 << 96) * u128::from(self.m); // < 2^128
+        if self.sh >= 0 {
+            let sh = self.sh.unsigned_abs();
+            if sh >= 100 || p.leading_zeros() < sh + 28 {
+                if p == 0 { 0 } else { cap }
+            } else {
+                (p << sh).min(cap)
+            }
+        } else {
+            p.checked_shr(self.sh.unsigned_abs()).unwrap_or(0).min(cap)
+        }
+    }
+
     /// `x·g` for a wide operand (closed forms only, not the per-period step), saturating.
     ///
     /// The 96-bit product is formed from two u32×u32 → u64 products (no 128-bit arithmetic).
@@ -447,6 +463,48 @@ const EXP2_NEG_TABLE: [u64; 64] = {
     }
     t
 };
+
+/// `⌈2³²/t⌉` for `t = 128 ..= 255` (computed at compile time).
+const RECIP: [u32; 128] = {
+    let mut r = [0u32; 128];
+    let mut k = 0;
+    while k < 128 {
+        let d = (k + 128) as u64;
+        r[k] = ((1u64 << 32).div_ceil(d)) as u32;
+        k += 1;
+    }
+    r
+};
+
+/// An upper bound of `num/den` (`den > 0`; `u64::MAX` for 0), at most 1/128 + 1 unit above the
+/// quotient: the top eight bits of `den` index a table of rounded-up reciprocals, so there is
+/// no division at run time. With `den = t·2^(e−7)` and `t` its top eight bits,
+/// `num/den ≤ num·⌈2³²/t⌉·2^−(25+e)`.
+pub(crate) fn div_up(num: u64, den: u64) -> u64 {
+    div_up_wide(u128::from(num), den)
+}
+
+/// [`div_up`] for a wide numerator (saturated at 2¹⁰⁰ first, which keeps the product in u128;
+/// a saturated numerator only errs high).
+pub(crate) fn div_up_wide(num: u128, den: u64) -> u64 {
+    let num = num.min(1 << 100);
+    if den == 0 {
+        return u64::MAX;
+    }
+    let e = 63 - den.leading_zeros(); // den != 0, so e <= 63
+    let top = if e >= 7 {
+        den >> (e - 7)
+    } else {
+        den << (7 - e)
+    }; // 128 ..= 255
+    let m = RECIP
+        .get((top as usize).wrapping_sub(128))
+        .copied()
+        .unwrap_or(u32::MAX);
+    let p = num * u128::from(m); // < 2^100 · 2^32
+    let q = p.checked_shr(25 + e).unwrap_or(0) + 1;
+    q.min(u128::from(u64::MAX)) as u64
+}
 
 /// ln 2 in Q0.64 (also used by [`ln_ratio`]).
 const LN2_Q64: u64 = 0xB172_17F7_D1CF_79AC;
@@ -758,6 +816,14 @@ mod tests {
             fn mul_q32_matches_u128(a in any::<u64>(), b in any::<u64>()) {
                 let want = ((u128::from(a) * u128::from(b)) >> 32).min(u128::from(u64::MAX)) as u64;
                 prop_assert_eq!(mul_q32(a, b), want);
+            }
+
+            /// div_up: at or above the quotient, and at most 1/128 of it (plus 1) above.
+            #[test]
+            fn div_up_bounds_the_quotient(num in any::<u64>(), den in 1u64..=u64::MAX) {
+                let q = u128::from(num) / u128::from(den);
+                let got = u128::from(div_up(num, den));
+                prop_assert!(got >= q && got <= q + q / 127 + 2, "{num}/{den}: {got} vs {q}");
             }
 
             /// log2: absolute error below 2^-29.

@@ -70,15 +70,16 @@
 //! gains' 2⁻³², and each segment of the bound adds 2 raw units for the truncating products.
 //!
 //! # Panics
-//! None: as the estimate (see [`crate::CoilState`]); the node-charge terms use the fixed-point
-//! `log2`/`exp2` kernels (saturating) and u128 products.
+//! None: as the estimate (see [`crate::CoilState`]); the node-charge terms divide by an
+//! upper-bounding reciprocal table (`qmath::div_up`, no division at run time) with u128
+//! products, saturating.
 
 use crate::estimate::{Unit, fall, rise, segment};
 use crate::model::{Model, PathKind};
 use crate::params::{
     ClampPath, ConfigError, Conflict, Field, Params, Problem, Saturation, non_negative,
 };
-use crate::qmath::{BitTable, DUTY_DIGITS, DecayTable, Gain, exp2, log2};
+use crate::qmath::{BitTable, DUTY_DIGITS, DecayTable, Gain, div_up, div_up_wide};
 
 /// The uncertainty the guard is told to cover: each a relative spread around the parameter's
 /// nominal value (0.1 = ±10 %). The default, [`Tolerance::EXACT`], trusts the parameters.
@@ -215,9 +216,9 @@ const BODY_BITS: u32 = 98_304;
 /// The turn-off node-charge terms (see the module documentation, item 3).
 #[derive(Debug, Clone, PartialEq)]
 struct NodeCharge {
-    /// `log2` of 1.25·C/(2·L·I_fs²)·2⁸⁰⁻³² (Q31.32): with `2·log2(V_n bits) − log2(i)` it
-    /// gives the first raise in raw units.
-    log_k1: i64,
+    /// 1.25·C/(2·L·I_fs²)·2⁴⁸: times `V_n bits²` over the current (raw) it gives the first
+    /// raise in raw units.
+    k1: Gain,
     /// Second raise 1.25·C·V_n,max·R_t/L, raw.
     k2: i64,
     /// Smallest current for which `T_c ≤ τ/8`, raw.
@@ -440,7 +441,7 @@ impl Bound {
         let ring_v = v_p;
         let k1 = 1.25 * c_hi / (2.0 * l_min * fs * fs);
         NodeCharge {
-            log_k1: crate::model::q32_signed(libm::log2(k1) + 80.0 - 32.0),
+            k1: Gain::new(k1 * 281_474_976_710_656.0 * (1.0 + MARGIN)),
             k2: libm::ceil(1.25 * c_hi * v_n_max * r_t_hi / l_min * raw) as i64,
             i_min: libm::ceil(8.0 * c_hi * v_n_max * r_t_hi / l_min * raw) as i64,
             charge_counts: libm::ceil(c_hi * v_n_max / count * raw).min(1.8e19) as u64,
@@ -716,21 +717,19 @@ impl Bound {
             Unit::Count => n.charge_counts,
             Unit::Micro => n.charge_us,
         };
-        // x_lo = max(i_min, C·V_n/t_off), the quotient from logarithms, rounded up.
-        let q = exp2(log2(charge) - log2(u64::from(len)));
-        let x_lo = n
-            .i_min
-            .max((q.min(1 << 61) as i64).saturating_add((q >> 20) as i64 + 2));
+        // x_lo = max(i_min, C·V_n/t_off), the quotient rounded up (no division).
+        let q = div_up(charge, u64::from(len));
+        let x_lo = n.i_min.max(q.min(1 << 61) as i64);
         if i1 < x_lo {
             return (peak, peak.max(n.ring) + ROUNDING);
         }
         let v_n = n
             .node_base
             .saturating_add(if n.node_adds_supply { vh } else { 0 });
-        let log_k = n.log_k1 + 2 * log2(u64::from(v_n));
-        // x >= x_lo >= 1 here.
+        // K·V_n², then over x rounded up; x >= x_lo >= 1 here.
+        let kv = n.k1.apply_u128_full(u128::from(v_n) * u128::from(v_n));
         let h = |x: i64| {
-            let raise = exp2(log_k - log2(x as u64)).min(1 << 61) as i64;
+            let raise = div_up_wide(kv, x as u64).min(1 << 61) as i64;
             x.saturating_add(raise).saturating_add(n.k2)
         };
         let y = h(x_lo).max(h(i1));
