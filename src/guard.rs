@@ -50,6 +50,7 @@ use crate::params::{ConfigError, Conflict, Field, Params, positive};
 use crate::qmath::ln_ratio;
 use crate::thermal::{
     ClampAverage, ClampHeat, ClampReplica, ClampThermal, CoilHeat, CoilReplica, CoilThermal,
+    ThermalSnapshot,
 };
 use crate::tolerance::{Bound, SLICES, Tolerance};
 use crate::units::{Current, Energy, Volts};
@@ -342,6 +343,14 @@ impl GuardState {
         self.applied = duty;
     }
 
+    /// The thermal images, to keep across a reset (see [`ThermalSnapshot`]).
+    pub const fn thermal(&self) -> ThermalSnapshot {
+        ThermalSnapshot {
+            coil: self.coil_heat,
+            clamp: self.clamp_heat,
+        }
+    }
+
     /// Starts the winding image at `heat` (a hot start).
     #[must_use]
     pub const fn with_coil_heat(mut self, heat: CoilHeat) -> Self {
@@ -577,9 +586,51 @@ impl Guard {
     /// the trip current and the steady on-current at the maximum supply): the output stays off
     /// for the full decay time to the release current. The assumed current raises no
     /// `overcurrent` or `clamp-pulse`; it is a belief, not an observation.
+    ///
+    /// The thermal images start at their worst credible state: the winding at its trip level and
+    /// the clamp device at its ceiling, so `coil-overheat` and `clamp-overheat` hold the output
+    /// off until they have cooled to their reset levels. A reset therefore never shortens an
+    /// overload. To resume from the images as they were, save [`GuardState::thermal`] where the
+    /// reset leaves it and use [`Guard::start_after_reset_restored`].
     pub fn start_after_reset(&self) -> GuardState {
+        self.start_after_reset_restored(None)
+    }
+
+    /// As [`Guard::start_after_reset`], with the thermal images restored from a snapshot saved
+    /// before the reset (`None`: the worst credible state). The images have cooled since, so the
+    /// restored state errs hot.
+    ///
+    /// ```
+    /// use coilward::thermal::ThermalSnapshot;
+    /// use coilward::{ClampPath, CoilParams, ControlParams, Guard, GuardLimits, Params,
+    ///                SupplyParams, SwitchParams};
+    /// # let params = Params::new(SupplyParams::new(24.0, 18.0, 30.0), CoilParams::new(0.04, 18.0),
+    /// #     SwitchParams::new(0.1, 60.0), ClampPath::Freewheel { forward_drop: 0.7, resistance: 0.05 },
+    /// #     ControlParams::new(50e-6, 3200, 2.0));
+    /// let guard = Guard::new(&params, &GuardLimits::new(1.2, 1.4, 0.05))?;
+    /// // Before the reset (each period, or on a brown-out warning): keep the bytes.
+    /// let kept = guard.start_idle().thermal().to_bytes();
+    /// // After it: memory that was never written fails the check and starts hot.
+    /// let state = guard.start_after_reset_restored(ThermalSnapshot::from_bytes(&kept));
+    /// # let _ = state;
+    /// # Ok::<(), coilward::ConfigError>(())
+    /// ```
+    pub fn start_after_reset_restored(&self, saved: Option<ThermalSnapshot>) -> GuardState {
+        let (coil_heat, clamp_heat) = match saved {
+            Some(s) => (s.coil, s.clamp),
+            None => (
+                self.coil
+                    .as_ref()
+                    .map_or(CoilHeat::default(), CoilReplica::hot),
+                self.clamp
+                    .as_ref()
+                    .map_or(ClampHeat::default(), ClampReplica::hot),
+            ),
+        };
         GuardState {
             assumed: true,
+            coil_heat,
+            clamp_heat,
             ..self.start_with_current(Current::from_bits(self.worst_current))
         }
     }
@@ -983,9 +1034,10 @@ impl Guard {
                 pol.clamp_power,
             );
         }
-        // Winding image.
+        // Winding image, with hysteresis: once raised it clears only at the reset level.
         if let Some(c) = &self.coil
-            && c.tripped(&state.coil_heat)
+            && (c.tripped(&state.coil_heat)
+                || (prev.contains(Condition::CoilOverheat) && !c.cooled(&state.coil_heat)))
         {
             apply(
                 &mut active,

@@ -337,6 +337,8 @@ pub enum Field {
     CoilThermalAmbient,
     /// `coil_thermal.rise_at_basic`
     CoilThermalRiseAtBasic,
+    /// `coil_thermal.reset_level`
+    CoilThermalResetLevel,
     /// `hold.pull_in_current`
     HoldPullInCurrent,
     /// `hold.pull_in_time`
@@ -417,6 +419,7 @@ impl Field {
             Field::CoilThermalOverloadFactor => "coil_thermal.overload_factor",
             Field::CoilThermalAmbient => "coil_thermal.ambient",
             Field::CoilThermalRiseAtBasic => "coil_thermal.rise_at_basic",
+            Field::CoilThermalResetLevel => "coil_thermal.reset_level",
             Field::HoldPullInCurrent => "hold.pull_in_current",
             Field::HoldPullInTime => "hold.pull_in_time",
             Field::HoldCurrent => "hold.hold_current",

@@ -94,6 +94,9 @@ pub struct CoilThermal {
     pub ambient: f32,
     /// Steady winding rise at the basic current, K (1 ..= 400).
     pub rise_at_basic: f32,
+    /// The image below which `coil-overheat` clears (and a retry may switch on again), per unit
+    /// (0 ..= k²). Default 1.0: the winding back at its rated steady rise.
+    pub reset_level: f32,
 }
 
 impl CoilThermal {
@@ -112,7 +115,15 @@ impl CoilThermal {
             overload_factor,
             ambient,
             rise_at_basic,
+            reset_level: 1.0,
         }
+    }
+
+    /// The same image clearing `coil-overheat` only below `theta` (per unit).
+    #[must_use]
+    pub const fn with_reset_level(mut self, theta: f32) -> Self {
+        self.reset_level = theta;
+        self
     }
 }
 
@@ -134,6 +145,9 @@ pub struct ClampReplica {
     ambient: i64,
     ceiling_rise: i64,
     release_rise: i64,
+    /// The stages' rises with the device at its ceiling in the steady state (each stage's share
+    /// of the rise is its share of the thermal resistance): the state after a reset.
+    hot: [i64; 3],
 }
 
 /// Per-channel state of a [`ClampReplica`]: the rise of each stage.
@@ -179,7 +193,14 @@ impl ClampReplica {
         let t = f64::from(period);
         let unit = f64::from(energy_unit);
         let mut stages: [Option<Stage>; 3] = [None, None, None];
-        for (slot, st) in stages.iter_mut().zip(cfg.stages.iter()) {
+        let r_total: f64 = cfg
+            .stages
+            .iter()
+            .map(|st| f64::from(st.resistance).max(0.0))
+            .filter(|r| r.is_finite())
+            .sum();
+        let mut hot = [0i64; 3];
+        for ((slot, st), h) in stages.iter_mut().zip(cfg.stages.iter()).zip(hot.iter_mut()) {
             let r = f64::from(non_negative(
                 Field::ClampThermalStage,
                 st.resistance,
@@ -194,6 +215,7 @@ impl ClampReplica {
             if r == 0.0 {
                 continue;
             }
+            *h = crate::model::q32_signed((ceiling - ambient) * r / r_total);
             *slot = Some(Stage {
                 per_period: DecayTable::<1>::new(t / tau).eval(1),
                 event_rate: Gain::new(core::f64::consts::LOG2_E * 1e-6 / tau * 4_294_967_296.0),
@@ -206,7 +228,13 @@ impl ClampReplica {
             ambient: crate::model::q32_signed(ambient),
             ceiling_rise: crate::model::q32_signed(ceiling - ambient),
             release_rise: crate::model::q32_signed((ceiling - hyst - ambient).max(0.0)),
+            hot,
         })
+    }
+
+    /// The device at its ceiling, in the steady state: the conservative state after a reset.
+    pub fn hot(&self) -> ClampHeat {
+        ClampHeat { rise: self.hot }
     }
 
     /// Adds one control period in which `energy` was deposited.
@@ -254,6 +282,8 @@ impl ClampReplica {
 /// Validated winding thermal image (see the module documentation).
 #[derive(Debug, Clone, PartialEq)]
 pub struct CoilReplica {
+    /// Reset level of the image, Q32.32 per unit.
+    reset: u64,
     per_period: Decay,
     /// log2(e)/τ per µs (Q32.32 of the exponent per µs, in floating form).
     event_rate: Gain,
@@ -348,6 +378,11 @@ impl CoilReplica {
             c0: crate::model::q32((1.0 + alpha * (amb - t_ref)) / r_b),
             c1: crate::model::q32(alpha * rise / r_b),
             trip: crate::model::q32(k * k),
+            reset: crate::model::q32(f64::from(non_negative(
+                Field::CoilThermalResetLevel,
+                cfg.reset_level,
+                (k * k) as f32,
+            )?)),
             ambient: crate::model::q32_signed(amb),
             rise: crate::model::q32(rise),
         })
@@ -398,6 +433,16 @@ impl CoilReplica {
     /// Whether the image has reached the trip level k².
     pub fn tripped(&self, heat: &CoilHeat) -> bool {
         heat.theta >= self.trip
+    }
+
+    /// Whether the image is at or below the reset level (`coil-overheat` may clear).
+    pub fn cooled(&self, heat: &CoilHeat) -> bool {
+        heat.theta <= self.reset
+    }
+
+    /// The winding at its trip level: the conservative state after a reset.
+    pub fn hot(&self) -> CoilHeat {
+        CoilHeat { theta: self.trip }
     }
 
     /// Estimated winding temperature, °C: `T_amb + θ·ΔT_B`.
@@ -472,5 +517,71 @@ impl ClampAverage {
     /// Whether the average is above the limit.
     pub(crate) fn over(&self, avg: Energy) -> bool {
         avg > self.limit
+    }
+}
+
+/// The thermal images of one channel, to keep across a reset (in RAM the reset leaves alone):
+/// [`GuardState::thermal`](crate::GuardState::thermal) saves it,
+/// [`Guard::start_after_reset_restored`](crate::Guard::start_after_reset_restored) takes it
+/// back. As bytes it carries a check word, so memory that was never written (a power-on) is
+/// refused rather than read as a cool winding.
+///
+/// ```
+/// use coilward::thermal::ThermalSnapshot;
+/// let garbage = [0x5a_u8; ThermalSnapshot::BYTES];
+/// assert_eq!(ThermalSnapshot::from_bytes(&garbage), None);
+/// ```
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct ThermalSnapshot {
+    pub(crate) coil: CoilHeat,
+    pub(crate) clamp: ClampHeat,
+}
+
+impl ThermalSnapshot {
+    /// Size of [`to_bytes`](Self::to_bytes): the winding image, three clamp stages and a check
+    /// word, little-endian.
+    pub const BYTES: usize = 40;
+
+    /// The snapshot as bytes with a check word (FNV-1a of the first 32 bytes).
+    pub fn to_bytes(&self) -> [u8; Self::BYTES] {
+        let mut out = [0u8; Self::BYTES];
+        let words = [
+            self.coil.theta,
+            self.clamp.rise[0] as u64,
+            self.clamp.rise[1] as u64,
+            self.clamp.rise[2] as u64,
+        ];
+        for (chunk, w) in out.chunks_exact_mut(8).zip(words.iter()) {
+            chunk.copy_from_slice(&w.to_le_bytes());
+        }
+        let check = Self::check(&out);
+        if let Some(tail) = out.get_mut(32..40) {
+            tail.copy_from_slice(&check.to_le_bytes());
+        }
+        out
+    }
+
+    /// The snapshot from bytes, or `None` when the check word does not match.
+    pub fn from_bytes(bytes: &[u8; Self::BYTES]) -> Option<Self> {
+        let mut w = [0u64; 5];
+        for (slot, chunk) in w.iter_mut().zip(bytes.chunks_exact(8)) {
+            let mut b = [0u8; 8];
+            b.copy_from_slice(chunk);
+            *slot = u64::from_le_bytes(b);
+        }
+        (w[4] == Self::check(bytes)).then_some(Self {
+            coil: CoilHeat { theta: w[0] },
+            clamp: ClampHeat {
+                rise: [w[1] as i64, w[2] as i64, w[3] as i64],
+            },
+        })
+    }
+
+    /// FNV-1a over the first 32 bytes.
+    fn check(bytes: &[u8; Self::BYTES]) -> u64 {
+        bytes.iter().take(32).fold(0xcbf2_9ce4_8422_2325, |h, b| {
+            (h ^ u64::from(*b)).wrapping_mul(0x0000_0100_0000_01b3)
+        })
     }
 }
