@@ -144,6 +144,7 @@ struct RawGuard {
     coil_time_constant: Text,
     coil_basic_current: Text,
     coil_overload_factor: Option<Spanned<f64>>,
+    coil_reset_level: Option<Spanned<f64>>,
     coil_ambient: Text,
     coil_rise: Text,
 }
@@ -915,6 +916,7 @@ fn scenario_key(field: &str) -> &str {
         "coil_thermal.time_constant" => "guard.coil_time_constant",
         "coil_thermal.basic_current" => "guard.coil_basic_current",
         "coil_thermal.overload_factor" => "guard.coil_overload_factor",
+        "coil_thermal.reset_level" => "guard.coil_reset_level",
         "coil_thermal.ambient" => "guard.coil_ambient",
         "coil_thermal.rise_at_basic" => "guard.coil_rise",
         other => other,
@@ -1702,11 +1704,18 @@ fn coil_thermal(cx: &mut Cx, g: &RawGuard) -> Result<Option<CoilThermal>, Scenar
     let missing = |key: &str, cx: &Cx| {
         cx.error(key, None, "missing: the winding's thermal image needs coil_time_constant, coil_basic_current, coil_ambient and coil_rise (coil_overload_factor defaults to 1.05)")
     };
-    Ok(Some(CoilThermal::new(
-        tau.ok_or_else(|| missing("guard.coil_time_constant", cx))? as f32,
-        basic.ok_or_else(|| missing("guard.coil_basic_current", cx))? as f32,
-        k.unwrap_or(1.05) as f32,
-        ambient.ok_or_else(|| missing("guard.coil_ambient", cx))? as f32,
-        rise.ok_or_else(|| missing("guard.coil_rise", cx))? as f32,
-    )))
+    let reset = g.coil_reset_level.as_ref().map(|s| {
+        cx.spans.insert("guard.coil_reset_level".into(), s.span());
+        *s.get_ref()
+    });
+    Ok(Some(
+        CoilThermal::new(
+            tau.ok_or_else(|| missing("guard.coil_time_constant", cx))? as f32,
+            basic.ok_or_else(|| missing("guard.coil_basic_current", cx))? as f32,
+            k.unwrap_or(1.05) as f32,
+            ambient.ok_or_else(|| missing("guard.coil_ambient", cx))? as f32,
+            rise.ok_or_else(|| missing("guard.coil_rise", cx))? as f32,
+        )
+        .with_reset_level(reset.unwrap_or(1.0) as f32),
+    ))
 }
