@@ -50,8 +50,10 @@ fn main() -> ! {
     let m = guard.model();
     let vs = Volts::from_num(24);
 
-    // Estimator step in steady PWM at 85 % (about 0.93 A, continuous conduction).
-    let typical = 2720;
+    // Estimator step in steady PWM at 65 % (about 0.85 A, continuous conduction; low enough
+    // that the guard's bound over the trace's declared tolerance stays under the 1.1 A ceiling,
+    // so "tick" is a tick that does not limit).
+    let typical = 2080;
     let mut coil = coilward::CoilState::idle();
     for _ in 0..2000 {
         m.step(&mut coil, typical, vs);
