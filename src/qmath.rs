@@ -57,26 +57,11 @@ impl<const D: usize> DecayTable<D> {
         let mut s = [0u32; D];
         let mut digit_unit = unit_over_tau;
         for d in 0..D {
-            let top = one_minus_exp_neg(16.0 * digit_unit);
-            // Largest s with top·2^s < 1; s stays in 0..=62 for every validated parameter set.
-            let mut sd: i32 = if top >= 1.0 || top <= 0.0 {
-                0
-            } else {
-                libm::floor(-libm::log2(top)) as i32
-            };
-            while sd > 0 && top * libm::exp2(f64::from(sd)) >= 1.0 {
-                sd -= 1;
-            }
-            let sd = sd.clamp(0, 62);
-            s[d] = sd as u32;
+            let sd = scale_below_one(one_minus_exp_neg(16.0 * digit_unit));
+            s[d] = sd;
             let scale = libm::exp2(32.0 + f64::from(sd));
             for (j, slot) in m[d].iter_mut().enumerate().skip(1) {
-                let v = libm::round(one_minus_exp_neg(j as f64 * digit_unit) * scale);
-                *slot = if v >= 4_294_967_295.0 {
-                    u32::MAX
-                } else {
-                    v as u32
-                };
+                *slot = mantissa(one_minus_exp_neg(j as f64 * digit_unit) * scale);
             }
             digit_unit *= 16.0;
         }
@@ -104,17 +89,47 @@ impl<const D: usize> DecayTable<D> {
                 started = true;
                 continue;
             }
-            // sd >= s: lower digits have smaller values, larger scales.
-            let aligned = e.checked_shr(sd.saturating_sub(s)).unwrap_or(0);
-            // E_acc·E_d in scale s: acc·e·2^−(32+sd).
-            let prod = (u64::from(acc) * u64::from(e))
-                .checked_shr(32 + sd)
-                .unwrap_or(0);
-            let sum = u64::from(acc) + u64::from(aligned) - prod.min(u64::from(acc));
-            acc = sum.min(u64::from(u32::MAX)) as u32;
+            acc = compose(acc, s, e, sd);
         }
         Decay { m: acc, s }
     }
+}
+
+/// The largest `s` in `0 ..= 62` with `top·2^s < 1`: the scale of a table digit whose values stay
+/// below `top` (configuration only).
+fn scale_below_one(top: f64) -> u32 {
+    let mut sd: i32 = if top >= 1.0 || top <= 0.0 {
+        0
+    } else {
+        libm::floor(-libm::log2(top)) as i32
+    };
+    while sd > 0 && top * libm::exp2(f64::from(sd)) >= 1.0 {
+        sd -= 1;
+    }
+    sd.clamp(0, 62) as u32
+}
+
+/// `v` rounded to the nearest u32, saturating (configuration only; `v >= 0`).
+fn mantissa(v: f64) -> u32 {
+    let v = libm::round(v);
+    if v >= 4_294_967_295.0 {
+        u32::MAX
+    } else {
+        v as u32
+    }
+}
+
+/// One composition `E(a+b) = E(a) + E(b) − E(a)·E(b)` of a table entry `e` (scale `sd`) into the
+/// accumulated `acc` (scale `s`, `sd >= s`: lower digits have smaller values, larger scales).
+#[inline(always)]
+fn compose(acc: u32, s: u32, e: u32, sd: u32) -> u32 {
+    let aligned = e.checked_shr(sd.saturating_sub(s)).unwrap_or(0);
+    // E_acc·E_d in scale s: acc·e·2^−(32+sd).
+    let prod = (u64::from(acc) * u64::from(e))
+        .checked_shr(32 + sd)
+        .unwrap_or(0);
+    let sum = u64::from(acc) + u64::from(aligned) - prod.min(u64::from(acc));
+    sum.min(u64::from(u32::MAX)) as u32
 }
 
 /// `E(2^d·u)` for `d = 0 ..= 31`, one entry per bit of a 32-bit length: the event tables
@@ -135,23 +150,9 @@ impl BitTable {
         let mut s = [0u8; 32];
         let mut x = unit_over_tau;
         for d in 0..32 {
-            let top = one_minus_exp_neg(2.0 * x);
-            let mut sd: i32 = if top >= 1.0 || top <= 0.0 {
-                0
-            } else {
-                libm::floor(-libm::log2(top)) as i32
-            };
-            while sd > 0 && top * libm::exp2(f64::from(sd)) >= 1.0 {
-                sd -= 1;
-            }
-            let sd = sd.clamp(0, 62);
-            s[d] = sd as u8;
-            let v = libm::round(one_minus_exp_neg(x) * libm::exp2(32.0 + f64::from(sd)));
-            m[d] = if v >= 4_294_967_295.0 {
-                u32::MAX
-            } else {
-                v as u32
-            };
+            let sd = scale_below_one(one_minus_exp_neg(2.0 * x));
+            s[d] = sd as u8; // <= 62
+            m[d] = mantissa(one_minus_exp_neg(x) * libm::exp2(32.0 + f64::from(sd)));
             x *= 2.0;
         }
         Self { m, s }
@@ -175,12 +176,7 @@ impl BitTable {
                 started = true;
                 continue;
             }
-            let aligned = e.checked_shr(sd.saturating_sub(s)).unwrap_or(0);
-            let prod = (u64::from(acc) * u64::from(e))
-                .checked_shr(32 + sd)
-                .unwrap_or(0);
-            let sum = u64::from(acc) + u64::from(aligned) - prod.min(u64::from(acc));
-            acc = sum.min(u64::from(u32::MAX)) as u32;
+            acc = compose(acc, s, e, sd);
         }
         Decay { m: acc, s }
     }
