@@ -409,6 +409,25 @@ fn check(file: &Path) -> Result<ExitCode, ExitCode> {
             );
         }
     }
+    print_tolerance_and_clamp_power(&s);
+    if !s.tolerance.is_empty() {
+        println!("\n  tolerance spreads (for sweep):");
+        for (k, sp) in &s.tolerance {
+            let (lo, hi) = sp.bounds(s.plant.get(*k));
+            println!(
+                "  {:<20} {} ..= {}",
+                k.name(),
+                si(lo, k.unit().symbol(), 4),
+                si(hi, k.unit().symbol(), 4)
+            );
+        }
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+/// `check`'s lines on the tolerance the guard covers and the drive's worst average clamp power
+/// (from a simulated run).
+fn print_tolerance_and_clamp_power(s: &Scenario) {
     let t = s.limits.tolerance;
     println!(
         "\n  declared tolerance the guard covers: inductance ±{:.1} %, resistance ±{:.1} %, \
@@ -426,7 +445,7 @@ fn check(file: &Path) -> Result<ExitCode, ExitCode> {
             t.saturated_inductance * 100.0
         );
     }
-    let run = cosim::run(&s, Options { rows: true });
+    let run = cosim::run(s, Options { rows: true });
     let p = s
         .limits
         .clamp_power
@@ -442,19 +461,6 @@ fn check(file: &Path) -> Result<ExitCode, ExitCode> {
         si(worst, "W", 3),
         si(f64::from(p.window), "s", 3)
     );
-    if !s.tolerance.is_empty() {
-        println!("\n  tolerance spreads (for sweep):");
-        for (k, sp) in &s.tolerance {
-            let (lo, hi) = sp.bounds(s.plant.get(*k));
-            println!(
-                "  {:<20} {} ..= {}",
-                k.name(),
-                si(lo, k.unit().symbol(), 4),
-                si(hi, k.unit().symbol(), 4)
-            );
-        }
-    }
-    Ok(ExitCode::SUCCESS)
 }
 
 fn sweep_cmd(
