@@ -259,6 +259,12 @@ pub struct Output {
     pub bound: Current,
     /// While `release-hold` is active: the remaining time, µs (`None`: it will not decay).
     pub release_in_us: Option<u32>,
+    /// Event mode with the output on: call [`Guard::event`] again within this many µs, the
+    /// earlier of the time the current could reach the ceiling and the time the winding image
+    /// could reach its trip at the highest current the box allows (`None`: neither will, or
+    /// PWM). The event-mode timing contract: the guard learns of an overload only when it is
+    /// called, so the firmware schedules its next call by this.
+    pub next_check_us: Option<u32>,
 }
 
 /// Per-channel state of the guard.
@@ -486,21 +492,24 @@ impl Guard {
                 d.energy_unit,
             )?),
         };
+        // The slowest decay of the box (the fall corner), or the ring's envelope, for the
+        // winding image's off-events.
+        let fall = f64::from(bound.fall.derived().tau_off);
+        let decay_tau = if bound.has_ring() { 2.0 * fall } else { fall };
         let (coil, stale_per_kelvin) = match &limits.coil_thermal {
             Some(c) => {
                 let alpha = f64::from(params.coil.temperature_coefficient);
                 let t_ref = f64::from(params.coil.reference_temperature);
                 let bound = alpha / (1.0 + alpha * (f64::from(c.ambient) - t_ref)).max(1e-3);
-                (
-                    Some(CoilReplica::new(
-                        c,
-                        d.period,
-                        d.full_scale,
-                        params.coil.reference_temperature,
-                        params.coil.temperature_coefficient,
-                    )?),
-                    crate::model::q32(bound),
-                )
+                let mut replica = CoilReplica::new(
+                    c,
+                    d.period,
+                    d.full_scale,
+                    params.coil.reference_temperature,
+                    params.coil.temperature_coefficient,
+                )?;
+                replica.set_decay(decay_tau);
+                (Some(replica), crate::model::q32(bound))
             }
             None => (None, 0),
         };
@@ -875,8 +884,15 @@ impl Guard {
     /// wrapping difference of two free-running timer readings); `request_on` is wanted from now.
     ///
     /// In event mode the ceiling cannot shorten an on-time that has already started, so a turn-on
-    /// is refused (`current-limit`) when the estimate is at or above the ceiling, and
-    /// [`Guard::on_time_to_ceiling_us`] tells when to schedule the next event.
+    /// is refused (`current-limit`) when the bound is at or above the ceiling.
+    ///
+    /// # Timing contract
+    /// The guard sees the load only when it is called. With the output on, call again within
+    /// [`Output::next_check_us`]: the earlier of the time the current could reach the ceiling
+    /// and the time the winding image could reach its trip. Called that way, a load left on
+    /// trips at the thermal image's time whatever the spacing of the real events. An on-event is
+    /// heated at its peak current and an off-event cools exponentially (with the decay's own
+    /// small heating), so the image never runs cool.
     pub fn event(
         &self,
         state: &mut GuardState,
@@ -911,12 +927,15 @@ impl Guard {
             state.clamp_power = w.event(state.clamp_power, energy, elapsed_us);
         }
         if let Some(c) = &self.coil {
-            c.event(
-                &mut state.coil_heat,
-                Current::from_bits(b_peak),
-                Current::from_bits(b_start.min(b_end)),
-                elapsed_us,
-            );
+            if was_on {
+                c.event_on(&mut state.coil_heat, Current::from_bits(b_peak), elapsed_us);
+            } else {
+                c.event_off(
+                    &mut state.coil_heat,
+                    Current::from_bits(b_start),
+                    elapsed_us,
+                );
+            }
         }
         state.cooldown_us = state.cooldown_us.saturating_sub(elapsed_us);
         let request = if request_on { m.duty_full } else { 0 };
@@ -944,6 +963,21 @@ impl Guard {
         };
         let t = crate::clamp::time_q64(ln, tau) >> 64;
         Some(t.min(u128::from(u32::MAX)) as u32)
+    }
+
+    /// The earlier of the time to the ceiling and the winding image's time to trip, with the
+    /// output on at the high supply `vh` (event mode).
+    fn next_check_us(&self, state: &GuardState, vh: Volts) -> Option<u32> {
+        let r = &self.bound.rise;
+        let ceiling = self.on_time_to_ceiling_us(state, vh);
+        let heat = self.coil.as_ref().and_then(|c| {
+            let top = Current::from_bits(r.on_asymptote(r.supply(vh)).max(0));
+            c.time_to_trip_us(&state.coil_heat, top)
+        });
+        match (ceiling, heat) {
+            (Some(a), Some(b)) => Some(a.min(b)),
+            (a, b) => a.or(b),
+        }
     }
 
     /// Conditions, actions and the duty for the coming period.
@@ -1164,6 +1198,11 @@ impl Guard {
             estimate: est,
             predicted_peak: Current::from_bits(predicted),
             bound: state.bound(),
+            next_check_us: if !pwm && duty > 0 {
+                self.next_check_us(state, Volts::from_bits(vh))
+            } else {
+                None
+            },
             release_in_us: release_in,
         }
     }

@@ -284,6 +284,12 @@ impl ClampReplica {
 pub struct CoilReplica {
     /// Reset level of the image, Q32.32 per unit.
     reset: u64,
+    /// τ in µs, Q32.32 (for the time to trip).
+    tau_us: u64,
+    /// `τ_d/(2·τ)`, Q0.32: the heating of a decay from `i0` with time constant `τ_d` at most,
+    /// as a share of `i0²` held for τ (set by the guard from its fall corner; 1 until then,
+    /// which holds for any decay no slower than 2τ).
+    decay_share: u64,
     per_period: Decay,
     /// log2(e)/τ per µs (Q32.32 of the exponent per µs, in floating form).
     event_rate: Gain,
@@ -371,6 +377,8 @@ impl CoilReplica {
         let r_b = 1.0 + alpha * (amb + rise - t_ref);
         let fs = f64::from(full_scale);
         Ok(Self {
+            tau_us: crate::model::q32(tau * 1e6),
+            decay_share: 1 << 32,
             per_period: DecayTable::<1>::new(f64::from(period) / tau).eval(1),
             event_rate: Gain::new(core::f64::consts::LOG2_E * 1e-6 / tau * 4_294_967_296.0),
             // 3 × mean square in Q40 (FS²·2^40) → θ Q32: ·(FS/I_B)²·2^−8/3.
@@ -428,6 +436,53 @@ impl CoilReplica {
             q - mul_exp2_neg(q - th, y)
         };
         heat.theta = next.max(0) as u64;
+    }
+
+    /// Sets the time constant of the slowest decay the coil's current can follow with the
+    /// switch off (s), for [`CoilReplica::event_off`].
+    pub(crate) fn set_decay(&mut self, tau_decay: f64) {
+        let tau = self.tau_us as f64 / 4_294_967_296.0 * 1e-6;
+        self.decay_share = crate::model::q32((tau_decay / (2.0 * tau)).min(1.0));
+    }
+
+    /// An on-event of `micros` µs whose current never exceeded `peak`: heated at `peak²` for the
+    /// whole event, `θ' = q + (θ − q)·e^(−t/τ)`. An upper bound of the exact answer, and close
+    /// to it for any event much longer than the coil's own time constant (the current sits at
+    /// its peak for nearly all of it). Exact for a current held constant: the IEC 60255-149
+    /// trip times hold whatever the event spacing.
+    pub fn event_on(&self, heat: &mut CoilHeat, peak: Current, micros: u32) {
+        self.event(heat, peak, peak, micros);
+    }
+
+    /// An off-event of `micros` µs from the current `start`: the image cools as
+    /// `θ·e^(−t/τ)` and the decaying current adds at most `(i0/I_B)²·τ_d/(2τ)` (its `∫i²dt` is
+    /// at most `i0²·τ_d/2` for a decay toward zero or below with time constant `τ_d`), added
+    /// at the end, which bounds the exact answer from above.
+    pub fn event_off(&self, heat: &mut CoilHeat, start: Current, micros: u32) {
+        let q = self.target(*heat, start, start);
+        let y = self.event_rate.apply(micros);
+        let kept = mul_exp2_neg(heat.theta.min(1 << 62) as i64, y).max(0) as u64;
+        heat.theta = kept
+            .saturating_add(mul_q32(q, self.decay_share))
+            .min(1 << 62);
+    }
+
+    /// Time until the image could reach its trip level with the current held at `current`
+    /// (rounded down, µs): `τ·ln((q − θ)/(q − k²))`; `Some(0)` once tripped, `None` when it
+    /// never will at that current.
+    pub fn time_to_trip_us(&self, heat: &CoilHeat, current: Current) -> Option<u32> {
+        if heat.theta >= self.trip {
+            return Some(0);
+        }
+        // The target at the trip level's resistance, the highest it reaches before the trip.
+        let at_trip = CoilHeat { theta: self.trip };
+        let q = self.target(at_trip, current, current);
+        if q <= self.trip {
+            return None;
+        }
+        let ln = crate::qmath::ln_ratio(q - heat.theta, q - self.trip);
+        let t = crate::clamp::time_q64(ln, self.tau_us) >> 64;
+        Some(t.min(u128::from(u32::MAX)) as u32)
     }
 
     /// Whether the image has reached the trip level k².

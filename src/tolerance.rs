@@ -575,6 +575,11 @@ impl Bound {
         u32::try_from((t >> 64) + 1).ok()
     }
 
+    /// Whether the ring's envelope is carried (nothing across the switch, a node capacitance).
+    pub(crate) const fn has_ring(&self) -> bool {
+        self.ring.is_some()
+    }
+
     /// The ring floor (raw), zero without a node capacitance.
     pub(crate) fn ring(&self) -> i64 {
         self.node.as_ref().map_or(0, |n| n.ring)

@@ -305,3 +305,67 @@ fn a_reset_loop_cannot_extend_an_overload() {
         Some(kept)
     );
 }
+
+#[test]
+fn a_relay_left_on_trips_at_the_iec_time_whatever_the_event_spacing() {
+    // Event mode: the load is switched on once and left on; the firmware calls again at its
+    // chosen spacing or sooner when `next_check_us` says so. At 1.5 × the basic current the
+    // IEC 60255-149 cold trip time is τ·ln(I²/(I² − k²)) = 60·ln(2.25/1.1475) = 40.40 s
+    // (computed; shared/REFERENCES.md §7). Before the per-event heating was fixed, an on-event
+    // from rest was heated at a third of I² and this relay never tripped.
+    let mut p = common::valve();
+    p.coil.temperature_coefficient = 0.0;
+    let mut l = coilward::GuardLimits::new(1.45, 1.5, 0.05);
+    l.coil_thermal = Some(CoilThermal::new(60.0, 24.0 / 18.1 / 1.5, 1.05, 20.0, 60.0));
+    let g = coilward::Guard::new(&p, &l).expect("valid guard");
+    let vs = coilward::Volts::from_num(24);
+    let want = 60.0 * (2.25f64 / 1.1475).ln();
+    for spacing_s in [0.5, 5.0, 30.0, 600.0] {
+        let mut s = g.start_idle();
+        let mut out = g.event(&mut s, true, 0, vs);
+        let mut t = 0.0;
+        let mut calls = 0;
+        while !out.active.contains(coilward::Condition::CoilOverheat) {
+            let step = out
+                .next_check_us
+                .map_or(spacing_s, |us| (f64::from(us.max(1)) * 1e-6).min(spacing_s));
+            out = g.event(&mut s, true, (step * 1e6) as u32, vs);
+            t += step;
+            calls += 1;
+            assert!(t < 1000.0 && calls < 100_000, "no trip");
+        }
+        let err = (t - want).abs() / want;
+        eprintln!(
+            "CHECK relay left on at 1.5 x I_B, events at most {spacing_s} s apart: trips at \
+             {t:.3} s after {calls} calls, IEC {want:.3} s ({:.3} %)",
+            err * 100.0
+        );
+        assert!(err < 0.02, "{t} vs {want}");
+    }
+}
+
+#[test]
+fn an_off_event_cools_by_the_exponential() {
+    // A winding at θ = 1.0 switched off for τ·ln 2: the image is θ0·e^(−t/τ) = 0.5 (§7), plus at
+    // most (i0/I_B)²·τ_d/(2τ) for the current's own decay (τ_d = the slowest decay the guard
+    // allows, here L/(R + R_p) = 40 mH/18.05 Ω = 2.2 ms). Before, an off-event was heated at
+    // the ramp's mean square and read about three quarters hot.
+    let mut p = common::valve();
+    p.coil.temperature_coefficient = 0.0;
+    let mut l = coilward::GuardLimits::new(1.45, 1.5, 0.05);
+    l.coil_thermal = Some(CoilThermal::new(60.0, 1.0, 1.05, 20.0, 60.0));
+    let g = coilward::Guard::new(&p, &l).expect("valid guard");
+    let vs = coilward::Volts::from_num(24);
+    let mut s = g
+        .start_with_current(g.model().current_from_amps(1.0).unwrap())
+        .with_coil_heat(CoilHeat::with_image(1.0));
+    let t_us = (60.0 * core::f64::consts::LN_2 * 1e6) as u32;
+    g.event(&mut s, false, t_us, vs);
+    let theta = s.coil_heat().image().to_num::<f64>();
+    let impulse = 1.0 * (0.040 / 18.05) / (2.0 * 60.0);
+    eprintln!("CHECK off-event of τ·ln 2 from θ = 1: θ = {theta:.6} (0.5 + at most {impulse:.2e})");
+    assert!(
+        theta >= 0.5 - 1e-6 && theta <= 0.5 + impulse * 1.01 + 1e-6,
+        "{theta}"
+    );
+}
