@@ -4,8 +4,11 @@
 //!
 //! Hold currents of 30–50 % of the pull-in current are usual (common practice, no single
 //! source). The hold duty comes from the model's exact PWM steady state
-//! ([`Model::steady_state`]), which divides: it is recomputed only when the supply moves by more
-//! than 1/256 of itself, so most periods cost one comparison.
+//! ([`Model::steady_state`]), which divides: it is planned for the lower edge of a band of 1/128
+//! of the supply and recomputed only when the supply leaves that band, so most periods cost a
+//! comparison. The steady mean rises with the supply at a fixed duty, so planning at the band's
+//! lower edge keeps the mean at or above the hold current anywhere in the band: a slowly
+//! sagging supply never takes it below.
 
 use crate::model::Model;
 use crate::params::{ConfigError, Field, positive};
@@ -26,6 +29,7 @@ pub struct PullInHold {
 pub struct HoldPhase {
     periods: u32,
     holding: bool,
+    /// The supply the cached duty was planned for: the lower edge of its band.
     cached_supply: u32,
     cached_duty: u32,
 }
@@ -83,10 +87,14 @@ impl PullInHold {
             phase.holding = true;
         }
         let vs = supply.to_bits();
-        let moved = vs.abs_diff(phase.cached_supply) > phase.cached_supply >> 8;
-        if phase.cached_duty == 0 || moved {
-            phase.cached_duty = self.hold_duty(model, supply);
-            phase.cached_supply = vs;
+        let edge = phase.cached_supply;
+        // Inside the band [edge, edge + edge/128] the cached duty holds at least the hold
+        // current; below it, it may not; above it, it holds more than needed.
+        let outside = vs < edge || vs - edge > edge >> 7;
+        if phase.cached_duty == 0 || outside {
+            let planned = vs - (vs >> 8);
+            phase.cached_duty = self.hold_duty(model, Volts::from_bits(planned));
+            phase.cached_supply = planned;
         }
         phase.cached_duty
     }
