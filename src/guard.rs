@@ -311,6 +311,17 @@ impl GuardState {
         Current::from_bits(self.bound_bits())
     }
 
+    /// Slice `j`'s bound at the start of a period of duty `n` (raw): a turn-on meets a ringing
+    /// current at most at its envelope.
+    fn slice_start(&self, j: usize, n: u32) -> i64 {
+        let b0 = self.bound.get(j).map_or(0, |c| c.current().working_bits());
+        if n > 0 {
+            b0.max(self.envelope.current().working_bits())
+        } else {
+            b0
+        }
+    }
+
     /// The largest slice bound, or the ring's envelope if larger, raw.
     fn bound_bits(&self) -> i64 {
         self.bound
@@ -395,6 +406,22 @@ fn amps_to_raw(model: &Model, field: Field, amps: f32) -> Result<i64, ConfigErro
     })
 }
 
+/// The largest current whose turn-off through `fall` (the bound's fall corner) at the supply
+/// `v_max` stays within the pulse `rating` (the energy grows with current and with supply), by
+/// bisection; configuration only.
+fn pulse_ceiling(fall: &Model, rating: Energy, v_max: Volts) -> i64 {
+    let (mut lo, mut hi) = (0i64, Current::LIMIT.to_bits());
+    while hi - lo > 1 {
+        let mid = lo + (hi - lo) / 2;
+        if fall.turn_off_energy(Current::from_bits(mid), v_max) <= rating {
+            lo = mid;
+        } else {
+            hi = mid;
+        }
+    }
+    lo
+}
+
 /// A guard's current limit (A, positive, 10⁻⁶ ..= 2²¹ full scale) as raw current, through the
 /// model's own conversion `to_current`. Shared by the low-side and the bridge guard.
 pub(crate) fn limit_current(
@@ -460,22 +487,10 @@ impl Guard {
                         max: 1e6,
                     },
                 ))?;
-                // Largest current whose turn-off at the maximum supply stays within the rating
-                // (the energy grows with current and with supply), by bisection.
-                let (mut lo, mut hi) = (0i64, Current::LIMIT.to_bits());
-                while hi - lo > 1 {
-                    let mid = lo + (hi - lo) / 2;
-                    if bound
-                        .fall
-                        .turn_off_energy(Current::from_bits(mid), v_max_hi)
-                        <= rating
-                    {
-                        lo = mid;
-                    } else {
-                        hi = mid;
-                    }
-                }
-                (Some(rating), ceiling.min(lo))
+                (
+                    Some(rating),
+                    ceiling.min(pulse_ceiling(&bound.fall, rating, v_max_hi)),
+                )
             }
             None => (None, ceiling),
         };
@@ -705,11 +720,6 @@ impl Guard {
         crate::qmath::mul_q32(i.max(0) as u64, f).min(Current::LIMIT.to_bits() as u64) as i64
     }
 
-    /// Whether the off-segment energy has a consumer (the pulse rating or the clamp replica).
-    fn uses_clamp_energy(&self) -> bool {
-        self.pulse_rating.is_some() || self.clamp.is_some() || self.power.is_some()
-    }
-
     /// Whether duty `n` keeps every slice's bound at or below the ceiling in the coming period
     /// and in one more at the same duty. The look-ahead makes limiting settle at the duty that
     /// holds the ceiling, instead of alternating full periods with nearly empty ones. Monotone
@@ -718,11 +728,8 @@ impl Guard {
         let full = self.model.duty_full;
         let b = &self.bound;
         let opened = n < full && (n > 0 || state.on_at_end);
-        let e = state.envelope.current().working_bits();
         (0..b.used()).all(|j| {
-            let b0 = state.bound.get(j).map_or(0, |c| c.current().working_bits());
-            // A turn-on meets a ringing current at most at its envelope.
-            let b0 = if n > 0 { b0.max(e) } else { b0 };
+            let b0 = state.slice_start(j, n);
             let b1 = b.on_slice(j, b0, n, vh);
             if Self::raised(b1.max(b0), f) > self.ceiling {
                 return false;
@@ -733,12 +740,37 @@ impl Guard {
         })
     }
 
+    /// The requested `duty`, or the largest one below it that holds the bound under the ceiling
+    /// (`holds` is monotone in n). Steady limiting lands next to the last duty, so that is tried
+    /// first: the same answer as the bisection, in two evaluations instead of twelve.
+    fn limit(&self, state: &GuardState, duty: u32, vh: u32, f: u64) -> u32 {
+        let holds = |n| self.holds(state, n, vh, f);
+        if holds(duty) {
+            return duty;
+        }
+        let last = state.applied;
+        if last > 0 && last < duty && holds(last) && !holds(last + 1) {
+            return last;
+        }
+        if last > 1 && last <= duty && holds(last - 1) && !holds(last) {
+            return last - 1;
+        }
+        let (mut lo, mut hi) = (0u32, duty);
+        while hi - lo > 1 {
+            let mid = lo + (hi - lo) / 2;
+            if holds(mid) {
+                lo = mid;
+            } else {
+                hi = mid;
+            }
+        }
+        if holds(lo) { lo } else { 0 }
+    }
+
     /// The bound's peak in the coming period at duty `n` (raw).
     fn peak_at(&self, state: &GuardState, n: u32, vh: u32) -> i64 {
-        let e = state.envelope.current().working_bits();
         (0..self.bound.used()).fold(0, |m, j| {
-            let b0 = state.bound.get(j).map_or(0, |c| c.current().working_bits());
-            let b0 = if n > 0 { b0.max(e) } else { b0 };
+            let b0 = state.slice_start(j, n);
             m.max(self.bound.on_slice(j, b0, n, vh).max(b0))
         })
     }
@@ -753,14 +785,14 @@ impl Guard {
         let (mut peak, mut end) = (0, 0);
         let e0 = state.envelope.current().working_bits();
         let mut opened_at = 0;
-        for (j, slot) in state.bound.iter_mut().enumerate().take(b.used()) {
-            let b0 = slot.current().working_bits();
-            // A turn-on meets a ringing current at most at its envelope.
-            let b0 = if n > 0 { b0.max(e0) } else { b0 };
+        for j in 0..b.used() {
+            let b0 = state.slice_start(j, n);
             let b1 = b.on_slice(j, b0, n, vh);
             opened_at = opened_at.max(b1);
             let (off_peak, b2) = b.off_slice(j, b1, full - n, vh, opened);
-            *slot = CoilState::with_current(Current::from_bits(b2));
+            if let Some(slot) = state.bound.get_mut(j) {
+                *slot = CoilState::with_current(Current::from_bits(b2));
+            }
             peak = peak.max(b0).max(b1).max(off_peak);
             end = end.max(b2);
         }
@@ -845,9 +877,9 @@ impl Guard {
         let b_start = state.bound_bits();
         let (b_peak, b_end) = self.advance_period(state, was, vh);
         // 2. Replicas, fed by the bound. Off-segment energy: the whole turn-off once the bound
-        // has decayed to its floor, else the chord bound. Only worth computing when a pulse
-        // rating or a clamp replica will use it.
-        let energy = if was >= n_full || !self.uses_clamp_energy() {
+        // has decayed to its floor, else the chord bound. It always has a consumer: the clamp
+        // replica, or else the average-power watch.
+        let energy = if was >= n_full {
             Energy::ZERO
         } else {
             let f = &self.bound.fall;
@@ -907,7 +939,7 @@ impl Guard {
         let vh = self.bound.supply_hi(vs);
         let b_start = state.bound_bits();
         let (b_peak, b_end) = self.advance_event(state, was_on, elapsed_us, vh);
-        let energy = if was_on || !self.uses_clamp_energy() {
+        let energy = if was_on {
             Energy::ZERO
         } else {
             let f = &self.bound.fall;
@@ -1132,28 +1164,9 @@ impl Guard {
         let mut predicted = i0;
         if duty > 0 {
             if pwm {
-                let holds = |n| self.holds(state, n, vh, f);
-                if !holds(duty) {
-                    // Largest n that holds the bound under the ceiling (`holds` is monotone in
-                    // n). Steady limiting lands next to the last duty, so that is tried first
-                    // (the same answer as the bisection, in two evaluations instead of twelve).
-                    let last = state.applied;
-                    duty = if last > 0 && last < duty && holds(last) && !holds(last + 1) {
-                        last
-                    } else if last > 1 && last <= duty && holds(last - 1) && !holds(last) {
-                        last - 1
-                    } else {
-                        let (mut lo, mut hi) = (0u32, duty);
-                        while hi - lo > 1 {
-                            let mid = lo + (hi - lo) / 2;
-                            if holds(mid) {
-                                lo = mid;
-                            } else {
-                                hi = mid;
-                            }
-                        }
-                        if holds(lo) { lo } else { 0 }
-                    };
+                let limited = self.limit(state, duty, vh, f);
+                if limited != duty {
+                    duty = limited;
                     active.insert(Condition::CurrentLimit);
                 }
             } else if i_now >= self.ceiling {
