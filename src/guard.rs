@@ -511,6 +511,13 @@ impl Guard {
         // winding image's off-events.
         let fall = f64::from(bound.fall.derived().tau_off);
         let decay_tau = if bound.has_ring() { 2.0 * fall } else { fall };
+        // The fastest rise of the box, for its on-events: the rise corner, saturated where it
+        // saturates.
+        let tau_on = f64::from(bound.rise.derived().tau_on);
+        let tau_rise = match &bound.rise.saturation {
+            Some(sat) => (sat.tau_us as f64 / 4_294_967_296.0 * 1e-6).min(tau_on),
+            None => tau_on,
+        };
         let (coil, stale_per_kelvin) = match &limits.coil_thermal {
             Some(c) => {
                 let alpha = f64::from(params.coil.temperature_coefficient);
@@ -524,6 +531,7 @@ impl Guard {
                     params.coil.temperature_coefficient,
                 )?;
                 replica.set_decay(decay_tau);
+                replica.set_rise(tau_rise);
                 (Some(replica), crate::model::q32(bound))
             }
             None => (None, 0),
@@ -923,8 +931,9 @@ impl Guard {
     /// [`Output::next_check_us`]: the earlier of the time the current could reach the ceiling
     /// and the time the winding image could reach its trip. Called that way, a load left on
     /// trips at the thermal image's time whatever the spacing of the real events. An on-event is
-    /// heated at its peak current and an off-event cools exponentially (with the decay's own
-    /// small heating), so the image never runs cool.
+    /// heated by the closed-form `∫i²` of the exponential that bounds its current from above
+    /// and an off-event cools exponentially (with the decay's own small heating), so the image
+    /// never runs cool.
     pub fn event(
         &self,
         state: &mut GuardState,
@@ -960,7 +969,13 @@ impl Guard {
         }
         if let Some(c) = &self.coil {
             if was_on {
-                c.event_on(&mut state.coil_heat, Current::from_bits(b_peak), elapsed_us);
+                let top = self.bound.rise.on_asymptote(vh);
+                c.event_on(
+                    &mut state.coil_heat,
+                    Current::from_bits(b_start),
+                    Current::from_bits(top),
+                    elapsed_us,
+                );
             } else {
                 c.event_off(
                     &mut state.coil_heat,

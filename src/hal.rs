@@ -82,17 +82,67 @@ impl<'g, P: SetDutyCycle> GuardedPwm<'g, P> {
 }
 
 /// A gate pin (high = switch on) whose state is always the guard's decision.
+///
+/// # Timing contract (event mode)
+/// Call [`GuardedSwitch::update`] on every change of the request, with the µs since the previous
+/// call. While the pin is high, call [`GuardedSwitch::check`] again no later than
+/// [`GuardedSwitch::next_check_us`] after the last call (a one-shot timer is enough): that is
+/// when the current could reach the ceiling or the winding image its trip level. Calls in
+/// between (a housekeeping poll) are welcome and never needed for soundness.
+///
+/// ```
+/// # use coilward::{ClampPath, CoilParams, ControlParams, Guard, GuardLimits, GuardedSwitch,
+/// #                Params, SupplyParams, SwitchParams, Volts};
+/// # use embedded_hal::digital::{ErrorType, OutputPin};
+/// # struct Gate;
+/// # impl ErrorType for Gate { type Error = core::convert::Infallible; }
+/// # impl OutputPin for Gate {
+/// #     fn set_low(&mut self) -> Result<(), Self::Error> { Ok(()) }
+/// #     fn set_high(&mut self) -> Result<(), Self::Error> { Ok(()) }
+/// # }
+/// # let params = Params::new(
+/// #     SupplyParams::new(24.0, 18.0, 30.0),
+/// #     CoilParams::new(0.040, 18.0),
+/// #     SwitchParams::new(0.1, 60.0),
+/// #     ClampPath::Freewheel { forward_drop: 0.7, resistance: 0.05 },
+/// #     ControlParams::new(50e-6, 3200, 2.0),
+/// # );
+/// let guard = Guard::new(&params, &GuardLimits::new(1.0, 1.2, 0.05))?;
+/// let mut switch = GuardedSwitch::new(&guard, guard.start_idle(), Gate);
+/// let vs = Volts::from_num(24);
+/// switch.update(true, 0, vs).unwrap(); // the request turns on: the pin goes high
+/// // 24 V across 18.1 Ω would reach 1.33 A: the guard asks to be looked at no later than the
+/// // 1 A ceiling (3.1 ms), and the checks it asks for turn the pin low there.
+/// let mut on_for = 0;
+/// while let Some(wait) = switch.next_check_us() {
+///     switch.check(wait.max(1), vs).unwrap();
+///     on_for += wait.max(1);
+/// }
+/// assert!(on_for <= 3_200);
+/// assert!(switch.state().active().contains(coilward::Condition::CurrentLimit));
+/// # Ok::<(), coilward::ConfigError>(())
+/// ```
 #[derive(Debug)]
 pub struct GuardedSwitch<'g, P> {
     guard: &'g Guard,
     state: GuardState,
     pin: P,
+    /// The last request.
+    wanted: bool,
+    /// The last output's `next_check_us`.
+    next_check_us: Option<u32>,
 }
 
 impl<'g, P: OutputPin> GuardedSwitch<'g, P> {
     /// Wraps `pin`, starting from `state`.
     pub fn new(guard: &'g Guard, state: GuardState, pin: P) -> Self {
-        Self { guard, state, pin }
+        Self {
+            guard,
+            state,
+            pin,
+            wanted: false,
+            next_check_us: None,
+        }
     }
 
     /// On each event: whether the load should be on, the µs since the previous call (a
@@ -106,10 +156,16 @@ impl<'g, P: OutputPin> GuardedSwitch<'g, P> {
         elapsed_us: u32,
         supply: Volts,
     ) -> Result<Output, P::Error> {
+        self.wanted = want_on;
         let before = self.state.applied();
         let out = self
             .guard
             .event(&mut self.state, want_on, elapsed_us, supply);
+        self.next_check_us = if out.duty > 0 {
+            out.next_check_us
+        } else {
+            None
+        };
         let written = if out.duty > 0 {
             self.pin.set_high()
         } else {
@@ -118,6 +174,20 @@ impl<'g, P: OutputPin> GuardedSwitch<'g, P> {
         settle(&mut self.state, before, out, written, || {
             let _ = self.pin.set_low();
         })
+    }
+
+    /// The look the timing contract asks for: [`GuardedSwitch::update`] with the last request.
+    ///
+    /// # Errors
+    /// The pin's error; the pin is then driven low if possible.
+    pub fn check(&mut self, elapsed_us: u32, supply: Volts) -> Result<Output, P::Error> {
+        self.update(self.wanted, elapsed_us, supply)
+    }
+
+    /// With the pin high: the latest time after the last call at which [`GuardedSwitch::check`]
+    /// must run, µs (`None`: the pin is low, or nothing can reach a limit at this supply).
+    pub const fn next_check_us(&self) -> Option<u32> {
+        self.next_check_us
     }
 
     /// The guard state.

@@ -99,3 +99,59 @@ fn switch_follows_the_guard_and_holds_for_the_release() {
     let (mut pin, _) = sw.release();
     pin.done();
 }
+
+/// A gate that remembers its level.
+struct Gate(bool);
+
+impl embedded_hal::digital::ErrorType for Gate {
+    type Error = core::convert::Infallible;
+}
+
+impl embedded_hal::digital::OutputPin for Gate {
+    fn set_low(&mut self) -> Result<(), Self::Error> {
+        self.0 = false;
+        Ok(())
+    }
+    fn set_high(&mut self) -> Result<(), Self::Error> {
+        self.0 = true;
+        Ok(())
+    }
+}
+
+#[test]
+fn a_switch_checked_when_it_asks_trips_the_winding_image_at_the_iec_time() {
+    // The timing contract through the adapter: the request turns on once, and the firmware's
+    // only other calls are `check` at `next_check_us`. At 1.5 × the basic current the IEC
+    // 60255-149 cold trip time is τ·ln(I²/(I² − k²)) = 60·ln(2.25/1.1475) = 40.40 s (computed;
+    // shared/REFERENCES.md §7); the pin must go low within 2 % of it.
+    let mut p = common::valve();
+    p.coil.temperature_coefficient = 0.0;
+    let mut l = GuardLimits::new(1.45, 1.5, 0.05);
+    l.coil_thermal = Some(coilward::thermal::CoilThermal::new(
+        60.0,
+        24.0 / 18.1 / 1.5,
+        1.05,
+        20.0,
+        60.0,
+    ));
+    let g = Guard::new(&p, &l).unwrap();
+    let vs = Volts::from_num(24);
+    let mut sw = GuardedSwitch::new(&g, g.start_idle(), Gate(false));
+    sw.update(true, 0, vs).unwrap();
+    let (mut t, mut calls) = (0.0, 0);
+    while let Some(us) = sw.next_check_us() {
+        let us = us.max(1);
+        sw.check(us, vs).unwrap();
+        t += f64::from(us) * 1e-6;
+        calls += 1;
+        assert!(calls < 1000, "no trip after {calls} checks");
+    }
+    let want = 60.0 * (2.25f64 / 1.1475).ln();
+    let (pin, state) = sw.release();
+    assert!(!pin.0, "the pin is low");
+    assert!(state.active().contains(Condition::CoilOverheat));
+    eprintln!(
+        "CHECK GuardedSwitch left on at 1.5 x I_B: low at {t:.3} s after {calls} checks, IEC {want:.3} s"
+    );
+    assert!((t - want).abs() < 0.02 * want, "{t} vs {want}");
+}
