@@ -90,6 +90,10 @@ expect 0 "$SIM" run examples/scenarios/irrigation-valve.toml --svg "$OUT/valve.s
     --json "$OUT/valve.json" --csv "$OUT/valve.csv"
 test -s "$OUT/valve.svg" && test -s "$OUT/valve.json" && test -s "$OUT/valve.csv"
 expect 0 "$SIM" run examples/scenarios/relay-zener.toml
+# A relay switched by a GPIO, the guard called on events: it passes and its plot is written.
+expect 0 "$SIM" run examples/scenarios/relay-on-events.toml --svg "$OUT/relay-events.svg" \
+    --json "$OUT/relay-events.json"
+grep -q '"guard_calls"' "$OUT/relay-events.json"
 # The full bridge: the gear motor reverses through the interlock and passes; its plot is written.
 expect 0 "$SIM" run examples/scenarios/reversing-gear-motor.toml --svg "$OUT/motor.svg" \
     --json "$OUT/motor.json" --csv "$OUT/motor.csv"
@@ -100,7 +104,7 @@ expect 1 "$SIM" run examples/scenarios/unclamped-avalanche.toml
 expect 1 "$SIM" run examples/scenarios/valve-at-ceiling.toml
 cargo run --quiet --release -p coilward-sim --example fault_table >"$OUT/faults.md"
 # The fault suite over each low-side demo's declared tolerance: nothing inside it is exceeded.
-for f in irrigation-valve relay-zener unclamped-avalanche valve-at-ceiling; do
+for f in irrigation-valve relay-zener relay-on-events unclamped-avalanche valve-at-ceiling; do
     expect 0 "$SIM" faults "examples/scenarios/$f.toml" --json "$OUT/faults-$f.json"
     grep -q '"inside_tolerance": true' "$OUT/faults-$f.json"
 done

@@ -13,7 +13,7 @@
 //! plant really had. Rows and events are reported from t = 0.
 
 use crate::plant::{Circuit, Plant, PlantError, State, Tally};
-use crate::scenario::Scenario;
+use crate::scenario::{Calls, Scenario, duty_in_period};
 use coilward::{Condition, Conditions, Guard, Input, Volts};
 use rand::{Rng, SeedableRng};
 use rand_distr::{Distribution, StandardNormal};
@@ -131,12 +131,17 @@ pub struct Run {
     pub clamp_energy_total_j: f64,
     /// Estimate error.
     pub estimate: EstimateError,
-    /// Periods simulated.
+    /// Steps simulated: control periods (in on-events runs, the steps between calls, each at
+    /// most one period).
     pub periods: u64,
     /// Path changes resolved by the plant.
     pub plant_events: u64,
     /// Periods in which the applied duty differed from the request.
     pub acted_periods: u64,
+    /// Guard calls (one a period, or one an event).
+    pub calls: u64,
+    /// Simulated time, s.
+    pub simulated_s: f64,
     /// Periods whose tick was missed (`[ticks] missed`).
     pub missed_ticks: u64,
     /// Periods whose tick came too late for the timer (`[ticks] late`).
@@ -193,18 +198,17 @@ impl Adc {
     }
 }
 
-/// One period of the plant at `applied` counts: (current at the start, current when the switch
-/// opened, on tally, off tally with the release current watched, time the switch opened).
-fn run_period(
+/// One step of `len` s from `tk` with the switch on for the first `on_time` s: (current at the
+/// start, current when the switch opened, on tally, off tally with the release current watched,
+/// time the switch opened).
+fn run_step(
     plant: &mut Plant,
-    applied: u32,
-    res: f64,
-    t: f64,
+    on_time: f64,
+    len: f64,
     tk: f64,
     release: f64,
 ) -> Result<(f64, f64, Tally, Tally, f64), PlantError> {
     let i_start = plant.state.current;
-    let on_time = f64::from(applied) / res * t;
     let mut on = Tally::starting(plant.state);
     on.time_offset = tk;
     if on_time > 0.0 {
@@ -218,8 +222,8 @@ fn run_period(
     if i_open <= release {
         off.below_at = Some(t_open);
     }
-    if on_time < t {
-        plant.run(false, t - on_time, &mut off)?;
+    if on_time < len {
+        plant.run(false, len - on_time, &mut off)?;
     }
     Ok((i_start, i_open, on, off, t_open))
 }
@@ -255,11 +259,161 @@ pub fn run_with(s: &Scenario, circuit: &Circuit, opts: Options) -> Run {
         }
     };
     if let Err(e) = simulate(s, &guard, circuit, opts, &mut out) {
-        // The period in which the plant stopped.
-        let t_s = out.periods as f64 * s.period;
+        // The step in which the plant stopped.
+        let t_s = out.simulated_s;
         out.first("plant-stopped", t_s, || format!("the run stopped: {e}"));
     }
     out
+}
+
+/// The fixed figures of a run.
+struct Limits {
+    /// Control period, s.
+    t: f64,
+    /// Timer counts per period.
+    res: f64,
+    release: f64,
+    trip: f64,
+    rating: Option<f64>,
+    has_clamp: bool,
+    breakdown: f64,
+    supply: f64,
+}
+
+/// What the walk through a run carries from one step to the next.
+#[derive(Default)]
+struct Walk {
+    prev_applied: u32,
+    /// The open turn-off record (its decay watched in the off steps that follow).
+    open: Option<usize>,
+    /// The last opening of the switch: (time, current, off-segment tally).
+    last_open: Option<(f64, f64, Tally)>,
+    /// Inside a release (after a turn-off record opened): whether the current has been below
+    /// the release current since (for the report; the turn-on check looks at the current).
+    releasing: Option<bool>,
+    sum_sq: f64,
+    count: u64,
+}
+
+/// When the guard is called and how long each step of the run lasts.
+enum Pace {
+    /// One call per control period.
+    Periodic { k: u64, n: u64 },
+    /// Calls at request changes, at `next_check_us` and every `poll_us`; steps of at most one
+    /// control period between them (so rows and plots keep the period's resolution).
+    Events {
+        now_us: u64,
+        end_us: u64,
+        period_us: u64,
+        poll_us: u64,
+        next_call_us: u64,
+        last_call_us: u64,
+    },
+}
+
+impl Pace {
+    fn new(s: &Scenario) -> Self {
+        match s.calls {
+            Calls::EveryPeriod => Pace::Periodic {
+                k: 0,
+                n: (s.duration / s.period).round().max(1.0) as u64,
+            },
+            Calls::OnEvents { poll_us } => Pace::Events {
+                now_us: 0,
+                end_us: (s.duration * 1e6).round().max(1.0) as u64,
+                period_us: (s.period * 1e6).round().max(1.0) as u64,
+                poll_us,
+                next_call_us: 0,
+                // The run's lead-in period is the first call's elapsed time.
+                last_call_us: 0,
+            },
+        }
+    }
+
+    /// The next step: (start, s; requested duty; whether the guard is called, with the µs since
+    /// its last call); `None` at the end. [`Pace::advance`] then ends the step.
+    fn step(&mut self, s: &Scenario) -> Option<(f64, f64, Option<u32>)> {
+        match self {
+            Pace::Periodic { k, n } => {
+                let tk = *k as f64 * s.period;
+                (*k < *n).then(|| (tk, s.duty_in_period(*k), Some(0)))
+            }
+            Pace::Events {
+                now_us,
+                end_us,
+                period_us,
+                next_call_us,
+                last_call_us,
+                ..
+            } => {
+                if *now_us >= *end_us {
+                    return None;
+                }
+                let call = (*now_us == *next_call_us).then(|| {
+                    let elapsed = if *now_us == 0 {
+                        *period_us
+                    } else {
+                        *now_us - *last_call_us
+                    };
+                    *last_call_us = *now_us;
+                    u32::try_from(elapsed).unwrap_or(u32::MAX)
+                });
+                let duty = duty_in_period(&s.drive, |d| (d.at, d.duty), 1e-6, *now_us);
+                Some((*now_us as f64 * 1e-6, duty, call))
+            }
+        }
+    }
+
+    /// Ends the step [`Pace::step`] began: its length, s (at most one control period, and in
+    /// on-events runs up to the next call).
+    fn advance(&mut self, s: &Scenario) -> f64 {
+        match self {
+            Pace::Periodic { k, .. } => {
+                *k += 1;
+                s.period
+            }
+            Pace::Events {
+                now_us,
+                end_us,
+                period_us,
+                next_call_us,
+                ..
+            } => {
+                // `next_call_us` is after `now_us` once the call of this step has been made.
+                let stop = (*now_us + *period_us).min(*next_call_us).min(*end_us);
+                let len = stop.saturating_sub(*now_us).max(1);
+                *now_us += len;
+                len as f64 * 1e-6
+            }
+        }
+    }
+
+    /// After a call at `t_s` that left the output on or off: when the firmware calls next.
+    fn called(&mut self, s: &Scenario, o: &coilward::Output) {
+        if let Pace::Events {
+            now_us,
+            poll_us,
+            next_call_us,
+            ..
+        } = self
+        {
+            let mut next = *now_us + *poll_us;
+            let change = s
+                .drive
+                .iter()
+                .map(|d| (d.at * 1e6).round() as u64)
+                .find(|&at| at > *now_us);
+            if let Some(at) = change {
+                next = next.min(at);
+            }
+            if o.duty > 0
+                && let Some(us) = o.next_check_us
+            {
+                next = next.min(*now_us + u64::from(us.max(1)));
+            }
+            *next_call_us = next;
+        }
+    }
 }
 
 fn simulate(
@@ -270,13 +424,16 @@ fn simulate(
     out: &mut Run,
 ) -> Result<(), PlantError> {
     let model = guard.model();
-    let t = s.period;
-    let res = f64::from(s.duty_resolution);
-    let release = f64::from(s.limits.release_current);
-    let trip = f64::from(s.limits.trip_current);
-    let rating = s.limits.clamp_pulse_energy.map(f64::from);
-    let has_clamp = s.plant.path != crate::scenario::PathName::None;
-
+    let lim = Limits {
+        t: s.period,
+        res: f64::from(s.duty_resolution),
+        release: f64::from(s.limits.release_current),
+        trip: f64::from(s.limits.trip_current),
+        rating: s.limits.clamp_pulse_energy.map(f64::from),
+        has_clamp: s.plant.path != crate::scenario::PathName::None,
+        breakdown: circuit.breakdown,
+        supply: circuit.supply,
+    };
     let start = State {
         current: s.start.current,
         node: if s.start.current > 0.0 {
@@ -300,192 +457,71 @@ fn simulate(
     };
     let mut tick_rng = rand_chacha::ChaCha8Rng::seed_from_u64(s.ticks.seed);
     let mut lead = Tally::starting(plant.state);
-    plant.run(false, t, &mut lead)?;
+    plant.run(false, lim.t, &mut lead)?;
 
-    let n = (s.duration / t).round().max(1.0) as u64;
-    if opts.rows {
-        out.rows.reserve(usize::try_from(n).unwrap_or(0));
-    }
     out.peak_current_a = plant.state.current;
     out.peak_drain_voltage_v = plant.state.node;
-    let (mut sum_sq, mut count) = (0.0, 0u64);
-    let mut prev_applied = 0u32;
-    // The open turn-off: its record and whether its decay has been seen.
-    let mut open: Option<usize> = None;
-    // The last opening of the switch in PWM: (time, current, off-segment tally).
-    let mut last_open: Option<(f64, f64, Tally)> = None;
-    // Inside a release (after a turn-off record opened): whether the current has been below the
-    // release current since (for the report; the turn-on check looks at the current itself).
-    let mut releasing: Option<bool> = None;
-    for k in 0..n {
-        let tk = k as f64 * t;
+    let mut walk = Walk::default();
+    let mut pace = Pace::new(s);
+    while let Some((tk, duty_req, call)) = pace.step(s) {
         if !s.supply_profile.is_constant() {
             plant.set_supply(s.supply_profile.at(tk, s.plant.voltage, circuit.supply));
         }
         let rail = plant.rail();
         let read = adc.read(rail);
-        let duty_req = s.duty_in_period(k);
-        let counts = (duty_req * res).round() as u32;
-        let fault: f64 = if s.ticks.missed + s.ticks.late > 0.0 {
-            tick_rng.random()
-        } else {
-            1.0
-        };
-        // A missed tick: no interrupt this period, the timer repeats the last duty, the guard
-        // learns nothing and its next update accounts for one period where two passed.
-        let missed = fault < s.ticks.missed;
-        let late = !missed && fault < s.ticks.missed + s.ticks.late;
-        let o = if missed {
-            out.missed_ticks += 1;
-            None
-        } else {
-            Some(guard.tick(
-                &mut gs,
-                Input::new(counts, Volts::saturating_from_num(read)),
-            ))
-        };
-        if let Some(o) = &o {
-            let est_now = f64::from(model.amps(o.estimate.end));
-            let err = est_now - plant.state.current;
-            out.estimate.max_abs_error_a = out.estimate.max_abs_error_a.max(err.abs());
-            out.estimate.max_underestimate_a = out.estimate.max_underestimate_a.max(-err);
-            let margin = f64::from(model.amps(o.bound)) - plant.state.current;
-            out.estimate.min_bound_margin_a = if count == 0 {
-                margin
-            } else {
-                out.estimate.min_bound_margin_a.min(margin)
-            };
-            sum_sq += err * err;
-            count += 1;
-            if o.duty != counts {
-                out.acted_periods += 1;
-                out.first("guard-acted", tk, || {
-                    format!(
-                        "applied {:.1} % where {:.1} % was requested ({})",
-                        f64::from(o.duty) / res * 100.0,
-                        duty_req * 100.0,
-                        o.active
-                    )
-                });
-            }
-            for c in Condition::ALL {
-                let (raised, cleared) = (o.raised.contains(c), o.cleared.contains(c));
-                if raised || cleared {
-                    let detail = if raised {
-                        let mut d = format!(
-                            "raised: estimate {est_now:.4} A, predicted peak {:.4} A",
-                            model.amps(o.predicted_peak)
-                        );
-                        if o.latched.contains(c) {
-                            d.push_str(", latched");
-                        }
-                        if let (Condition::ReleaseHold, Some(us)) = (c, o.release_in_us) {
-                            d.push_str(&format!(", release in {us} µs"));
-                        }
-                        d
+        let counts = (duty_req * lim.res).round() as u32;
+        let supply = Volts::saturating_from_num(read);
+        let (o, applied) = match (&pace, call) {
+            (Pace::Periodic { .. }, _) => {
+                let fault: f64 = if s.ticks.missed + s.ticks.late > 0.0 {
+                    tick_rng.random()
+                } else {
+                    1.0
+                };
+                // A missed tick: no interrupt this period, the timer repeats the last duty, the
+                // guard learns nothing and its next update accounts for one period where two
+                // passed. A late one: the write came after the timer's update.
+                if fault < s.ticks.missed {
+                    out.missed_ticks += 1;
+                    (None, walk.prev_applied)
+                } else {
+                    let o = guard.tick(&mut gs, Input::new(counts, supply));
+                    if fault < s.ticks.missed + s.ticks.late {
+                        out.late_ticks += 1;
+                        (Some(o), walk.prev_applied)
                     } else {
-                        "cleared".to_string()
-                    };
-                    out.events.push(EventRecord {
-                        t_s: tk,
-                        condition: c.name(),
-                        detail,
-                    });
+                        let applied = o.duty.min(s.duty_resolution);
+                        (Some(o), applied)
+                    }
                 }
             }
-        }
-
-        let applied = match &o {
-            None => prev_applied,
-            Some(_) if late => {
-                // The write came after the timer's update: this period repeats the last duty.
-                out.late_ticks += 1;
-                prev_applied
+            (Pace::Events { .. }, Some(elapsed)) => {
+                let o = guard.event(&mut gs, counts > 0, elapsed, supply);
+                pace.called(s, &o);
+                let applied = if o.duty > 0 { s.duty_resolution } else { 0 };
+                (Some(o), applied)
             }
-            Some(o) => o.duty.min(s.duty_resolution),
+            (Pace::Events { .. }, None) => (None, walk.prev_applied),
         };
-        // A turn-off: the switch stays off this period after being on in the last one.
-        if applied == 0
-            && prev_applied > 0
-            && let Some((t_open, i_open, tally)) = last_open
-        {
-            out.turn_offs.push(TurnOff {
-                t_s: t_open,
-                current_a: i_open,
-                decay_time_s: tally.below_at.map(|x| x - t_open),
-                clamp_energy_j: tally.clamp_energy + tally.avalanche_energy,
-                avalanche_energy_j: tally.avalanche_energy,
-                peak_drain_voltage_v: tally.peak_node,
-                forced: counts > 0,
-            });
-            open = Some(out.turn_offs.len() - 1);
-            releasing = Some(tally.below_at.is_some());
+        if let Some(o) = &o {
+            out.calls += 1;
+            walk.record(
+                out,
+                model,
+                o,
+                tk,
+                (counts, duty_req, lim.res),
+                plant.state.current,
+            );
         }
-        if applied > 0 {
-            // Turning on again: before the current has decayed? Judged on its magnitude at the
-            // turn-on, not on a first crossing: with nothing across the switch the current can
-            // ring through zero and back.
-            let i = plant.state.current;
-            if releasing.is_some() && i.abs() > release {
-                out.first("on-before-release", tk, || {
-                    format!("switched on with {i:.4} A still flowing (release current {release} A)")
-                });
-            }
-            // Switching on into a node still ringing far above the supply: the switch takes the
-            // node capacitance's charge at that voltage (a hard turn-on).
-            let (v, rail) = (plant.state.node, circuit.supply);
-            if releasing.is_some() && v > 1.5 * rail + 1.0 {
-                out.first("on-into-ringing-node", tk, || {
-                    format!("switched on with the node still at {v:.1} V (supply {rail:.1} V)")
-                });
-            }
-            open = None;
-            releasing = None;
-        }
+        walk.switch(out, &lim, &plant, tk, applied, counts);
+        let len = pace.advance(s);
+        let on_time = f64::from(applied) / lim.res * len;
         let (i_start, i_open, on, off, t_open) =
-            run_period(&mut plant, applied, res, t, tk, release)?;
-        if applied > 0 {
-            last_open = Some((t_open, i_open, off));
-        } else if let Some(idx) = open {
-            let r = &mut out.turn_offs[idx];
-            r.clamp_energy_j += off.clamp_energy + off.avalanche_energy;
-            r.avalanche_energy_j += off.avalanche_energy;
-            r.peak_drain_voltage_v = r.peak_drain_voltage_v.max(off.peak_node);
-            if r.decay_time_s.is_none() {
-                r.decay_time_s = off.below_at.map(|x| x - r.t_s);
-            }
-            if off.below_at.is_some() {
-                releasing = Some(true);
-            }
-        }
-        prev_applied = applied;
-
-        let pulse = off.clamp_energy + off.avalanche_energy;
-        out.max_pulse_energy_j = out.max_pulse_energy_j.max(pulse);
-        out.clamp_energy_total_j += pulse + on.clamp_energy + on.avalanche_energy;
-        let peak_i = on.peak_current.max(off.peak_current);
-        let peak_v = on.peak_node.max(off.peak_node);
-        out.peak_current_a = out.peak_current_a.max(peak_i);
-        out.peak_drain_voltage_v = out.peak_drain_voltage_v.max(peak_v);
-        out.plant_events += on.events + off.events;
-        if peak_i > trip {
-            out.first("current-above-trip", tk, || {
-                format!("true current reached {peak_i:.4} A (trip current {trip} A)")
-            });
-        }
-        // A PWM period's off-segment is one pulse into the clamp; a release's pulse is the
-        // whole turn-off, checked below once it is complete.
-        if applied > 0 {
-            pulse_over(out, rating, pulse, t_open);
-        }
-        if has_clamp && on.avalanche_time + off.avalanche_time > 0.0 {
-            let bv = circuit.breakdown;
-            out.first("avalanche-with-clamp", t_open, || {
-                format!("the switch avalanched at {bv:.1} V although a clamp path is fitted")
-            });
-        }
+            run_step(&mut plant, on_time, len, tk, lim.release)?;
+        let pulse = walk.account(out, &lim, applied, (&on, &off), t_open, i_open);
         if opts.rows {
-            // After a missed tick the guard's figures are those it last gave.
+            // Between calls the guard's figures are those it last gave.
             let last = out.rows.last();
             let (est, est_peak, conditions) = match &o {
                 Some(o) => (
@@ -500,42 +536,218 @@ fn simulate(
             out.rows.push(Row {
                 t_s: tk,
                 duty_requested: duty_req,
-                duty_applied: f64::from(applied) / res,
+                duty_applied: f64::from(applied) / lim.res,
                 supply_v: rail,
                 current_a: i_start,
-                mean_current_a: (on.charge + off.charge) / t,
-                peak_current_a: peak_i,
+                mean_current_a: (on.charge + off.charge) / len,
+                peak_current_a: on.peak_current.max(off.peak_current),
                 estimated_current_a: est,
                 estimated_peak_a: est_peak,
-                drain_peak_v: peak_v,
+                drain_peak_v: on.peak_node.max(off.peak_node),
                 conditions,
                 supply_read_v: read,
-                clamp_energy_j: pulse + on.clamp_energy + on.avalanche_energy,
+                clamp_energy_j: pulse,
             });
         }
         out.periods += 1;
+        out.simulated_s = tk + len;
     }
     for i in 0..out.turn_offs.len() {
         let t = out.turn_offs[i];
         out.max_pulse_energy_j = out.max_pulse_energy_j.max(t.clamp_energy_j);
-        pulse_over(out, rating, t.clamp_energy_j, t.t_s);
+        pulse_over(out, lim.rating, t.clamp_energy_j, t.t_s);
     }
-    if count > 0 {
-        out.estimate.rms_error_a = (sum_sq / count as f64).sqrt();
+    if walk.count > 0 {
+        out.estimate.rms_error_a = (walk.sum_sq / walk.count as f64).sqrt();
     }
     out.findings.sort_by(|a, b| a.t_s.total_cmp(&b.t_s));
     Ok(())
 }
 
-/// The largest first-order average of the clamp path's power over a run, W: each period's
-/// clamp energy through `P̄ ← P̄ + (E/T − P̄)·T/τ`, the same average the guard keeps for
-/// `clamp-power` (`window` = τ).
+impl Walk {
+    /// A guard call's output: the estimate against the true current `i`, whether the guard
+    /// changed the request, and the conditions it raised or cleared.
+    fn record(
+        &mut self,
+        out: &mut Run,
+        model: &coilward::Model,
+        o: &coilward::Output,
+        tk: f64,
+        (counts, duty_req, res): (u32, f64, f64),
+        i: f64,
+    ) {
+        let est_now = f64::from(model.amps(o.estimate.end));
+        let err = est_now - i;
+        out.estimate.max_abs_error_a = out.estimate.max_abs_error_a.max(err.abs());
+        out.estimate.max_underestimate_a = out.estimate.max_underestimate_a.max(-err);
+        let margin = f64::from(model.amps(o.bound)) - i;
+        out.estimate.min_bound_margin_a = if self.count == 0 {
+            margin
+        } else {
+            out.estimate.min_bound_margin_a.min(margin)
+        };
+        self.sum_sq += err * err;
+        self.count += 1;
+        if o.duty != counts {
+            out.acted_periods += 1;
+            out.first("guard-acted", tk, || {
+                format!(
+                    "applied {:.1} % where {:.1} % was requested ({})",
+                    f64::from(o.duty) / res * 100.0,
+                    duty_req * 100.0,
+                    o.active
+                )
+            });
+        }
+        for c in Condition::ALL {
+            let (raised, cleared) = (o.raised.contains(c), o.cleared.contains(c));
+            if !(raised || cleared) {
+                continue;
+            }
+            let detail = if raised {
+                let mut d = format!(
+                    "raised: estimate {est_now:.4} A, predicted peak {:.4} A",
+                    model.amps(o.predicted_peak)
+                );
+                if o.latched.contains(c) {
+                    d.push_str(", latched");
+                }
+                if let (Condition::ReleaseHold, Some(us)) = (c, o.release_in_us) {
+                    d.push_str(&format!(", release in {us} µs"));
+                }
+                d
+            } else {
+                "cleared".to_string()
+            };
+            out.events.push(EventRecord {
+                t_s: tk,
+                condition: c.name(),
+                detail,
+            });
+        }
+    }
+
+    /// The switch's state changes at `tk`: a turn-off opens a record, a turn-on is checked
+    /// against the release and the node.
+    fn switch(
+        &mut self,
+        out: &mut Run,
+        lim: &Limits,
+        plant: &Plant,
+        tk: f64,
+        applied: u32,
+        counts: u32,
+    ) {
+        // A turn-off: the switch stays off this step after being on in the last one.
+        if applied == 0
+            && self.prev_applied > 0
+            && let Some((t_open, i_open, tally)) = self.last_open
+        {
+            out.turn_offs.push(TurnOff {
+                t_s: t_open,
+                current_a: i_open,
+                decay_time_s: tally.below_at.map(|x| x - t_open),
+                clamp_energy_j: tally.clamp_energy + tally.avalanche_energy,
+                avalanche_energy_j: tally.avalanche_energy,
+                peak_drain_voltage_v: tally.peak_node,
+                forced: counts > 0,
+            });
+            self.open = Some(out.turn_offs.len() - 1);
+            self.releasing = Some(tally.below_at.is_some());
+        }
+        if applied > 0 {
+            // Turning on again: before the current has decayed? Judged on its magnitude at the
+            // turn-on, not on a first crossing: with nothing across the switch the current can
+            // ring through zero and back.
+            let i = plant.state.current;
+            let release = lim.release;
+            if self.releasing.is_some() && i.abs() > release {
+                out.first("on-before-release", tk, || {
+                    format!("switched on with {i:.4} A still flowing (release current {release} A)")
+                });
+            }
+            // Switching on into a node still ringing far above the supply: the switch takes the
+            // node capacitance's charge at that voltage (a hard turn-on).
+            let (v, rail) = (plant.state.node, lim.supply);
+            if self.releasing.is_some() && v > 1.5 * rail + 1.0 {
+                out.first("on-into-ringing-node", tk, || {
+                    format!("switched on with the node still at {v:.1} V (supply {rail:.1} V)")
+                });
+            }
+            self.open = None;
+            self.releasing = None;
+        }
+    }
+
+    /// After a step: the turn-off record, the run's peaks and energies, and the findings the
+    /// step raised. Returns the energy the clamp path took in the step, J.
+    fn account(
+        &mut self,
+        out: &mut Run,
+        lim: &Limits,
+        applied: u32,
+        (on, off): (&Tally, &Tally),
+        t_open: f64,
+        i_open: f64,
+    ) -> f64 {
+        if applied > 0 {
+            self.last_open = Some((t_open, i_open, *off));
+        } else if let Some(idx) = self.open {
+            let r = &mut out.turn_offs[idx];
+            r.clamp_energy_j += off.clamp_energy + off.avalanche_energy;
+            r.avalanche_energy_j += off.avalanche_energy;
+            r.peak_drain_voltage_v = r.peak_drain_voltage_v.max(off.peak_node);
+            if r.decay_time_s.is_none() {
+                r.decay_time_s = off.below_at.map(|x| x - r.t_s);
+            }
+            if off.below_at.is_some() {
+                self.releasing = Some(true);
+            }
+        }
+        self.prev_applied = applied;
+
+        let pulse = off.clamp_energy + off.avalanche_energy;
+        out.max_pulse_energy_j = out.max_pulse_energy_j.max(pulse);
+        out.clamp_energy_total_j += pulse + on.clamp_energy + on.avalanche_energy;
+        let peak_i = on.peak_current.max(off.peak_current);
+        let peak_v = on.peak_node.max(off.peak_node);
+        out.peak_current_a = out.peak_current_a.max(peak_i);
+        out.peak_drain_voltage_v = out.peak_drain_voltage_v.max(peak_v);
+        out.plant_events += on.events + off.events;
+        let trip = lim.trip;
+        if peak_i > trip {
+            out.first("current-above-trip", on.time_offset, || {
+                format!("true current reached {peak_i:.4} A (trip current {trip} A)")
+            });
+        }
+        // A PWM period's off-segment is one pulse into the clamp; a release's pulse is the
+        // whole turn-off, checked once it is complete.
+        if applied > 0 {
+            pulse_over(out, lim.rating, pulse, t_open);
+        }
+        if lim.has_clamp && on.avalanche_time + off.avalanche_time > 0.0 {
+            let bv = lim.breakdown;
+            out.first("avalanche-with-clamp", t_open, || {
+                format!("the switch avalanched at {bv:.1} V although a clamp path is fitted")
+            });
+        }
+        pulse + on.clamp_energy + on.avalanche_energy
+    }
+}
+/// The largest first-order average of the clamp path's power over a run, W: each row's clamp
+/// energy through `P̄ ← P̄ + (E/Δt − P̄)·Δt/τ`, the same average the guard keeps for
+/// `clamp-power` (`window` = τ). A row lasts until the next one starts (the last, `period`): on
+/// events, the steps before a call can be shorter than a period.
 pub fn worst_average_clamp_power(rows: &[Row], period: f64, window: f64) -> f64 {
-    let share = (period / window).min(1.0);
     let mut avg: f64 = 0.0;
     let mut worst: f64 = 0.0;
-    for r in rows {
-        avg += (r.clamp_energy_j / period - avg) * share;
+    for (n, r) in rows.iter().enumerate() {
+        let dt = rows.get(n + 1).map_or(period, |next| next.t_s - r.t_s);
+        if dt <= 0.0 {
+            continue;
+        }
+        let share = (dt / window).min(1.0);
+        avg += (r.clamp_energy_j / dt - avg) * share;
         worst = worst.max(avg);
     }
     worst

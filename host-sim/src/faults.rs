@@ -13,7 +13,8 @@
 //! - [`RANDOM_POINTS`] seeded random points inside the box;
 //! - named faults outside it: parameters beyond their spreads, a supply outside its window, a
 //!   stuck or noisy reading, missed and late control ticks (the library's bound does not cover
-//!   ticks: a missed tick's period is not advanced), a winding far hotter than the model.
+//!   ticks: a missed tick's period is not advanced) or, for on-events calls, a housekeeping poll
+//!   100 × slower, a winding far hotter than the model.
 //!
 //! A case *exceeds* when the true current passes the guard's effective ceiling
 //! (`peak_over_ceiling > 1`), a clamp pulse passes its rating (`pulse_over_rating > 1`), or the
@@ -24,7 +25,7 @@
 //! one control period by `supply-range`.
 
 use crate::cosim::{self, Options, Run};
-use crate::scenario::{Knob, Scenario};
+use crate::scenario::{Calls, Knob, Scenario};
 use rand::{Rng, SeedableRng};
 use serde::Serialize;
 
@@ -207,10 +208,6 @@ fn outside(base: &Scenario) -> Vec<Case> {
         case(base, "ADC noise 1 % rms (unbounded)", false, |s| {
             s.adc.noise = 0.01 * s.plant.voltage;
         }),
-        case(base, "5 % of ticks missed", false, |s| {
-            s.ticks.missed = 0.05
-        }),
-        case(base, "5 % of ticks late", false, |s| s.ticks.late = 0.05),
         case(base, "winding 100 K hotter than the model", false, |s| {
             s.plant.temperature += 100.0;
         }),
@@ -229,6 +226,27 @@ fn outside(base: &Scenario) -> Vec<Case> {
             },
         ),
     ];
+    // Interrupt latency: a PWM timer's update missed or late; on events, a housekeeping poll far
+    // slower than configured (the guard's `next_check_us` still honoured, per its contract).
+    let late = match base.calls {
+        Calls::EveryPeriod => vec![
+            case(base, "5 % of ticks missed", false, |s| {
+                s.ticks.missed = 0.05
+            }),
+            case(base, "5 % of ticks late", false, |s| s.ticks.late = 0.05),
+        ],
+        Calls::OnEvents { poll_us } => vec![case(
+            base,
+            "housekeeping poll 100 x slower",
+            false,
+            move |s| {
+                s.calls = Calls::OnEvents {
+                    poll_us: poll_us.saturating_mul(100).min(4_294_000_000),
+                }
+            },
+        )],
+    };
+    out.splice(6..6, late);
     let mut detectable = |name: String, f: &dyn Fn(&mut Scenario), starts: f64| {
         let mut c = case(base, name, false, f);
         c.detectable = true;

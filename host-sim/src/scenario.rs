@@ -115,6 +115,8 @@ struct RawControl {
     period: Text,
     duty_resolution: Option<Spanned<i64>>,
     current_full_scale: Text,
+    calls: Text,
+    poll: Text,
 }
 
 #[derive(Deserialize)]
@@ -613,6 +615,22 @@ pub struct Start {
     pub guard_told: bool,
 }
 
+/// How the firmware calls the guard (`[control] calls`).
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub enum Calls {
+    /// `every-period` (the default): `Guard::tick` once per control period, the PWM duty
+    /// applied from it.
+    #[default]
+    EveryPeriod,
+    /// `on-events`: a gate pin switched fully on or off by `Guard::event`, called at each
+    /// change of the request, when the output tells it to look again (`next_check_us`), and at
+    /// least every `poll_us` µs (`[control] poll`).
+    OnEvents {
+        /// The firmware's housekeeping interval, µs.
+        poll_us: u64,
+    },
+}
+
 /// One step of the drive timeline.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Step {
@@ -674,6 +692,8 @@ pub struct Scenario {
     pub duty_resolution: u32,
     /// Full scale of the estimate, A.
     pub current_full_scale: f64,
+    /// How the firmware calls the guard.
+    pub calls: Calls,
     /// The guard's settings.
     pub limits: GuardLimits,
     /// Supply ADC.
@@ -1410,6 +1430,7 @@ impl Scenario {
         if drive.is_empty() {
             return Err(ScenarioError { file: path.to_path_buf(), at: None, key: Some("drive".into()), message: "no [[drive]] steps: give at least one, e.g. [[drive]] at = \"0 s\" duty = \"100 %\"".into() });
         }
+        let calls = calls(&mut cx, &raw, &drive, &mut assumed)?;
 
         // The supply's steps and ripple.
         let ripple = cx.value("supply.ripple", &s.ripple, Unit::Volt)?;
@@ -1516,6 +1537,7 @@ impl Scenario {
             period,
             duty_resolution,
             current_full_scale,
+            calls,
             limits,
             adc,
             ticks,
@@ -1605,6 +1627,58 @@ impl Scenario {
     pub fn duty_in_period(&self, k: u64) -> f64 {
         duty_in_period(&self.drive, |s| (s.at, s.duty), self.period, k)
     }
+}
+
+/// `[control] calls` and `poll`: an on-events run switches the load fully on or off and has no
+/// control ticks to go wrong.
+fn calls(
+    cx: &mut Cx,
+    raw: &Raw,
+    drive: &[Step],
+    assumed: &mut Vec<String>,
+) -> Result<Calls, ScenarioError> {
+    let ct = &raw.control;
+    let word = cx.word("control.calls", &ct.calls, &["every-period", "on-events"])?;
+    let poll = cx.value("control.poll", &ct.poll, Unit::Second)?;
+    if word != Some("on-events") {
+        if poll.is_some() {
+            return Err(cx.error(
+                "control.poll",
+                None,
+                "only for calls = \"on-events\" (every-period calls come once a period)",
+            ));
+        }
+        return Ok(Calls::EveryPeriod);
+    }
+    for (n, d) in drive.iter().enumerate() {
+        cx.check(
+            &format!("drive[{n}].duty"),
+            d.duty == 0.0 || d.duty == 1.0,
+            "on-events calls switch the load fully on or off: give 0 % or 100 %",
+        )?;
+    }
+    if raw.ticks.is_some() {
+        return Err(cx.error(
+            "ticks",
+            None,
+            "[ticks] is for every-period calls; on-events calls have no timer update to miss",
+        ));
+    }
+    let poll = match poll {
+        Some(p) => p,
+        None => {
+            assumed.push("control.poll = 10 ms".to_string());
+            0.01
+        }
+    };
+    cx.check(
+        "control.poll",
+        (1e-6..=4294.0).contains(&poll),
+        "must be within 1 µs ..= 4294 s (a 32-bit µs timer)",
+    )?;
+    Ok(Calls::OnEvents {
+        poll_us: (poll * 1e6).round() as u64,
+    })
 }
 
 fn stage_list(

@@ -231,3 +231,86 @@ fn an_incomplete_ripple_is_refused() {
     let e = Scenario::parse(Path::new("case.toml"), &t).unwrap_err();
     assert_eq!(e.key.as_deref(), Some("supply.ripple_frequency"), "{e}");
 }
+
+#[test]
+fn a_relay_left_on_by_events_trips_its_winding_image_at_the_iec_time() {
+    // The on-events demo, driven on for good at 1.5 × the coil's basic current (copper's
+    // temperature coefficient set to zero so the current stays put, as the standard's
+    // constant-current closed form assumes). IEC 60255-149 cold trip time
+    // τ·ln(I²/(I² − k²·I_B²)) (shared/REFERENCES.md §7), with the plateau current the plant
+    // really carried. The firmware calls the guard only at its housekeeping poll and when the
+    // output asks (`next_check_us`); the trip must come at the standard's time whatever the poll.
+    let base = text("relay-on-events.toml")
+        .replace(
+            "temperature = \"25 °C\"",
+            "temperature = \"25 °C\"\ntemperature_coefficient = \"0 /K\"",
+        )
+        .replace(
+            "coil_time_constant = \"20 s\"",
+            "coil_time_constant = \"2 s\"",
+        )
+        .replace(
+            "coil_basic_current = \"70 mA\"",
+            "coil_basic_current = \"39.9 mA\"",
+        );
+    let base = base[..base.find("[[drive]]").unwrap()].to_string()
+        + "[[drive]]\nat = \"0 s\"\nduty = \"100 %\"\n[run]\nduration = \"2 s\"\n";
+    for poll in ["20 ms", "1000 s"] {
+        let s = scenario(&base.replace("poll = \"20 ms\"", &format!("poll = \"{poll}\"")));
+        let r = cosim::run(&s, Options::default());
+        let i = r.peak_current_a;
+        let (tau, ib, k) = (2.0, 0.0399, 1.05);
+        let want = tau * (i * i / (i * i - k * k * ib * ib)).ln();
+        let trip = r
+            .events
+            .iter()
+            .find(|e| e.condition == "coil-overheat")
+            .unwrap_or_else(|| panic!("no coil-overheat: {:?}", r.events));
+        let err = (trip.t_s - want).abs() / want;
+        eprintln!(
+            "CHECK relay on events, poll {poll}: {:.4} A = {:.3} x I_B trips at {:.4} s after {} \
+             calls, IEC {want:.4} s ({:.3} %)",
+            i,
+            i / ib,
+            trip.t_s,
+            r.calls,
+            err * 100.0
+        );
+        assert!(err < 0.02, "{} vs {want}", trip.t_s);
+        assert_eq!(
+            r.turn_offs.len(),
+            1,
+            "the guard opened the switch at the trip"
+        );
+        assert!(r.turn_offs[0].forced);
+    }
+}
+
+#[test]
+fn on_events_runs_take_only_full_on_or_off_and_no_ticks() {
+    let t = text("relay-on-events.toml");
+    let e = Scenario::parse(
+        Path::new("case.toml"),
+        &t.replacen("duty = \"100 %\"", "duty = \"50 %\"", 1),
+    )
+    .unwrap_err();
+    assert_eq!(e.key.as_deref(), Some("drive[0].duty"), "{e}");
+    let e = Scenario::parse(
+        Path::new("case.toml"),
+        &format!("{t}\n[ticks]\nmissed = \"1 %\"\n"),
+    )
+    .unwrap_err();
+    assert_eq!(e.key.as_deref(), Some("ticks"), "{e}");
+    let e = Scenario::parse(
+        Path::new("case.toml"),
+        &t.replace("poll = \"20 ms\"", "poll = \"0 s\""),
+    )
+    .unwrap_err();
+    assert_eq!(e.key.as_deref(), Some("control.poll"), "{e}");
+    let e = Scenario::parse(
+        Path::new("case.toml"),
+        &t.replace("calls = \"on-events\"\n", ""),
+    )
+    .unwrap_err();
+    assert_eq!(e.key.as_deref(), Some("control.poll"), "{e}");
+}

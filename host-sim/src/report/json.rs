@@ -22,6 +22,8 @@ pub fn report(s: &Scenario, r: &Run) -> Value {
         "estimate": r.estimate,
         "periods": r.periods,
         "period_s": s.period,
+        "guard_calls": r.calls,
+        "simulated_s": r.simulated_s,
         "plant_events": r.plant_events,
         "acted_periods": r.acted_periods,
         "missed_ticks": r.missed_ticks,

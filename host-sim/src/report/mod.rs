@@ -8,7 +8,7 @@ pub mod json;
 pub mod svg;
 
 use crate::cosim::Run;
-use crate::scenario::Scenario;
+use crate::scenario::{Calls, Scenario};
 use std::fmt::Write as _;
 
 /// `value` with an SI prefix and `unit`, to `digits` significant digits: `32.3 µJ`.
@@ -49,14 +49,28 @@ pub fn summary(s: &Scenario, r: &Run) -> String {
     let mut o = String::new();
     let l = &s.limits;
     let _ = writeln!(o, "{} ({})", s.name, s.file.display());
-    let _ = writeln!(
-        o,
-        "  {} control periods of {} ({}); the circuit changed paths {} times",
-        r.periods,
-        si(s.period, "s", 3),
-        si(r.periods as f64 * s.period, "s", 3),
-        r.plant_events
-    );
+    match s.calls {
+        Calls::EveryPeriod => {
+            let _ = writeln!(
+                o,
+                "  {} control periods of {} ({}); the circuit changed paths {} times",
+                r.periods,
+                si(s.period, "s", 3),
+                si(r.simulated_s, "s", 3),
+                r.plant_events
+            );
+        }
+        Calls::OnEvents { poll_us } => {
+            let _ = writeln!(
+                o,
+                "  {} guard calls on events (poll every {}) over {}; the circuit changed paths {} times",
+                r.calls,
+                si(poll_us as f64 * 1e-6, "s", 3),
+                si(r.simulated_s, "s", 3),
+                r.plant_events
+            );
+        }
+    }
     for a in &s.assumed {
         let _ = writeln!(o, "  assumed: {a}");
     }

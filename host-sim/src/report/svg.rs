@@ -94,7 +94,11 @@ pub fn write(s: &Scenario, r: &Run, path: &Path) -> Result<(), Box<dyn std::erro
         .label("true, period start")
         .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], TRUE));
     c.draw_series(DashedLineSeries::new(i_est, 6, 4, ESTIMATE.stroke_width(2)))?
-        .label("guard's estimate")
+        .label(match s.calls {
+            crate::scenario::Calls::EveryPeriod => "guard's estimate",
+            // Between calls the guard knows nothing new: the line holds its last figure.
+            crate::scenario::Calls::OnEvents { .. } => "guard's estimate, at its calls",
+        })
         .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], ESTIMATE));
     for (level, name) in [
         (trip, "trip"),
