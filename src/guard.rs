@@ -440,6 +440,45 @@ pub(crate) fn limit_current(
     ))
 }
 
+/// The winding image, with the box's slowest decay and fastest rise for its events, and the
+/// stale-temperature gain per kelvin (Q32) for the image's resistance factor.
+fn coil_image(
+    params: &Params,
+    limits: &GuardLimits,
+    bound: &Bound,
+    d: &crate::model::Derived,
+) -> Result<(Option<CoilReplica>, u64), ConfigError> {
+    // The slowest decay of the box (the fall corner), or the ring's envelope, for the
+    // winding image's off-events.
+    let fall = f64::from(bound.fall.derived().tau_off);
+    let decay_tau = if bound.has_ring() { 2.0 * fall } else { fall };
+    // The fastest rise of the box, for its on-events: the rise corner, saturated where it
+    // saturates.
+    let tau_on = f64::from(bound.rise.derived().tau_on);
+    let tau_rise = match &bound.rise.saturation {
+        Some(sat) => (sat.tau_us as f64 / 4_294_967_296.0 * 1e-6).min(tau_on),
+        None => tau_on,
+    };
+    Ok(match &limits.coil_thermal {
+        Some(c) => {
+            let alpha = f64::from(params.coil.temperature_coefficient);
+            let t_ref = f64::from(params.coil.reference_temperature);
+            let bound = alpha / (1.0 + alpha * (f64::from(c.ambient) - t_ref)).max(1e-3);
+            let mut replica = CoilReplica::new(
+                c,
+                d.period,
+                d.full_scale,
+                params.coil.reference_temperature,
+                params.coil.temperature_coefficient,
+            )?;
+            replica.set_decay(decay_tau);
+            replica.set_rise(tau_rise);
+            (Some(replica), crate::model::q32(bound))
+        }
+        None => (None, 0),
+    })
+}
+
 impl Guard {
     /// Validates the drive and the limits.
     ///
@@ -507,35 +546,7 @@ impl Guard {
                 d.energy_unit,
             )?),
         };
-        // The slowest decay of the box (the fall corner), or the ring's envelope, for the
-        // winding image's off-events.
-        let fall = f64::from(bound.fall.derived().tau_off);
-        let decay_tau = if bound.has_ring() { 2.0 * fall } else { fall };
-        // The fastest rise of the box, for its on-events: the rise corner, saturated where it
-        // saturates.
-        let tau_on = f64::from(bound.rise.derived().tau_on);
-        let tau_rise = match &bound.rise.saturation {
-            Some(sat) => (sat.tau_us as f64 / 4_294_967_296.0 * 1e-6).min(tau_on),
-            None => tau_on,
-        };
-        let (coil, stale_per_kelvin) = match &limits.coil_thermal {
-            Some(c) => {
-                let alpha = f64::from(params.coil.temperature_coefficient);
-                let t_ref = f64::from(params.coil.reference_temperature);
-                let bound = alpha / (1.0 + alpha * (f64::from(c.ambient) - t_ref)).max(1e-3);
-                let mut replica = CoilReplica::new(
-                    c,
-                    d.period,
-                    d.full_scale,
-                    params.coil.reference_temperature,
-                    params.coil.temperature_coefficient,
-                )?;
-                replica.set_decay(decay_tau);
-                replica.set_rise(tau_rise);
-                (Some(replica), crate::model::q32(bound))
-            }
-            None => (None, 0),
-        };
+        let (coil, stale_per_kelvin) = coil_image(params, limits, &bound, &d)?;
         let retry = match limits.retry {
             Some(r) => {
                 let s = positive(Field::GuardRetryCooldown, r.cooldown, 1e-6, 4000.0)?;

@@ -416,6 +416,67 @@ impl Pace {
     }
 }
 
+/// The plant and the guard at the start of a run: a coil at rest or carrying the start current,
+/// a guard told of it or started as after a reset.
+fn begin(s: &Scenario, guard: &Guard, circuit: &Circuit) -> (Plant, coilward::GuardState) {
+    let start = State {
+        current: s.start.current,
+        node: if s.start.current > 0.0 {
+            0.0
+        } else {
+            circuit.supply
+        },
+    };
+    let gs = if !s.start.guard_told {
+        guard.start_after_reset()
+    } else {
+        match guard.model().current_from_amps(s.start.current as f32) {
+            Some(c) if s.start.current > 0.0 => guard.start_with_current(c),
+            _ => guard.start_idle(),
+        }
+    };
+    (Plant::new(*circuit, start), gs)
+}
+
+/// One report row: a step `(start, length, requested and applied duty)` with the plant's
+/// `(rail, reading, current at the start)` and tallies, and the guard's figures (between calls,
+/// those it last gave).
+fn row(
+    model: &coilward::Model,
+    o: Option<&coilward::Output>,
+    last: Option<&Row>,
+    (tk, len, duty_req, duty_applied): (f64, f64, f64, f64),
+    (rail, read, i_start): (f64, f64, f64),
+    (on, off): (&Tally, &Tally),
+    pulse: f64,
+) -> Row {
+    let (est, est_peak, conditions) = match o {
+        Some(o) => (
+            f64::from(model.amps(o.estimate.end)),
+            f64::from(model.amps(o.predicted_peak)),
+            o.active,
+        ),
+        None => last.map_or((0.0, 0.0, Conditions::NONE), |r| {
+            (r.estimated_current_a, r.estimated_peak_a, r.conditions)
+        }),
+    };
+    Row {
+        t_s: tk,
+        duty_requested: duty_req,
+        duty_applied,
+        supply_v: rail,
+        current_a: i_start,
+        mean_current_a: (on.charge + off.charge) / len,
+        peak_current_a: on.peak_current.max(off.peak_current),
+        estimated_current_a: est,
+        estimated_peak_a: est_peak,
+        drain_peak_v: on.peak_node.max(off.peak_node),
+        conditions,
+        supply_read_v: read,
+        clamp_energy_j: pulse,
+    }
+}
+
 fn simulate(
     s: &Scenario,
     guard: &Guard,
@@ -434,23 +495,7 @@ fn simulate(
         breakdown: circuit.breakdown,
         supply: circuit.supply,
     };
-    let start = State {
-        current: s.start.current,
-        node: if s.start.current > 0.0 {
-            0.0
-        } else {
-            circuit.supply
-        },
-    };
-    let mut plant = Plant::new(*circuit, start);
-    let mut gs = if !s.start.guard_told {
-        guard.start_after_reset()
-    } else {
-        match model.current_from_amps(s.start.current as f32) {
-            Some(c) if s.start.current > 0.0 => guard.start_with_current(c),
-            _ => guard.start_idle(),
-        }
-    };
+    let (mut plant, mut gs) = begin(s, guard, circuit);
     let mut adc = Adc {
         cfg: s.adc,
         rng: rand_chacha::ChaCha8Rng::seed_from_u64(s.adc.seed),
@@ -521,33 +566,16 @@ fn simulate(
             run_step(&mut plant, on_time, len, tk, lim.release)?;
         let pulse = walk.account(out, &lim, applied, (&on, &off), t_open, i_open);
         if opts.rows {
-            // Between calls the guard's figures are those it last gave.
-            let last = out.rows.last();
-            let (est, est_peak, conditions) = match &o {
-                Some(o) => (
-                    f64::from(model.amps(o.estimate.end)),
-                    f64::from(model.amps(o.predicted_peak)),
-                    o.active,
-                ),
-                None => last.map_or((0.0, 0.0, Conditions::NONE), |r| {
-                    (r.estimated_current_a, r.estimated_peak_a, r.conditions)
-                }),
-            };
-            out.rows.push(Row {
-                t_s: tk,
-                duty_requested: duty_req,
-                duty_applied: f64::from(applied) / lim.res,
-                supply_v: rail,
-                current_a: i_start,
-                mean_current_a: (on.charge + off.charge) / len,
-                peak_current_a: on.peak_current.max(off.peak_current),
-                estimated_current_a: est,
-                estimated_peak_a: est_peak,
-                drain_peak_v: on.peak_node.max(off.peak_node),
-                conditions,
-                supply_read_v: read,
-                clamp_energy_j: pulse,
-            });
+            let r = row(
+                model,
+                o.as_ref(),
+                out.rows.last(),
+                (tk, len, duty_req, f64::from(applied) / lim.res),
+                (rail, read, i_start),
+                (&on, &off),
+                pulse,
+            );
+            out.rows.push(r);
         }
         out.periods += 1;
         out.simulated_s = tk + len;

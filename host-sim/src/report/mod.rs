@@ -46,8 +46,90 @@ pub fn si(value: f64, unit: &str, digits: usize) -> String {
 
 /// The terminal summary of a run.
 pub fn summary(s: &Scenario, r: &Run) -> String {
-    let mut o = String::new();
+    let mut o = heading(s, r);
     let l = &s.limits;
+    let _ = writeln!(o);
+    let _ = writeln!(
+        o,
+        "  coil current   peak {:>10}   trip at {}, ceiling {}",
+        si(r.peak_current_a, "A", 4),
+        si(f64::from(l.trip_current), "A", 4),
+        si(f64::from(l.current_ceiling), "A", 4)
+    );
+    let _ = writeln!(
+        o,
+        "  switch node    peak {:>10}   breakdown {}",
+        si(r.peak_drain_voltage_v, "V", 4),
+        si(s.plant.breakdown, "V", 4)
+    );
+    let rating = l
+        .clamp_pulse_energy
+        .map_or("no rating given".to_string(), |e| {
+            format!("rating {}", si(f64::from(e), "J", 3))
+        });
+    let _ = writeln!(
+        o,
+        "  clamp pulses   most {:>10}   {rating}; {} in all",
+        si(r.max_pulse_energy_j, "J", 3),
+        si(r.clamp_energy_total_j, "J", 3)
+    );
+    let _ = writeln!(
+        o,
+        "  estimate       worst {:>9}   off the true current, rms {}; at worst {} below it",
+        si(r.estimate.max_abs_error_a, "A", 3),
+        si(r.estimate.rms_error_a, "A", 3),
+        si(r.estimate.max_underestimate_a, "A", 3)
+    );
+    turn_off_table(&mut o, s, r);
+    let raised: Vec<_> = r.events.iter().filter(|e| e.detail != "cleared").collect();
+    let _ = writeln!(o);
+    if raised.is_empty() {
+        let _ = writeln!(o, "  guard: no condition raised");
+    } else {
+        let _ = writeln!(
+            o,
+            "  guard raised {} condition(s); the first ones:",
+            raised.len()
+        );
+        for e in raised.iter().take(8) {
+            let _ = writeln!(
+                o,
+                "    {:>9}  {:<15} {}",
+                si(e.t_s, "s", 5),
+                e.condition,
+                e.detail
+            );
+        }
+        if r.acted_periods > 0 {
+            let of = match s.calls {
+                Calls::EveryPeriod => (r.periods, "periods"),
+                Calls::OnEvents { .. } => (r.calls, "calls"),
+            };
+            let _ = writeln!(
+                o,
+                "  the guard changed the request in {} of {} {}",
+                r.acted_periods, of.0, of.1
+            );
+        }
+    }
+    let _ = writeln!(o);
+    if r.passed() {
+        let _ = writeln!(
+            o,
+            "  verdict: PASS — no limit exceeded and the guard never had to act"
+        );
+    } else {
+        let _ = writeln!(o, "  verdict: FAIL");
+        for f in &r.findings {
+            let _ = writeln!(o, "    {:>9}  {}: {}", si(f.t_s, "s", 5), f.kind, f.detail);
+        }
+    }
+    o
+}
+
+/// The run's first lines: the scenario, its length and calls, the assumed values and beliefs.
+fn heading(s: &Scenario, r: &Run) -> String {
+    let mut o = String::new();
     let _ = writeln!(o, "{} ({})", s.name, s.file.display());
     match s.calls {
         Calls::EveryPeriod => {
@@ -88,38 +170,12 @@ pub fn summary(s: &Scenario, r: &Run) -> String {
             .collect();
         let _ = writeln!(o, "  the firmware believes: {}", names.join(", "));
     }
-    let _ = writeln!(o);
-    let _ = writeln!(
-        o,
-        "  coil current   peak {:>10}   trip at {}, ceiling {}",
-        si(r.peak_current_a, "A", 4),
-        si(f64::from(l.trip_current), "A", 4),
-        si(f64::from(l.current_ceiling), "A", 4)
-    );
-    let _ = writeln!(
-        o,
-        "  switch node    peak {:>10}   breakdown {}",
-        si(r.peak_drain_voltage_v, "V", 4),
-        si(s.plant.breakdown, "V", 4)
-    );
-    let rating = l
-        .clamp_pulse_energy
-        .map_or("no rating given".to_string(), |e| {
-            format!("rating {}", si(f64::from(e), "J", 3))
-        });
-    let _ = writeln!(
-        o,
-        "  clamp pulses   most {:>10}   {rating}; {} in all",
-        si(r.max_pulse_energy_j, "J", 3),
-        si(r.clamp_energy_total_j, "J", 3)
-    );
-    let _ = writeln!(
-        o,
-        "  estimate       worst {:>9}   off the true current, rms {}; at worst {} below it",
-        si(r.estimate.max_abs_error_a, "A", 3),
-        si(r.estimate.rms_error_a, "A", 3),
-        si(r.estimate.max_underestimate_a, "A", 3)
-    );
+    o
+}
+
+/// The turn-offs, one line each.
+fn turn_off_table(o: &mut String, s: &Scenario, r: &Run) {
+    let l = &s.limits;
     if !r.turn_offs.is_empty() {
         let _ = writeln!(o);
         let _ = writeln!(
@@ -149,46 +205,6 @@ pub fn summary(s: &Scenario, r: &Run) -> String {
             );
         }
     }
-    let raised: Vec<_> = r.events.iter().filter(|e| e.detail != "cleared").collect();
-    let _ = writeln!(o);
-    if raised.is_empty() {
-        let _ = writeln!(o, "  guard: no condition raised");
-    } else {
-        let _ = writeln!(
-            o,
-            "  guard raised {} condition(s); the first ones:",
-            raised.len()
-        );
-        for e in raised.iter().take(8) {
-            let _ = writeln!(
-                o,
-                "    {:>9}  {:<15} {}",
-                si(e.t_s, "s", 5),
-                e.condition,
-                e.detail
-            );
-        }
-        if r.acted_periods > 0 {
-            let _ = writeln!(
-                o,
-                "  the guard changed the requested duty in {} of {} periods",
-                r.acted_periods, r.periods
-            );
-        }
-    }
-    let _ = writeln!(o);
-    if r.passed() {
-        let _ = writeln!(
-            o,
-            "  verdict: PASS — no limit exceeded and the guard never had to act"
-        );
-    } else {
-        let _ = writeln!(o, "  verdict: FAIL");
-        for f in &r.findings {
-            let _ = writeln!(o, "    {:>9}  {}: {}", si(f.t_s, "s", 5), f.kind, f.detail);
-        }
-    }
-    o
 }
 
 #[cfg(test)]

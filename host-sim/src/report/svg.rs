@@ -144,9 +144,24 @@ pub fn write(s: &Scenario, r: &Run, path: &Path) -> Result<(), Box<dyn std::erro
         .position(SeriesLabelPosition::UpperRight)
         .draw()?;
 
-    // Switch node.
+    node_panel(&panels[1], s, r, v_node, t_end)?;
+    duty_panel(&panels[2], d_req, d_app, t_end)?;
+    root.present()?;
+    Ok(())
+}
+
+type Area<'a> = DrawingArea<SVGBackend<'a>, plotters::coord::Shift>;
+
+/// The switch node's peak per period against the breakdown.
+fn node_panel(
+    area: &Area,
+    s: &Scenario,
+    r: &Run,
+    v_node: Vec<(f64, f64)>,
+    t_end: f64,
+) -> Result<(), Box<dyn std::error::Error>> {
     let v_max = r.peak_drain_voltage_v.max(s.plant.breakdown) * 1.1;
-    let mut c = ChartBuilder::on(&panels[1])
+    let mut c = ChartBuilder::on(area)
         .margin(12)
         .x_label_area_size(40)
         .y_label_area_size(64)
@@ -174,8 +189,17 @@ pub fn write(s: &Scenario, r: &Run, path: &Path) -> Result<(), Box<dyn std::erro
         .position(SeriesLabelPosition::UpperRight)
         .draw()?;
 
-    // Duty.
-    let mut c = ChartBuilder::on(&panels[2])
+    Ok(())
+}
+
+/// The requested and the applied duty.
+fn duty_panel(
+    area: &Area,
+    d_req: Vec<(f64, f64)>,
+    d_app: Vec<(f64, f64)>,
+    t_end: f64,
+) -> Result<(), Box<dyn std::error::Error>> {
+    let mut c = ChartBuilder::on(area)
         .margin(12)
         .x_label_area_size(40)
         .y_label_area_size(64)
@@ -196,6 +220,5 @@ pub fn write(s: &Scenario, r: &Run, path: &Path) -> Result<(), Box<dyn std::erro
         .background_style(WHITE.mix(0.9))
         .position(SeriesLabelPosition::UpperRight)
         .draw()?;
-    root.present()?;
     Ok(())
 }
