@@ -299,7 +299,13 @@ proptest! {
                 let d = out.duty.signum();
                 if last_dir != 0 && d != last_dir {
                     prop_assert!(now <= release, "reversed at {now}");
-                    prop_assert!(quiet >= g.dead_periods(), "reversed after {quiet} quiet periods");
+                    // The dead time runs from the crossing inside its period, so the whole
+                    // quiet periods after it may be one fewer than the rounded-up count; the
+                    // exact gap is checked against the plant in host-sim/tests/bridge_cosim.rs.
+                    prop_assert!(
+                        quiet.saturating_add(1) >= g.dead_periods(),
+                        "reversed after {quiet} quiet periods"
+                    );
                 }
                 last_dir = d;
                 prop_assert!(out.predicted_peak.to_bits() <= ceiling);

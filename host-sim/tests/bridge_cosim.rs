@@ -154,3 +154,76 @@ fn the_command_line_runs_and_checks_a_bridge_scenario() {
         .unwrap();
     assert_eq!(out.status.code(), Some(2));
 }
+
+/// A latching valve (no motor) switched one way, then the other, in fast decay: a circuit of
+/// our own.
+fn latching_valve(period: &str, dead: &str) -> String {
+    format!(
+        r#"name = "latching valve"
+topology = "full-bridge"
+[supply]
+voltage = "12 V"
+min = "10 V"
+max = "14 V"
+[coil]
+inductance = "8 mH"
+resistance = "12 Ω"
+[switch]
+on_resistance = "50 mΩ"
+breakdown = "30 V"
+[body_diode]
+forward_voltage = "0.8 V"
+resistance = "20 mΩ"
+[decay]
+mode = "fast"
+[control]
+period = "{period}"
+duty_resolution = 1000
+current_full_scale = "2 A"
+[guard]
+current_ceiling = "1.2 A"
+trip_current = "1.5 A"
+release_current = "20 mA"
+reversal_dead_time = "{dead}"
+[[drive]]
+at = "0 ms"
+duty = "100 %"
+[[drive]]
+at = "5 ms"
+duty = "-100 %"
+[[drive]]
+at = "12 ms"
+duty = "0 %"
+[run]
+duration = "14 ms"
+"#
+    )
+}
+
+#[test]
+fn a_reversal_waits_the_whole_dead_time_from_the_true_release() {
+    // The dead time runs from the instant the current reached the release level inside its
+    // period, so the true gap (the plant's located crossing to the first drive the other way)
+    // is never below the configured dead time, and exceeds it by less than a period plus the
+    // estimate's lead. Counting the crossing's period as a whole quiet period let this drive
+    // go up to one period early.
+    for (period, dead) in [
+        ("50 us", "500 us"),
+        ("100 us", "500 us"),
+        ("100 us", "480 us"),
+        ("70 us", "525 us"),
+    ] {
+        let s = scenario(&latching_valve(period, dead));
+        let r = run(&s, false);
+        assert!(r.passed(), "{period} {dead}: {:?}", r.findings);
+        let v = r.reversals[0];
+        let gap = v.driven_s.expect("driven") - v.true_release_s.expect("settled");
+        let (t, d) = (s.period, f64::from(s.limits.reversal_dead_time));
+        eprintln!(
+            "CHECK latching valve, period {period}, dead time {dead}: true gap {:.1} µs",
+            gap * 1e6
+        );
+        assert!(gap >= d - 1e-9, "{gap} < {d}");
+        assert!(gap < d + 2.0 * t, "{gap} vs {d}");
+    }
+}

@@ -4,8 +4,9 @@
 //! # Protections
 //! - **Reversal interlock** (`reversal-hold`): a request in the other direction than the last
 //!   drive is held (output off) until the current magnitude is at or below the release current
-//!   and then, with the output still off, for the configured dead time (whole periods, rounded
-//!   up). While it holds, the off part is fast decay whatever the configured mode (slow decay
+//!   and then, with the output still off, for the configured dead time, counted from the
+//!   instant the estimate reached the release level (the closed-form crossing inside its
+//!   period, rounded toward later), so the gap is never shorter than configured. While it holds, the off part is fast decay whatever the configured mode (slow decay
 //!   would keep a braking current flowing as long as a motor turns), unless `supply-pump` asks
 //!   for recirculation. Driving again in the same direction is ordinary
 //!   PWM and is not held. After a reset the direction of a possible current is unknown, so
@@ -203,8 +204,10 @@ pub struct BridgeState {
     applied: i32,
     decay: AppliedDecay,
     direction: Direction,
-    /// Consecutive periods with the output off and the current at or below the release level.
-    quiet: u32,
+    /// Time since the estimate fell to the release level with the output off since, µs: from
+    /// the closed-form crossing inside the period where it fell (rounded toward later), then
+    /// whole periods; 0 while driven or above the level.
+    quiet_us: u32,
     /// Charge on the bulk capacitance above rest, Charge bits.
     bus: i64,
     returned: Charge,
@@ -252,6 +255,8 @@ pub struct BridgeGuard {
     trip: i64,
     release: i64,
     dead_periods: u32,
+    /// The reversal dead time, µs (rounded up).
+    dead_us: u32,
     period_us: u32,
     policy: BridgePolicy,
     supply_min: u32,
@@ -308,6 +313,7 @@ impl BridgeGuard {
             trip,
             release,
             dead_periods,
+            dead_us: libm::ceil(f64::from(dead) * 1e6 - 1e-3).max(0.0) as u32,
             period_us: (libm::round(period * 1e6) as u32).max(1),
             policy: limits.policy,
             supply_min: v_min.to_bits(),
@@ -322,9 +328,16 @@ impl BridgeGuard {
         &self.model
     }
 
-    /// The reversal dead time in whole periods.
+    /// The reversal dead time in whole periods (rounded up): the most periods it can hold a
+    /// reversal after the period in which the current fell to the release level.
     pub const fn dead_periods(&self) -> u32 {
         self.dead_periods
+    }
+
+    /// The reversal dead time, µs (rounded up), counted from the instant the estimate fell to
+    /// the release level.
+    pub const fn dead_time_us(&self) -> u32 {
+        self.dead_us
     }
 
     /// State for a coil known to carry no current.
@@ -334,7 +347,7 @@ impl BridgeGuard {
             applied: 0,
             decay: AppliedDecay::Configured,
             direction: Direction::None,
-            quiet: u32::MAX,
+            quiet_us: u32::MAX,
             bus: 0,
             returned: Charge::ZERO,
             active: Conditions::NONE,
@@ -348,7 +361,7 @@ impl BridgeGuard {
         BridgeState {
             coil: BridgeCoil::with_current(current),
             direction: Direction::of(current.to_bits()),
-            quiet: 0,
+            quiet_us: 0,
             ..self.start_idle()
         }
     }
@@ -404,6 +417,7 @@ impl BridgeGuard {
         let m = &self.model;
         let n_full = m.duty_resolution() as i32; // <= 65535
         // 1. The period just ended.
+        let i_start = state.coil.current();
         let est = m.step_with(
             &mut state.coil,
             state.applied,
@@ -473,9 +487,26 @@ impl BridgeGuard {
             AppliedDecay::Configured
         };
 
-        // 3. The interlock.
-        state.quiet = if state.applied == 0 && mag <= self.release {
-            state.quiet.saturating_add(1)
+        // 3. The interlock. The dead time runs from the instant the estimate reached the
+        // release level, not from the end of the period in which it did.
+        state.quiet_us = if state.applied == 0 && mag <= self.release {
+            let start = i_start.to_bits().unsigned_abs();
+            if start <= self.release as u64 {
+                state.quiet_us.saturating_add(self.period_us)
+            } else {
+                // Fell inside the period just ended: the crossing, rounded up (so the quiet time
+                // is never overstated), from the closed form of the decay that was applied.
+                let fell = m
+                    .decay_time_us(
+                        i_start,
+                        Current::from_bits(self.release),
+                        input.supply,
+                        input.back_emf,
+                        state.decay,
+                    )
+                    .unwrap_or(self.period_us);
+                self.period_us.saturating_sub(fell)
+            }
         } else {
             0
         };
@@ -494,7 +525,7 @@ impl BridgeGuard {
                 Direction::Unknown => true,
                 d => d != wanted,
             };
-        if reversing && (mag > self.release || state.quiet < self.dead_periods) {
+        if reversing && (mag > self.release || state.quiet_us < self.dead_us) {
             duty = 0;
             active.insert(Condition::ReversalHold);
             // The quickest decay: through the diodes, against the supply. Slow decay would
@@ -502,9 +533,11 @@ impl BridgeGuard {
             if decay == AppliedDecay::Configured {
                 decay = AppliedDecay::Fast;
             }
-            let dead_left =
-                self.dead_periods
-                    .saturating_sub(if mag > self.release { 0 } else { state.quiet });
+            let dead_left = self.dead_us.saturating_sub(if mag > self.release {
+                0
+            } else {
+                state.quiet_us
+            });
             reversal_in = m
                 .decay_time_us(
                     Current::from_bits(i_now),
@@ -513,10 +546,10 @@ impl BridgeGuard {
                     input.back_emf,
                     decay,
                 )
-                .map(|t| t.saturating_add(dead_left.saturating_mul(self.period_us)));
+                .map(|t| t.saturating_add(dead_left));
         } else if state.direction == Direction::Unknown
             && mag <= self.release
-            && state.quiet >= self.dead_periods
+            && state.quiet_us >= self.dead_us
         {
             // The assumed current has decayed: nothing is known to flow any more.
             state.direction = Direction::None;

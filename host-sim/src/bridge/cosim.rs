@@ -51,9 +51,8 @@ pub struct Reversal {
     pub driven_s: Option<f64>,
     /// True current when the other direction was first driven, A.
     pub current_at_drive_a: f64,
-    /// From when the true current stayed at or below the release current until the drive, s
-    /// (the end of the last period before the drive in which it was above; `None`: it never
-    /// settled).
+    /// From when the true current stayed at or below the release current until the drive, s:
+    /// the instant it last came down to the release level (`None`: it never settled).
     pub true_release_s: Option<f64>,
 }
 
@@ -244,6 +243,20 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
                         ),
                     );
                 }
+                let dead = f64::from(s.limits.reversal_dead_time);
+                if let Some(settled) = pending.as_ref().and_then(|p| p.true_release_s)
+                    && t - settled < dead - 1e-9
+                {
+                    r.find(
+                        "reversed-before-dead-time",
+                        t,
+                        format!(
+                            "the bridge drove the other way {:.1} µs after the true current fell to the release level (dead time {:.1} µs)",
+                            (t - settled) * 1e6,
+                            dead * 1e6
+                        ),
+                    );
+                }
                 if let Some(mut p) = pending.take() {
                     p.driven_s = Some(t);
                     p.current_at_drive_a = i_true;
@@ -255,6 +268,7 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
         // The period on the plant.
         let mut tally = BridgeTally::starting(plant.state);
         tally.time_offset = t;
+        tally.watch = Some(release);
         if let Err(e) = apply(
             &mut plant,
             &mut legs,
@@ -268,10 +282,21 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
         }
         let peak = tally.peak_current.abs().max(tally.least_current.abs());
         if let Some(p) = pending.as_mut() {
-            if peak > release {
-                p.true_release_s = None;
-            } else {
+            // Settled since the start of the period, since the instant inside it at which the
+            // current came down to the level, or not (still or again above it at the end).
+            let end = plant.state.current.abs();
+            if peak <= release {
                 p.true_release_s.get_or_insert(t);
+            } else if end <= release {
+                // From above: the plant's located crossing. From below and back (above in
+                // between): the end of the period, the latest it can have been.
+                p.true_release_s = if i_true.abs() > release {
+                    tally.below_at
+                } else {
+                    Some(t + s.period)
+                };
+            } else {
+                p.true_release_s = None;
             }
         }
         r.peak_current_a = r.peak_current_a.max(peak);
