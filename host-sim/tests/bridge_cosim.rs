@@ -120,6 +120,49 @@ fn a_small_bus_that_cannot_sink_makes_the_guard_recirculate() {
 }
 
 #[test]
+fn plug_braking_that_no_decay_can_hold_stops_driving_before_the_bus_passes_its_maximum() {
+    // 20 µF that cannot sink, and a 3 A ceiling that the rotor's own braking current passes
+    // (0.015 V·s/rad × 440 rad/s over 2.04 Ω is 3.2 A): neither decay keeps both the bus and
+    // the ceiling. The bus comes first: the guard stops driving against the rotation and
+    // recirculates, with supply-pump raised, instead of alternating slow braking with fast
+    // periods that the ceiling forced (each of which lifted the rail; the bus then reached
+    // 20.6 V, 1.47 × its 14 V maximum). The rail pushes back on the coil and is what the guard
+    // reads (the plant's bus is checked against ngspice in bridge_ngspice.rs).
+    let t = text()
+        .replace("capacitance = \"470 µF\"", "capacitance = \"20 µF\"")
+        .replace("sink_current = \"2 A\"", "sink_current = \"0 A\"")
+        .replace("current_ceiling = \"4 A\"", "current_ceiling = \"3 A\"");
+    let s = scenario(&t);
+    let r = run(&s, true);
+    let v_max = f64::from(s.params.supply.max);
+    eprintln!(
+        "CHECK plug braking on 20 µF: bus peak {:.2} V (max {v_max} V, breakdown {} V), current peak {:.2} A",
+        r.peak_bus_v, s.params.switch.breakdown, r.peak_current_a
+    );
+    assert!(r.peak_bus_v <= v_max, "{:?}", r.findings);
+    assert!(r.peak_bus_v < f64::from(s.params.switch.breakdown));
+    assert!(
+        r.events
+            .iter()
+            .any(|e| e.condition == "supply-pump" && e.detail == "raised")
+    );
+    assert!(r.peak_current_a < f64::from(s.limits.trip_current));
+    assert!(
+        !r.findings.iter().any(|f| f.kind == "guard-tripped"),
+        "{:?}",
+        r.findings
+    );
+    // No alternation: while supply-pump is active, the off part is never fast.
+    let pumped: Vec<_> = r
+        .rows
+        .iter()
+        .filter(|x| x.conditions.contains(Condition::SupplyPump))
+        .collect();
+    assert!(!pumped.is_empty());
+    assert!(pumped.iter().all(|x| x.recirculated));
+}
+
+#[test]
 fn the_command_line_runs_and_checks_a_bridge_scenario() {
     let exe = env!("CARGO_BIN_EXE_coilward-sim");
     let out = Command::new(exe).arg("check").arg(demo()).output().unwrap();

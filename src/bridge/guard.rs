@@ -21,13 +21,19 @@
 //!   capacitance above its resting level is tracked per period in the period's order: the
 //!   drive part draws first (`q ← max(0, q − drawn)`, the supply sourcing the rest), then the
 //!   fast part returns (`q ← q + max(0, returned − I_sink·t_fast)`), with the supply taken as
-//!   stiff for the coil (a rising bus returns less, so `q` can only be overstated). `q` is
-//!   the peak of the period. The condition is raised when one more period like the last
-//!   would take `q` past `C·(V_max − V_nom)`, and stays until `q` is back below half of
-//!   that.
-//!   While it is active the default response turns the off part into slow decay, which
-//!   returns nothing.
-//!
+//!   stiff for the coil (a rising bus returns less, so `q` can only be overstated). Before a
+//!   plan is applied, the charge it would return — the coil's current decaying against the
+//!   bus, with whatever the back-EMF of a turning rotor adds — is predicted the same way; when
+//!   it would take `q` past the headroom `C·(V_max − V_nom)` the condition is raised (it stays
+//!   until `q` is back below half of that) and the default response returns nothing: the off
+//!   part recirculates (slow decay), with the largest drive that keeps the period under the
+//!   ceiling, and no drive at all when recirculation alone passes it (plug braking on a
+//!   turning rotor). When no plan keeps both the bus and the ceiling the bus comes first — a
+//!   rail past the switches' breakdown destroys them — and `current-limit` says the ceiling
+//!   yielded; the trip still guards the current. The firmware should give the guard the
+//!   measured bus as its supply, so that `supply-range` sees a rise too. Validation refuses a
+//!   breakdown that fast decay at the maximum supply would reach.
+
 //! # Panics
 //! None: inputs are clamped, sums saturate, shifts are checked.
 
@@ -264,6 +270,19 @@ pub struct BridgeGuard {
     worst_current: i64,
 }
 
+/// The highest current magnitude over a period of `duty` and `decay` from `i_now`.
+fn magnitude_at(
+    m: &BridgeModel,
+    i_now: i64,
+    supply: Volts,
+    emf: SignedVolts,
+) -> impl Fn(i32, AppliedDecay) -> i64 + '_ {
+    move |duty, decay| {
+        let c = m.corners(i_now, duty, supply, emf, decay);
+        c.iter().map(|x| x.saturating_abs()).max().unwrap_or(0)
+    }
+}
+
 fn amps_to_raw(model: &BridgeModel, field: Field, amps: f32) -> Result<i64, ConfigError> {
     crate::guard::limit_current(model.derived().full_scale, field, amps, |a| {
         model.current_from_amps(a)
@@ -375,6 +394,54 @@ impl BridgeGuard {
         }
     }
 
+    /// The bus charge above rest after a period of `duty` and `decay` that drew and returned
+    /// these charges, from `bus`: the drive part draws first (the capacitor gives back its extra
+    /// charge before the supply sources the rest), then the fast part returns, less what the
+    /// supply sinks meanwhile.
+    fn bus_after(
+        &self,
+        bus: i64,
+        duty: i32,
+        decay: AppliedDecay,
+        drawn: Charge,
+        returned: Charge,
+    ) -> i64 {
+        let Some(b) = self.model.bus else { return 0 };
+        let (_, fast, _) = self.model.split(duty, decay);
+        let sunk = b.sink_per_count.saturating_mul(i64::from(fast));
+        let gain = returned.to_bits().saturating_sub(sunk).max(0);
+        bus.saturating_sub(drawn.to_bits().max(0))
+            .max(0)
+            .saturating_add(gain)
+    }
+
+    /// A plan that returns nothing to the bus: the off part in slow decay, with the largest
+    /// duty (of `duty`'s sign, at most its magnitude) whose period stays under the ceiling, or
+    /// no drive at all when even recirculation alone passes it (plug braking on a turning
+    /// rotor: driving against it only adds energy the bus would have to take).
+    fn spare_the_bus(
+        &self,
+        duty: i32,
+        magnitude: &dyn Fn(i32, AppliedDecay) -> i64,
+    ) -> (i32, AppliedDecay) {
+        let slow = AppliedDecay::Slow;
+        if magnitude(duty, slow) <= self.ceiling {
+            return (duty, slow);
+        }
+        let (d, n) = (duty.signum(), duty.unsigned_abs());
+        let (mut lo, mut hi) = (0u32, n);
+        while hi - lo > 1 {
+            let mid = lo + (hi - lo) / 2;
+            if magnitude(d * mid as i32, slow) <= self.ceiling {
+                lo = mid;
+            } else {
+                hi = mid;
+            }
+        }
+        // lo <= 65535; at lo = 0 no drive is left, fitting or not.
+        (d * lo as i32, slow)
+    }
+
     /// Clears latched trips. Conditions still present trip again.
     pub fn clear(&self, state: &mut BridgeState) {
         state.latched = Conditions::NONE;
@@ -426,21 +493,17 @@ impl BridgeGuard {
             state.decay,
         );
         state.returned = state.returned.saturating_add(est.returned);
-        // 2. The bus.
+        // 2. The bus: the period just ended, then whether it is still recovering from a pump.
         let mut pump = false;
         if let Some(b) = m.bus {
-            // The drive part comes first: the capacitor gives back its extra charge before the
-            // supply sources the rest. Then the fast part returns charge, less what the supply
-            // sinks meanwhile.
-            let (_, fast, _) = m.split(state.applied, state.decay);
-            let sunk = b.sink_per_count.saturating_mul(i64::from(fast));
-            let gain = est.returned.to_bits().saturating_sub(sunk).max(0);
-            let drawn = est.drawn.to_bits().max(0);
-            state.bus = state.bus.saturating_sub(drawn).max(0).saturating_add(gain);
-            // One more period like this one.
-            let next = state.bus.saturating_sub(drawn).max(0).saturating_add(gain);
-            let was = state.active.contains(Condition::SupplyPump);
-            pump = next > b.headroom || (was && state.bus > b.headroom >> 1);
+            state.bus = self.bus_after(
+                state.bus,
+                state.applied,
+                state.decay,
+                est.drawn,
+                est.returned,
+            );
+            pump = state.active.contains(Condition::SupplyPump) && state.bus > b.headroom >> 1;
         }
         let vs = m.supply_bits(input.supply);
         let i_now = state.coil.current().to_bits();
@@ -588,15 +651,34 @@ impl BridgeGuard {
         // A spinning motor can push the recirculating current past the ceiling whatever the
         // duty (slow decay is a brake): then the off part decays fast instead, through the
         // diodes, against the supply.
-        let magnitude = |decay: AppliedDecay| -> i64 {
-            let c = m.corners(i_now, duty, supply, emf, decay);
-            c.iter().map(|x| x.saturating_abs()).max().unwrap_or(0)
-        };
-        let mut predicted = magnitude(decay);
+        let magnitude = magnitude_at(m, i_now, supply, emf);
+        let mut predicted = magnitude(duty, decay);
         if predicted > self.ceiling && decay != AppliedDecay::Fast && m.has_slow_part(decay) {
             decay = AppliedDecay::Fast;
-            predicted = magnitude(decay);
+            predicted = magnitude(duty, decay);
             active.insert(Condition::CurrentLimit);
+        }
+        // 5. The bus over the coming period: the charge the plan would return against the
+        // headroom, before it is returned.
+        if let Some(b) = m.bus {
+            let after = |duty: i32, decay: AppliedDecay| -> i64 {
+                let p = m.parts(i_now, duty, supply, emf, decay);
+                let (drawn, returned) = (Charge::from_bits(p.drawn), Charge::from_bits(p.returned));
+                self.bus_after(state.bus, duty, decay, drawn, returned)
+            };
+            if after(duty, decay) > b.headroom {
+                active.insert(Condition::SupplyPump);
+                if pol.supply_pump == PumpResponse::Recirculate {
+                    (duty, decay) = self.spare_the_bus(duty, &magnitude);
+                    predicted = magnitude(duty, decay);
+                    if predicted > self.ceiling {
+                        // Neither decay keeps both the bus and the ceiling: the bus comes first
+                        // (a rail past the switches' breakdown destroys them); the trip still
+                        // guards the current.
+                        active.insert(Condition::CurrentLimit);
+                    }
+                }
+            }
         }
         active = active.union(state.latched);
         state.applied = duty;

@@ -322,10 +322,10 @@ fn integral(from: i64, to: i64, a: i64, n: u32, tau: Gain) -> i64 {
 
 /// One period's corners and charges.
 #[derive(Debug, Clone, Copy)]
-struct Parts {
-    corners: [i64; 4],
-    drawn: i64,
-    returned: i64,
+pub(crate) struct Parts {
+    pub(crate) corners: [i64; 4],
+    pub(crate) drawn: i64,
+    pub(crate) returned: i64,
 }
 
 impl BridgeModel {
@@ -638,7 +638,7 @@ impl BridgeModel {
         [i0, i1, i2, i3]
     }
 
-    fn parts(
+    pub(crate) fn parts(
         &self,
         i0: i64,
         duty: i32,

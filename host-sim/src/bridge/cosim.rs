@@ -1,8 +1,9 @@
 //! Co-simulation of the bridge guard against the bridge plant, one control period at a time.
 //!
-//! Each period k (t_k = k·T): the guard's `tick` gets the requested signed duty, the supply and
-//! — when the scenario says the firmware measures the speed — the back-EMF from the plant's
-//! speed; its plan is carried out on the plant phase by phase, with the gate dead time at every
+//! Each period k (t_k = k·T): the guard's `tick` gets the requested signed duty, the rail as
+//! measured at the period start (the supply, or the bus lifted by the charge the bridge
+//! returned) and — when the scenario says the firmware measures the speed — the back-EMF from
+//! the plant's speed; its plan is carried out on the plant phase by phase, with the gate dead time at every
 //! change of a leg between high and low (the changing leg floats for the dead time). The run
 //! starts one period before t = 0 with the bridge off, as for the low-side co-simulation.
 
@@ -195,11 +196,14 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
             coilward::SignedVolts::ZERO
         };
         let i_true = plant.state.current;
+        // The firmware measures the rail it drives from: the bus, lifted by what came back.
+        let rail = plant.rail();
+        let vs = Volts::saturating_from_num(rail);
         let out = guard.tick(&mut state, BridgeInput::new(request, vs).with_back_emf(emf));
         let est = f64::from(m.amps(state.current()));
         let err = (est - i_true).abs();
         r.max_estimate_error_a = r.max_estimate_error_a.max(err);
-        r.estimated_returned_energy_j += m.coulombs(out.estimate.returned) * supply;
+        r.estimated_returned_energy_j += m.coulombs(out.estimate.returned) * rail;
         // Events.
         for c in Condition::ALL {
             if out.raised.contains(c) {

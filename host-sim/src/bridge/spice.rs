@@ -5,7 +5,9 @@
 //! a near-ideal diode). The gates are pulse trains: drive for `duty·T` from each period start,
 //! then the decay mode's switches (none for fast decay, both low-side switches for slow decay,
 //! the fast share first for mixed decay). After the last period every gate follows the decay
-//! mode at zero duty. A constant back-EMF is a DC source in series with the coil.
+//! mode at zero duty. A constant back-EMF is a DC source in series with the coil. A bus is a
+//! capacitor fed from the supply through a near-ideal diode, with its sink as a current that
+//! switches on a millivolt above the supply.
 
 use crate::bridge::plant::{BridgeCircuit, BridgePlant, BridgeState, BridgeTally};
 use crate::plant::PlantError;
@@ -18,7 +20,7 @@ use std::fmt::Write as _;
 pub struct BridgeCase {
     /// Name (the netlist's file name).
     pub name: &'static str,
-    /// The circuit (no rotor, no bus: a coil with an optional constant back-EMF).
+    /// The circuit (no rotor: a coil with an optional constant back-EMF; optionally a bus).
     pub c: BridgeCircuit,
     /// Share of the off part in fast decay: 1 fast, 0 slow, between: mixed.
     pub fast_share: f64,
@@ -86,11 +88,29 @@ pub fn netlist(k: &BridgeCase) -> String {
     let mut n = String::new();
     writeln!(n, "coilward-sim bridge cross-check: {}", k.name).unwrap();
     writeln!(n, "V1 src 0 DC {}", c.supply).unwrap();
-    writeln!(n, "Vis src vs DC 0").unwrap();
+    match c.bus {
+        // The supply behind a near-ideal diode, the bus capacitance, and the sink: a current
+        // that switches on over a millivolt above the supply.
+        Some(b) => {
+            writeln!(n, "Dsup src vs dideal").unwrap();
+            writeln!(n, "Cbus vs 0 {} IC={}", b.capacitance, c.supply).unwrap();
+            if b.sink_current > 0.0 {
+                writeln!(
+                    n,
+                    "Bsink vs 0 I={}*(1+tanh((v(vs)-{}-1m)/0.25m))/2",
+                    b.sink_current, c.supply
+                )
+                .unwrap();
+            }
+        }
+        None => writeln!(n, "Vwire src vs DC 0").unwrap(),
+    }
+    // The bridge's rail, through a current sense.
+    writeln!(n, "Vis vs vr DC 0").unwrap();
     for (sw, a, b, g) in [
-        ("ah", "vs", "na", "gah"),
+        ("ah", "vr", "na", "gah"),
         ("al", "na", "0", "gal"),
-        ("bh", "vs", "nb", "gbh"),
+        ("bh", "vr", "nb", "gbh"),
         ("bl", "nb", "0", "gbl"),
     ] {
         writeln!(n, "S{sw} {a} {b} {g} 0 swmod").unwrap();
@@ -99,7 +119,7 @@ pub fn netlist(k: &BridgeCase) -> String {
     for leg in ["na", "nb"] {
         writeln!(n, "Vh{leg} {leg} h1{leg} DC {}", c.diode_drop).unwrap();
         writeln!(n, "Rh{leg} h1{leg} h2{leg} {}", r(c.diode_resistance)).unwrap();
-        writeln!(n, "Dh{leg} h2{leg} vs dideal").unwrap();
+        writeln!(n, "Dh{leg} h2{leg} vr dideal").unwrap();
         writeln!(n, "Vl{leg} 0 l1{leg} DC {}", c.diode_drop).unwrap();
         writeln!(n, "Rl{leg} l1{leg} l2{leg} {}", r(c.diode_resistance)).unwrap();
         writeln!(n, "Dl{leg} l2{leg} {leg} dideal").unwrap();
@@ -139,8 +159,8 @@ pub fn netlist(k: &BridgeCase) -> String {
     )
     .unwrap();
     writeln!(n, ".model dideal D(IS=1e-14 N=0.002)").unwrap();
-    // Returned power: the supply voltage times the current flowing back into it.
-    writeln!(n, "Bret ret 0 V={}*(-i(Vis))*u(-i(Vis))", c.supply).unwrap();
+    // Returned power: the rail's voltage times the current flowing back into it.
+    writeln!(n, "Bret ret 0 V=v(vr)*(-i(Vis))*u(-i(Vis))").unwrap();
     writeln!(n, ".options reltol=1e-5 abstol=1e-10 vntol=1e-7").unwrap();
     let step = t / 400.0;
     writeln!(n, ".tran {step} {t_end} 0 {step} uic").unwrap();
@@ -154,6 +174,7 @@ pub fn netlist(k: &BridgeCase) -> String {
     )
     .unwrap();
     writeln!(n, ".meas tran eret INTEG v(ret) from=0 to={t_end}").unwrap();
+    writeln!(n, ".meas tran vbus MAX v(vs) from=0 to={t_end}").unwrap();
     writeln!(n, ".end").unwrap();
     n
 }
@@ -169,6 +190,8 @@ pub struct BridgeMeasured {
     pub decay: Option<f64>,
     /// Energy returned to the supply over the run, J.
     pub returned: f64,
+    /// Highest rail voltage over the run, V.
+    pub peak_rail: f64,
 }
 
 /// The same drive on the plant.
@@ -178,6 +201,7 @@ pub struct BridgeMeasured {
 pub fn plant(k: &BridgeCase) -> Result<BridgeMeasured, PlantError> {
     let mut p = BridgePlant::new(k.c, BridgeState::default());
     let mut returned = 0.0;
+    let mut peak_bus: f64 = 0.0;
     let mut last = BridgeTally::starting(p.state);
     for _ in 0..k.periods {
         last = BridgeTally::starting(p.state);
@@ -187,6 +211,7 @@ pub fn plant(k: &BridgeCase) -> Result<BridgeMeasured, PlantError> {
             }
         }
         returned += last.returned_energy;
+        peak_bus = peak_bus.max(last.peak_bus_charge);
     }
     let end = p.state.current;
     // Zero duty in the same mode: the first time the current is at the release level (the
@@ -203,6 +228,7 @@ pub fn plant(k: &BridgeCase) -> Result<BridgeMeasured, PlantError> {
             tally.watch = Some(k.release);
             p.run(a, b, d, &mut tally)?;
             returned += tally.returned_energy;
+            peak_bus = peak_bus.max(tally.peak_bus_charge);
             if decay.is_none() {
                 decay = tally.below_at;
             }
@@ -214,6 +240,7 @@ pub fn plant(k: &BridgeCase) -> Result<BridgeMeasured, PlantError> {
         end,
         decay,
         returned,
+        peak_rail: k.c.supply + k.c.bus.map_or(0.0, |b| peak_bus / b.capacitance),
     })
 }
 
