@@ -287,6 +287,8 @@ pub enum Field {
     SwitchOnResistance,
     /// `switch.breakdown`
     SwitchBreakdown,
+    /// `switch.dead_time` (full bridge: the gate dead time at each leg's change)
+    SwitchDeadTime,
     /// `clamp.forward_drop`
     ClampForwardDrop,
     /// `clamp.zener_voltage`
@@ -394,6 +396,7 @@ impl Field {
             Field::CoilSaturatedInductance => "coil.saturation.inductance",
             Field::SwitchOnResistance => "switch.on_resistance",
             Field::SwitchBreakdown => "switch.breakdown",
+            Field::SwitchDeadTime => "switch.dead_time",
             Field::ClampForwardDrop => "clamp.forward_drop",
             Field::ClampZenerVoltage => "clamp.zener_voltage",
             Field::ClampVoltage => "clamp.clamp_voltage",

@@ -418,6 +418,17 @@ fn invalid_bridge_parameters_name_their_field() {
     );
     p = params(DecayMode::Fast).with_bus(BusParams::new(-1.0, 0.0));
     assert_eq!(err(p).field, Field::BusCapacitance);
+    p = params(DecayMode::Slow).with_gate_dead_time(-1e-6);
+    assert_eq!(err(p).field.name(), "switch.dead_time");
+    // A quarter of the 50 µs period or more is refused.
+    p = params(DecayMode::Slow).with_gate_dead_time(13e-6);
+    assert_eq!(err(p).field, Field::SwitchDeadTime);
+    assert!(
+        params(DecayMode::Slow)
+            .with_gate_dead_time(2e-6)
+            .validate()
+            .is_ok()
+    );
     let limits = BridgeLimits::new(2.5, 3.0, 0.05, -1.0);
     assert_eq!(
         BridgeGuard::new(&params(DecayMode::Fast), &limits)

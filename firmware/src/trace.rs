@@ -13,7 +13,8 @@ use coilward::{
 /// Periods in the trace.
 pub const PERIODS: u32 = 10_000;
 
-/// The full-bridge demo (a small motor winding, mixed decay, a back-EMF input, a bus), shared by
+/// The full-bridge demo (a small motor winding, mixed decay, a back-EMF input, a bus, 500 ns of
+/// gate dead time), shared by
 /// the panic-free build, the configuration-only build and the benchmark.
 pub fn bridge_params() -> coilward::bridge::BridgeParams {
     use coilward::bridge::{BodyDiode, BridgeParams, BusParams, DecayMode, MotorParams};
@@ -27,6 +28,7 @@ pub fn bridge_params() -> coilward::bridge::BridgeParams {
     )
     .with_motor(MotorParams::new(10.0, 0.015))
     .with_bus(BusParams::new(470e-6, 2.0))
+    .with_gate_dead_time(500e-9)
 }
 
 /// The bridge demo's limits: 4 A ceiling, 5 A trip, 50 mA release, 2 ms dead time.

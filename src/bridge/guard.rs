@@ -289,12 +289,12 @@ fn largest_count(n: u32, fits: impl Fn(u32) -> bool) -> u32 {
 /// The highest current magnitude over a period of `duty` and `decay` from `i_now`.
 fn magnitude_at(
     m: &BridgeModel,
-    i_now: i64,
+    (i_now, after_slow): (i64, bool),
     supply: Volts,
     emf: SignedVolts,
 ) -> impl Fn(i32, AppliedDecay) -> i64 + '_ {
     move |duty, decay| {
-        let c = m.corners(i_now, duty, supply, emf, decay);
+        let c = m.corners(i_now, after_slow, duty, supply, emf, decay);
         c.iter().map(|x| x.saturating_abs()).max().unwrap_or(0)
     }
 }
@@ -632,8 +632,9 @@ impl BridgeGuard {
         // highest current grows with the drive counts (more drive time at a voltage beyond
         // either decay's), so the largest duty that fits is found by bisection.
         let (supply, emf) = (input.supply, input.back_emf);
+        let after_slow = state.coil.after_slow();
         let reach = |duty: i32, decay: AppliedDecay| -> i64 {
-            let c = m.corners(i_now, duty, supply, emf, decay);
+            let c = m.corners(i_now, after_slow, duty, supply, emf, decay);
             let d = i64::from(duty.signum());
             c.iter().map(|&x| x * d).max().unwrap_or(0)
         };
@@ -653,7 +654,7 @@ impl BridgeGuard {
         // A spinning motor can push the recirculating current past the ceiling whatever the
         // duty (slow decay is a brake): then the off part decays fast instead, through the
         // diodes, against the supply.
-        let magnitude = magnitude_at(m, i_now, supply, emf);
+        let magnitude = magnitude_at(m, (i_now, after_slow), supply, emf);
         let mut predicted = magnitude(duty, decay);
         if predicted > self.ceiling && decay != AppliedDecay::Fast && m.has_slow_part(decay) {
             decay = AppliedDecay::Fast;
@@ -664,7 +665,7 @@ impl BridgeGuard {
         // headroom, before it is returned.
         if let Some(b) = m.bus {
             let after = |duty: i32, decay: AppliedDecay| -> i64 {
-                let p = m.parts(i_now, duty, supply, emf, decay);
+                let p = m.parts(i_now, after_slow, duty, supply, emf, decay);
                 let (drawn, returned) = (Charge::from_bits(p.drawn), Charge::from_bits(p.returned));
                 self.bus_after(state.bus, duty, decay, drawn, returned)
             };

@@ -17,6 +17,12 @@
 //! | fast decay, `i > 0` | none (diodes of low A, high B) | `−(Vs + 2V_f + 2R_d·i)` | `−(Vs + 2V_f + E)/(R + 2R_d)`, stops at 0 | τ_fast = L/(R + 2R_d) |
 //! | fast decay, `i < 0` | none (diodes of low B, high A) | `Vs + 2V_f − 2R_d·i` | `(Vs + 2V_f − E)/(R + 2R_d)`, stops at 0 | τ_fast |
 //!
+//! With a gate dead time `t_d` (`BridgeParams::with_gate_dead_time`, whole timer counts rounded
+//! down), a leg that changes between high and low floats for `t_d` first: with the current in
+//! the drive's direction its low diode carries it, `L·di/dt = −(V_f + E) − (R + R_on + R_d)·i`,
+//! an exact segment of its own at the start of a drive that follows slow decay and at the
+//! start of a slow part that follows the drive (see `BridgeModel::path`).
+//!
 //! Mixed decay spends the configured share of the off part in fast decay, then the rest in slow
 //! decay. Slow decay conducts both ways (the switches are on), so with a spinning motor the
 //! current may cross zero there (dynamic braking); fast decay stops at zero because the diodes
@@ -170,6 +176,9 @@ pub struct BridgeParams {
     pub motor: MotorParams,
     /// Bulk capacitance and sink (default: none, `supply-pump` is not evaluated).
     pub bus: Option<BusParams>,
+    /// The gate dead time at each change of a leg between high and low, s (default 0; 0 ..=
+    /// 1 ms, under a quarter of the period): give the hardware's shortest.
+    pub gate_dead_time: f32,
 }
 
 impl BridgeParams {
@@ -194,7 +203,16 @@ impl BridgeParams {
                 constant: 0.0,
             },
             bus: None,
+            gate_dead_time: 0.0,
         }
+    }
+
+    /// The same drive with a gate dead time of `seconds` at each change of a leg between high
+    /// and low.
+    #[must_use]
+    pub const fn with_gate_dead_time(mut self, seconds: f32) -> Self {
+        self.gate_dead_time = seconds;
+        self
     }
 
     /// The same drive with a motor's back-EMF.
@@ -293,6 +311,15 @@ pub struct BridgeModel {
     tau_on_charge: Gain,
     tau_fast_charge: Gain,
     pub(crate) bus: Option<Bus>,
+    /// The gate dead time in whole timer counts (rounded down), 0 without one.
+    dead: u32,
+    /// `E(t_d/τ_d)` over the dead time, `τ_d = L/(R + R_on + R_d)`: one leg's low diode and the
+    /// other leg's low switch carry the current.
+    dead_decay: Decay,
+    /// Current raw per volt bit through R + R_on + R_d.
+    dead_gain: Gain,
+    /// V_f/(R + R_on + R_d), current raw.
+    dead_offset: i64,
     derived: BridgeDerived,
 }
 
@@ -324,8 +351,23 @@ fn integral(from: i64, to: i64, a: i64, n: u32, tau: Gain) -> i64 {
 #[derive(Debug, Clone, Copy)]
 pub(crate) struct Parts {
     pub(crate) corners: [i64; 4],
+    /// The currents after the dead-time segments (see [`BridgeModel::path`]).
+    pub(crate) dead: [i64; 2],
     pub(crate) drawn: i64,
     pub(crate) returned: i64,
+    /// Whether the period ends in slow decay.
+    pub(crate) after_slow: bool,
+}
+
+/// One period's path (see [`BridgeModel::path`]).
+struct Path {
+    corners: [i64; 4],
+    dead: [i64; 2],
+    /// Drive counts left after the dead time, and the drive's asymptote.
+    drive: (u32, i64),
+    /// Fast-decay counts.
+    fast: u32,
+    after_slow: bool,
 }
 
 impl BridgeModel {
@@ -410,6 +452,17 @@ impl BridgeModel {
                 Conflict::PeriodTooShort,
             ));
         }
+        let count = t / f64::from(n_full);
+        let t_dead = f64::from(non_negative(Field::SwitchDeadTime, p.gate_dead_time, 1e-3)?);
+        // Rounded down: a shorter dead time takes less off the drive, so the estimate errs high.
+        let dead = libm::floor(t_dead / count + 1e-9) as u32;
+        if dead >= n_full / 4 && dead > 0 {
+            return Err(ConfigError::conflict(
+                Field::SwitchDeadTime,
+                Conflict::PeriodTooShort,
+            ));
+        }
+        let r_dead_total = w.r + r_on + rd;
         let v_cap = 2.0 * v_max;
         let on_max = (v_cap + emf) / r_on_total / fs;
         let fast_max = (v_cap + 2.0 * vf + emf) / r_fast_total / fs;
@@ -421,7 +474,6 @@ impl BridgeModel {
         }
 
         let raw_per_amp = 1_099_511_627_776.0 / fs;
-        let count = t / f64::from(n_full);
         // One Charge bit is 2^-16 of the full-scale current for one count.
         let charge_bit = fs * count / 65_536.0;
         let clamp_i64 = |v: f64| {
@@ -462,6 +514,10 @@ impl BridgeModel {
             tau_on_charge: Gain::new(tau_on / count / 16_777_216.0),
             tau_fast_charge: Gain::new(tau_fast / count / 16_777_216.0),
             bus,
+            dead,
+            dead_decay: DecayTable::<1>::new(f64::from(dead) * count * r_dead_total / w.l).eval(1),
+            dead_gain: Gain::new(raw_per_amp / 65_536.0 / r_dead_total),
+            dead_offset: libm::round(vf / r_dead_total * raw_per_amp) as i64,
             derived: BridgeDerived {
                 resistance: w.r as f32,
                 tau_on: tau_on as f32,
@@ -616,64 +672,116 @@ impl BridgeModel {
         }
     }
 
+    /// A gate dead-time segment from `i`: the current in its own direction through one leg's
+    /// low diode and the other leg's low switch, toward `−(V_f + E_own)/(R + R_on + R_d)`,
+    /// stopping at zero (the diode blocks).
+    #[inline]
+    fn dead_segment(&self, i: i64, back_emf: SignedVolts) -> i64 {
+        let e = back_emf.to_bits();
+        // Validated below 2^61 like the other gains' results.
+        let emf = self.dead_gain.apply(e.unsigned_abs().min(self.emf_cap)) as i64;
+        let emf = if e < 0 { -emf } else { emf };
+        let (mag, own_emf) = if i < 0 { (-i, -emf) } else { (i, emf) };
+        let m = toward(mag, -(self.dead_offset + own_emf), self.dead_decay).max(0);
+        if i < 0 { -m } else { m }
+    }
+
+    /// The period's path: the four corners (start, after the drive, after the fast part, end),
+    /// the currents after the dead-time segments (the start and the end of the drive part when
+    /// none), and the drive and slow counts that are left.
+    ///
+    /// A gate dead time is a segment of its own where a leg changes between high and low with
+    /// the current flowing in the drive's direction: at the period's start after a period that
+    /// ended in slow decay (`after_slow`), and at the drive's end when slow decay follows it
+    /// directly. With the current against the drive the floating leg's upper diode conducts,
+    /// close to the drive itself, and the segment is left as drive (its magnitude falls a
+    /// little faster in truth); a part shorter than the dead time is left whole too. Both err
+    /// toward a higher magnitude.
+    fn path(
+        &self,
+        i0: i64,
+        after_slow: bool,
+        duty: i32,
+        supply: Volts,
+        back_emf: SignedVolts,
+        decay: AppliedDecay,
+    ) -> Path {
+        let (vs, emf_on, emf_fast) = self.inputs(supply, back_emf);
+        let (signed, k, rest) = self.split(duty, decay);
+        let n = signed.unsigned_abs();
+        let d = self.dead;
+        let along = |i: i64| (signed > 0 && i > 0) || (signed < 0 && i < 0);
+        let (ia, n_drive) = if d > 0 && after_slow && n > d && along(i0) {
+            (self.dead_segment(i0, back_emf), n - d)
+        } else {
+            (i0, n)
+        };
+        let a_drive = self.drive_asymptote(vs, signed, emf_on);
+        let i1 = toward(ia, a_drive, self.on_duty.eval(n_drive));
+        let i2 = self.fast_segment(i1, vs, emf_fast, self.fast_duty.eval(k));
+        let (ib, slow) = if d > 0 && k == 0 && n > 0 && rest > d && along(i1) {
+            (self.dead_segment(i1, back_emf), rest - d)
+        } else {
+            (i2, rest)
+        };
+        let i3 = toward(ib, -emf_on, self.on_duty.eval(slow));
+        Path {
+            corners: [i0, i1, i2, i3],
+            dead: [ia, ib],
+            drive: (n_drive, a_drive),
+            fast: k,
+            after_slow: rest > 0,
+        }
+    }
+
     /// The period's four corner currents (start, after the drive, after the fast part, end),
     /// without the charges: the guard's prediction.
     pub(crate) fn corners(
         &self,
         i0: i64,
+        after_slow: bool,
         duty: i32,
         supply: Volts,
         back_emf: SignedVolts,
         decay: AppliedDecay,
     ) -> [i64; 4] {
-        let (vs, emf_on, emf_fast) = self.inputs(supply, back_emf);
-        let (signed, k, rest) = self.split(duty, decay);
-        let i1 = toward(
-            i0,
-            self.drive_asymptote(vs, signed, emf_on),
-            self.on_duty.eval(signed.unsigned_abs()),
-        );
-        let i2 = self.fast_segment(i1, vs, emf_fast, self.fast_duty.eval(k));
-        let i3 = toward(i2, -emf_on, self.on_duty.eval(rest));
-        [i0, i1, i2, i3]
+        self.path(i0, after_slow, duty, supply, back_emf, decay)
+            .corners
     }
 
     pub(crate) fn parts(
         &self,
         i0: i64,
+        after_slow: bool,
         duty: i32,
         supply: Volts,
         back_emf: SignedVolts,
         decay: AppliedDecay,
     ) -> Parts {
-        let (vs, emf_on, emf_fast) = self.inputs(supply, back_emf);
-        let (signed, k, rest) = self.split(duty, decay);
-        let n = signed.unsigned_abs();
-        let i1 = toward(
-            i0,
-            self.drive_asymptote(vs, signed, emf_on),
-            self.on_duty.eval(n),
-        );
-        let i2 = self.fast_segment(i1, vs, emf_fast, self.fast_duty.eval(k));
-        let i3 = toward(i2, -emf_on, self.on_duty.eval(rest));
-        // Charge drawn while driving, in the drive's direction.
+        let path = self.path(i0, after_slow, duty, supply, back_emf, decay);
+        let [_, i1, i2, _] = path.corners;
+        let (n, a) = path.drive;
+        // Charge drawn while driving (the dead time draws none), in the drive's direction.
         let drawn = if n == 0 {
             0
         } else {
-            let a = self.drive_asymptote(vs, signed, emf_on);
-            let q = integral(i0, i1, a, n, self.tau_on_charge);
-            if signed < 0 { -q } else { q }
+            let q = integral(path.dead[0], i1, a, n, self.tau_on_charge);
+            if duty < 0 { -q } else { q }
         };
         // Charge returned in fast decay: the integral of |i| over the segment.
+        let (vs, _, emf_fast) = self.inputs(supply, back_emf);
+        let k = path.fast;
         let returned = if k == 0 || (i1 == 0 && i2 == 0) {
             0
         } else {
             self.fast_charge(i1, i2, k, vs, emf_fast)
         };
         Parts {
-            corners: [i0, i1, i2, i3],
+            corners: path.corners,
+            dead: path.dead,
             drawn,
             returned,
+            after_slow: path.after_slow,
         }
     }
 
@@ -725,13 +833,22 @@ impl BridgeModel {
         back_emf: SignedVolts,
         decay: AppliedDecay,
     ) -> BridgeEstimate {
-        let p = self.parts(coil.current.to_bits(), duty, supply, back_emf, decay);
+        let p = self.parts(
+            coil.current.to_bits(),
+            coil.after_slow,
+            duty,
+            supply,
+            back_emf,
+            decay,
+        );
         let [a, b, c, d] = p.corners;
+        let [x, y] = p.dead;
         coil.current = Current::from_bits(d);
+        coil.after_slow = p.after_slow;
         BridgeEstimate {
             start: Current::from_bits(a),
-            peak: Current::from_bits(a.max(b).max(c).max(d)),
-            valley: Current::from_bits(a.min(b).min(c).min(d)),
+            peak: Current::from_bits(a.max(b).max(c).max(d).max(x).max(y)),
+            valley: Current::from_bits(a.min(b).min(c).min(d).min(x).min(y)),
             end: Current::from_bits(d),
             drawn: Charge::from_bits(p.drawn),
             returned: Charge::from_bits(p.returned),
@@ -884,13 +1001,21 @@ fn round_up(t: u128) -> Option<u32> {
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct BridgeCoil {
     current: Current,
+    /// Whether the last period ended in slow decay (a gate dead time then opens the next drive).
+    after_slow: bool,
 }
 
 impl BridgeCoil {
+    /// Whether the last period ended in slow decay.
+    pub(crate) const fn after_slow(&self) -> bool {
+        self.after_slow
+    }
+
     /// A coil known to carry no current.
     pub const fn idle() -> Self {
         Self {
             current: Current::ZERO,
+            after_slow: false,
         }
     }
 
@@ -907,6 +1032,7 @@ impl BridgeCoil {
         };
         Self {
             current: Current::from_bits(b),
+            after_slow: false,
         }
     }
 

@@ -401,7 +401,8 @@ impl BridgeScenario {
             decay,
             ControlParams::new(period as f32, resolution, full_scale as f32),
         )
-        .with_motor(motor);
+        .with_motor(motor)
+        .with_gate_dead_time(dead_time as f32);
         if let Some(b) = bus {
             params = params.with_bus(BusParams::new(b.capacitance as f32, b.sink_current as f32));
         }

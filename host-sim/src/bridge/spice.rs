@@ -34,6 +34,9 @@ pub struct BridgeCase {
     pub rest: f64,
     /// Current the decay time is measured to, A.
     pub release: f64,
+    /// Gate dead time at each change of a leg between high and low, s (the changing leg
+    /// floats).
+    pub dead: f64,
 }
 
 impl BridgeCase {
@@ -135,10 +138,21 @@ pub fn netlist(k: &BridgeCase) -> String {
     let fast = off * k.fast_share;
     let slow = off - fast;
     let rest_periods = (k.rest / t).ceil() as u32;
-    n.push_str(&gate("gah", 0.0, 0.0, on, t, k.periods));
+    // The gate dead time: leg A changes from low to high at each period start after a slow
+    // part, and from high to low where the slow part follows the drive directly.
+    let dead_in = if slow > 0.0 { k.dead } else { 0.0 };
+    let dead_out = if fast <= 0.0 { k.dead } else { 0.0 };
+    n.push_str(&gate("gah", 0.0, dead_in, on - dead_in, t, k.periods));
     // Leg B's low switch: on while driving and in the slow part (off in the fast part).
     // Leg A's low switch: on in the slow part.
-    n.push_str(&gate("gal", 0.0, on + fast, slow, t, k.periods));
+    n.push_str(&gate(
+        "gal",
+        0.0,
+        on + fast + dead_out,
+        slow - dead_out,
+        t,
+        k.periods,
+    ));
     n.push_str(&gate("gbh", 0.0, 0.0, 0.0, t, 0));
     // gbl = drive pulse + slow pulse: two sources in series add.
     n.push_str(&gate("gbl1", 0.0, 0.0, on, t, k.periods));
@@ -203,11 +217,32 @@ pub fn plant(k: &BridgeCase) -> Result<BridgeMeasured, PlantError> {
     let mut returned = 0.0;
     let mut peak_bus: f64 = 0.0;
     let mut last = BridgeTally::starting(p.state);
+    let mut legs = (LegState::Float, LegState::Float);
     for _ in 0..k.periods {
         last = BridgeTally::starting(p.state);
         for (d, a, b) in k.phases(k.duty) {
             if d > 0.0 {
-                p.run(a, b, d, &mut last)?;
+                // A leg changing between high and low floats for the dead time first.
+                let cross = |from: LegState, to: LegState| {
+                    k.dead > 0.0
+                        && matches!(
+                            (from, to),
+                            (LegState::High, LegState::Low) | (LegState::Low, LegState::High)
+                        )
+                };
+                let (ca, cb) = (cross(legs.0, a), cross(legs.1, b));
+                let mut left = d;
+                if ca || cb {
+                    let fa = if ca { LegState::Float } else { a };
+                    let fb = if cb { LegState::Float } else { b };
+                    let x = k.dead.min(d);
+                    p.run(fa, fb, x, &mut last)?;
+                    left -= x;
+                }
+                if left > 0.0 {
+                    p.run(a, b, left, &mut last)?;
+                }
+                legs = (a, b);
             }
         }
         returned += last.returned_energy;
