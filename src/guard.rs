@@ -774,15 +774,7 @@ impl Guard {
         if last > 1 && last <= duty && holds(last - 1) && !holds(last) {
             return last - 1;
         }
-        let (mut lo, mut hi) = (0u32, duty);
-        while hi - lo > 1 {
-            let mid = lo + (hi - lo) / 2;
-            if holds(mid) {
-                lo = mid;
-            } else {
-                hi = mid;
-            }
-        }
+        let lo = crate::qmath::largest_count(duty, holds);
         if holds(lo) { lo } else { 0 }
     }
 

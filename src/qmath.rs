@@ -571,6 +571,22 @@ pub(crate) fn mul_exp2_neg(x: i64, y: u64) -> i64 {
     p.checked_shr(sh).unwrap_or(0) as i64
 }
 
+/// The largest count below `n` that `fits` (0 when none does), by bisection over a `fits`
+/// that holds up to some count and fails above it (at most 16 evaluations); `n` itself is
+/// not tried.
+pub(crate) fn largest_count(n: u32, fits: impl Fn(u32) -> bool) -> u32 {
+    let (mut lo, mut hi) = (0u32, n);
+    while hi - lo > 1 {
+        let mid = lo + (hi - lo) / 2;
+        if fits(mid) {
+            lo = mid;
+        } else {
+            hi = mid;
+        }
+    }
+    lo
+}
+
 /// Which series [`series`] builds.
 #[derive(Clone, Copy)]
 enum Series {

@@ -270,22 +270,6 @@ pub struct BridgeGuard {
     worst_current: i64,
 }
 
-/// The largest count below `n` that `fits` (0 when none does), by bisection over a `fits`
-/// that holds up to some count and fails above it (at most 16 evaluations); `n` itself is
-/// not tried.
-fn largest_count(n: u32, fits: impl Fn(u32) -> bool) -> u32 {
-    let (mut lo, mut hi) = (0u32, n);
-    while hi - lo > 1 {
-        let mid = lo + (hi - lo) / 2;
-        if fits(mid) {
-            lo = mid;
-        } else {
-            hi = mid;
-        }
-    }
-    lo
-}
-
 /// The highest current magnitude over a period of `duty` and `decay` from `i_now`.
 fn magnitude_at(
     m: &BridgeModel,
@@ -445,7 +429,7 @@ impl BridgeGuard {
             return (duty, slow);
         }
         let d = duty.signum();
-        let lo = largest_count(duty.unsigned_abs(), |c| {
+        let lo = crate::qmath::largest_count(duty.unsigned_abs(), |c| {
             magnitude(d * c as i32, slow) <= self.ceiling
         });
         // lo <= 65535; at lo = 0 no drive is left, fitting or not.
@@ -642,7 +626,8 @@ impl BridgeGuard {
             let d = duty.signum();
             let n = duty.unsigned_abs();
             if reach(duty, decay) > self.ceiling {
-                let lo = largest_count(n, |c| reach(d * c as i32, decay) <= self.ceiling);
+                let lo =
+                    crate::qmath::largest_count(n, |c| reach(d * c as i32, decay) <= self.ceiling);
                 let fits = reach(d * lo as i32, decay) <= self.ceiling;
                 duty = if fits { d * lo as i32 } else { 0 }; // lo <= 65535
                 active.insert(Condition::CurrentLimit);
