@@ -99,6 +99,124 @@ impl BridgeRun {
     }
 }
 
+impl BridgeRun {
+    /// The conditions a tick raised or cleared.
+    fn record(&mut self, out: &coilward::bridge::BridgeOutput, t: f64) {
+        for c in Condition::ALL {
+            for (on, detail) in [
+                (out.raised.contains(c), "raised"),
+                (out.cleared.contains(c), "cleared"),
+            ] {
+                if on {
+                    self.events.push(EventRecord {
+                        t_s: t,
+                        condition: c.name(),
+                        detail: detail.into(),
+                    });
+                }
+            }
+        }
+    }
+
+    /// The other direction first driven at `t` with the true current `i_true`: checked against
+    /// the release level and the dead time since the true release, and recorded.
+    fn reversed(
+        &mut self,
+        limits: &coilward::bridge::BridgeLimits,
+        pending: Option<Reversal>,
+        t: f64,
+        i_true: f64,
+    ) {
+        let release = f64::from(limits.release_current);
+        if i_true.abs() > release {
+            self.find(
+                "reversed-before-decay",
+                t,
+                format!(
+                    "the bridge drove the other way with {i_true:.3} A still flowing (release {release:.3} A)"
+                ),
+            );
+        }
+        let dead = f64::from(limits.reversal_dead_time);
+        if let Some(settled) = pending.as_ref().and_then(|p| p.true_release_s)
+            && t - settled < dead - 1e-9
+        {
+            self.find(
+                "reversed-before-dead-time",
+                t,
+                format!(
+                    "the bridge drove the other way {:.1} µs after the true current fell to the release level (dead time {:.1} µs)",
+                    (t - settled) * 1e6,
+                    dead * 1e6
+                ),
+            );
+        }
+        if let Some(mut p) = pending {
+            p.driven_s = Some(t);
+            p.current_at_drive_a = i_true;
+            self.reversals.push(p);
+        }
+    }
+}
+
+impl BridgeRun {
+    /// A period carried out: the true peak against the trip, the bus against its maximum, and
+    /// whether the guard latched or had to recirculate. Returns the bus's peak, V.
+    fn judge(
+        &mut self,
+        s: &BridgeScenario,
+        out: &coilward::bridge::BridgeOutput,
+        tally: &BridgeTally,
+        prev_active: Conditions,
+        t: f64,
+    ) -> f64 {
+        let (r, trip) = (self, f64::from(s.limits.trip_current));
+        let (supply, v_max) = (s.circuit.supply, f64::from(s.params.supply.max));
+        let peak = tally.peak_current.abs().max(tally.least_current.abs());
+        r.peak_current_a = r.peak_current_a.max(peak);
+        if peak > trip {
+            r.find(
+                "current-above-trip",
+                t,
+                format!("the true current reached {peak:.3} A (trip {trip:.3} A)"),
+            );
+        }
+        r.returned_energy_j += tally.returned_energy;
+        let bus_v = s
+            .circuit
+            .bus
+            .map_or(supply, |b| supply + tally.peak_bus_charge / b.capacitance);
+        r.peak_bus_v = r.peak_bus_v.max(bus_v);
+        if bus_v > v_max {
+            r.find(
+                "bus-above-max",
+                t,
+                format!("returned energy lifted the bus to {bus_v:.2} V (max {v_max:.2} V)"),
+            );
+        }
+        let acted = out.latched.union(
+            out.active
+                .intersection(Conditions::NONE.with(Condition::SupplyPump)),
+        );
+        if !out.latched.is_empty() {
+            r.find(
+                "guard-tripped",
+                t,
+                format!("the guard latched {}", out.latched),
+            );
+        }
+        if acted.contains(Condition::SupplyPump) && !prev_active.contains(Condition::SupplyPump) {
+            r.find(
+                "guard-recirculated",
+                t,
+                "supply-pump: the guard turned fast decay into slow decay to protect the bus"
+                    .into(),
+            );
+        }
+        bus_v
+    }
+}
+
 /// Carries out one period's plan on the plant, with the dead time; returns the period's tally.
 fn apply(
     p: &mut BridgePlant,
@@ -155,10 +273,8 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
     let m = guard.model();
     let n_full = m.duty_resolution();
     let count = s.period / f64::from(n_full);
-    let trip = f64::from(s.limits.trip_current);
     let release = f64::from(s.limits.release_current);
     let supply = s.circuit.supply;
-    let v_max = f64::from(s.params.supply.max);
     let vs = Volts::saturating_from_num(supply);
     let mut plant = BridgePlant::new(s.circuit, BridgeState::default());
     let mut state = guard.start_idle();
@@ -204,23 +320,7 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
         let err = (est - i_true).abs();
         r.max_estimate_error_a = r.max_estimate_error_a.max(err);
         r.estimated_returned_energy_j += m.coulombs(out.estimate.returned) * rail;
-        // Events.
-        for c in Condition::ALL {
-            if out.raised.contains(c) {
-                r.events.push(EventRecord {
-                    t_s: t,
-                    condition: c.name(),
-                    detail: "raised".into(),
-                });
-            }
-            if out.cleared.contains(c) {
-                r.events.push(EventRecord {
-                    t_s: t,
-                    condition: c.name(),
-                    detail: "cleared".into(),
-                });
-            }
-        }
+        r.record(&out, t);
         if out.active.contains(Condition::ReversalHold) {
             r.held_periods += 1;
         }
@@ -237,35 +337,7 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
         if out.duty != 0 {
             let d = out.duty.signum();
             if d != direction && direction != 0 {
-                if i_true.abs() > release {
-                    r.find(
-                        "reversed-before-decay",
-                        t,
-                        format!(
-                            "the bridge drove the other way with {:.3} A still flowing (release {:.3} A)",
-                            i_true, release
-                        ),
-                    );
-                }
-                let dead = f64::from(s.limits.reversal_dead_time);
-                if let Some(settled) = pending.as_ref().and_then(|p| p.true_release_s)
-                    && t - settled < dead - 1e-9
-                {
-                    r.find(
-                        "reversed-before-dead-time",
-                        t,
-                        format!(
-                            "the bridge drove the other way {:.1} µs after the true current fell to the release level (dead time {:.1} µs)",
-                            (t - settled) * 1e6,
-                            dead * 1e6
-                        ),
-                    );
-                }
-                if let Some(mut p) = pending.take() {
-                    p.driven_s = Some(t);
-                    p.current_at_drive_a = i_true;
-                    r.reversals.push(p);
-                }
+                r.reversed(&s.limits, pending.take(), t, i_true);
             }
             direction = d;
         }
@@ -303,46 +375,7 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
                 p.true_release_s = None;
             }
         }
-        r.peak_current_a = r.peak_current_a.max(peak);
-        if peak > trip {
-            r.find(
-                "current-above-trip",
-                t,
-                format!("the true current reached {peak:.3} A (trip {trip:.3} A)"),
-            );
-        }
-        r.returned_energy_j += tally.returned_energy;
-        let bus_v = s
-            .circuit
-            .bus
-            .map_or(supply, |b| supply + tally.peak_bus_charge / b.capacitance);
-        r.peak_bus_v = r.peak_bus_v.max(bus_v);
-        if bus_v > v_max {
-            r.find(
-                "bus-above-max",
-                t,
-                format!("returned energy lifted the bus to {bus_v:.2} V (max {v_max:.2} V)"),
-            );
-        }
-        let acted = out.latched.union(
-            out.active
-                .intersection(Conditions::NONE.with(Condition::SupplyPump)),
-        );
-        if !out.latched.is_empty() {
-            r.find(
-                "guard-tripped",
-                t,
-                format!("the guard latched {}", out.latched),
-            );
-        }
-        if acted.contains(Condition::SupplyPump) && !prev_active.contains(Condition::SupplyPump) {
-            r.find(
-                "guard-recirculated",
-                t,
-                "supply-pump: the guard turned fast decay into slow decay to protect the bus"
-                    .into(),
-            );
-        }
+        let bus_v = r.judge(s, &out, &tally, prev_active, t);
         prev_active = out.active;
         if rows {
             r.rows.push(BridgeRow {
