@@ -72,6 +72,8 @@ fn main() {
     println!(
         "sweep: 1000 samples of the 200 ms irrigation-valve scenario (guard + plant) on {} threads: {t:.2} s (goal: under 10 s); {} failed",
         rayon::current_num_threads(),
-        r.iter().filter(|x| x.verdict == "fail").count()
+        r.iter()
+            .filter(|x| x.verdict == coilward_sim::cosim::Verdict::Fail)
+            .count()
     );
 }

@@ -88,7 +88,8 @@ pub struct EventRecord {
 pub struct Finding {
     /// Stable identifier: `current-above-trip`, `clamp-pulse-above-rating`,
     /// `avalanche-with-clamp`, `on-before-release`, `on-into-ringing-node`, `guard-acted`,
-    /// `plant-stopped`.
+    /// `plant-stopped` (the bridge adds its own; those in [`ACTED`] make a run limited, any
+    /// other makes it fail).
     pub kind: &'static str,
     /// First time it happened, s.
     pub t_s: f64,
@@ -160,9 +161,61 @@ impl Run {
         }
     }
 
-    /// Whether the profile passed.
+    /// What the run amounts to.
+    pub fn verdict(&self) -> Verdict {
+        Verdict::of(&self.findings)
+    }
+
+    /// Whether the profile passed: no limit exceeded and the guard never changed the request.
     pub fn passed(&self) -> bool {
-        self.findings.is_empty()
+        self.verdict() == Verdict::Pass
+    }
+}
+
+/// What a run amounts to, the same for both topologies and for each sweep sample.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Verdict {
+    /// No limit exceeded, and the guard never changed the request.
+    Pass,
+    /// No limit exceeded; the guard changed the request (its findings say how often and why).
+    Limited,
+    /// The plant exceeded a limit, the load was re-energised or reversed before its current
+    /// decayed, or the run could not be carried out.
+    Fail,
+}
+
+/// Findings that only say the guard changed the request: the run is limited, not failed.
+pub const ACTED: [&str; 3] = ["guard-acted", "guard-recirculated", "guard-tripped"];
+
+impl Verdict {
+    /// From a run's findings.
+    pub fn of(findings: &[Finding]) -> Self {
+        if findings.iter().any(|f| !ACTED.contains(&f.kind)) {
+            Verdict::Fail
+        } else if findings.is_empty() {
+            Verdict::Pass
+        } else {
+            Verdict::Limited
+        }
+    }
+
+    /// The word reports and JSON use: `pass`, `limited`, `fail`.
+    pub fn word(self) -> &'static str {
+        match self {
+            Verdict::Pass => "pass",
+            Verdict::Limited => "limited",
+            Verdict::Fail => "fail",
+        }
+    }
+
+    /// The command's exit status: 0, 3, 1 (2 is for input the simulator refused).
+    pub fn exit_status(self) -> u8 {
+        match self {
+            Verdict::Pass => 0,
+            Verdict::Limited => 3,
+            Verdict::Fail => 1,
+        }
     }
 }
 
@@ -779,4 +832,39 @@ pub fn worst_average_clamp_power(rows: &[Row], period: f64, window: f64) -> f64 
         worst = worst.max(avg);
     }
     worst
+}
+
+#[cfg(test)]
+mod tests {
+    use super::{Finding, Verdict};
+
+    fn found(kinds: &[&'static str]) -> Vec<Finding> {
+        kinds
+            .iter()
+            .map(|&kind| Finding {
+                kind,
+                t_s: 0.0,
+                detail: String::new(),
+            })
+            .collect()
+    }
+
+    #[test]
+    fn the_verdict_is_limited_only_by_the_guards_own_actions() {
+        assert_eq!(Verdict::of(&found(&[])), Verdict::Pass);
+        assert_eq!(Verdict::of(&found(&["guard-acted"])), Verdict::Limited);
+        assert_eq!(
+            Verdict::of(&found(&["guard-recirculated", "guard-tripped"])),
+            Verdict::Limited
+        );
+        assert_eq!(
+            Verdict::of(&found(&["guard-acted", "on-before-release"])),
+            Verdict::Fail
+        );
+        assert_eq!(Verdict::of(&found(&["bus-above-max"])), Verdict::Fail);
+        assert_eq!(
+            [Verdict::Pass, Verdict::Limited, Verdict::Fail].map(Verdict::exit_status),
+            [0, 3, 1]
+        );
+    }
 }

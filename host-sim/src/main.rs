@@ -18,7 +18,7 @@ use std::process::ExitCode;
     name = "coilward-sim",
     version,
     about = "Run the coilward guard against a detailed circuit model of an inductive load",
-    after_help = "Examples:\n  coilward-sim check examples/scenarios/irrigation-valve.toml\n  coilward-sim run examples/scenarios/irrigation-valve.toml --svg valve.svg\n  coilward-sim sweep examples/scenarios/irrigation-valve.toml --samples 1000\n  coilward-sim fit examples/captures/valve-pull-in.csv --supply \"24 V\" --on-resistance \"0.1 Ω\"\n\nExit status: 0 pass, 1 a limit was exceeded or the guard had to act, 2 bad input."
+    after_help = "Examples:\n  coilward-sim check examples/scenarios/irrigation-valve.toml\n  coilward-sim run examples/scenarios/irrigation-valve.toml --svg valve.svg\n  coilward-sim sweep examples/scenarios/irrigation-valve.toml --samples 1000\n  coilward-sim fit examples/captures/valve-pull-in.csv --supply \"24 V\" --on-resistance \"0.1 Ω\"\n\nExit status (run, sweep): 0 pass (no limit exceeded, the guard never changed the request),\n3 limited (no limit exceeded, the guard changed the request), 1 fail (a limit exceeded, or the\nload re-energised or reversed before its current decayed), 2 bad input."
 )]
 struct Cli {
     #[command(subcommand)]
@@ -166,13 +166,9 @@ impl Outputs<'_> {
     }
 }
 
-/// Exit status 0 for a pass, 1 otherwise.
-fn verdict(passed: bool) -> ExitCode {
-    if passed {
-        ExitCode::SUCCESS
-    } else {
-        ExitCode::from(1)
-    }
+/// Exit status 0 for a pass, 3 for limited, 1 for a fail.
+fn verdict(v: cosim::Verdict) -> ExitCode {
+    ExitCode::from(v.exit_status())
 }
 
 fn run_bridge(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
@@ -184,7 +180,7 @@ fn run_bridge(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
         |w| bridge::report::csv(&r.rows, w),
         |p| bridge::report::svg(&s, &r, p),
     )?;
-    Ok(verdict(r.passed()))
+    Ok(verdict(r.verdict()))
 }
 
 fn check_bridge(file: &Path) -> Result<ExitCode, ExitCode> {
@@ -323,7 +319,7 @@ fn run(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
         |w| report::csv::write(&r.rows, w),
         |p| report::svg::write(&s, &r, p),
     )?;
-    Ok(verdict(r.passed()))
+    Ok(verdict(r.verdict()))
 }
 
 fn check(file: &Path) -> Result<ExitCode, ExitCode> {
@@ -498,7 +494,12 @@ fn sweep_cmd(
     let t0 = std::time::Instant::now();
     let results = sweep::run(&s, samples, seed, shard, || bar.inc(1));
     bar.finish_and_clear();
-    let failed = results.iter().filter(|r| r.verdict == "fail").count();
+    let count = |v: cosim::Verdict| results.iter().filter(|r| r.verdict == v).count();
+    let (passed, limited, failed) = (
+        count(cosim::Verdict::Pass),
+        count(cosim::Verdict::Limited),
+        count(cosim::Verdict::Fail),
+    );
     println!(
         "{} ({}): {} samples (shard {}/{} of {samples}, seed {seed}) in {:.2} s",
         s.name,
@@ -508,8 +509,13 @@ fn sweep_cmd(
         shard.n,
         t0.elapsed().as_secs_f64()
     );
-    println!("  passed {}, failed {failed}", results.len() - failed);
-    let worst: Vec<(&str, Option<&sweep::Sample>, String)> = vec![
+    println!("  pass {passed}, limited {limited}, fail {failed}");
+    let worst = results
+        .iter()
+        .map(|r| r.verdict)
+        .max()
+        .unwrap_or(cosim::Verdict::Pass);
+    let worst_cases: Vec<(&str, Option<&sweep::Sample>, String)> = vec![
         (
             "peak current",
             sweep::worst_by(&results, |x| x.peak_current_a),
@@ -538,7 +544,7 @@ fn sweep_cmd(
     ];
     println!("\n  worst cases:");
     let mut worst_json = serde_json::Map::new();
-    for (what, w, unit) in &worst {
+    for (what, w, unit) in &worst_cases {
         if let Some(w) = w {
             let value = match *what {
                 "peak current" => w.peak_current_a,
@@ -560,7 +566,7 @@ fn sweep_cmd(
             println!(
                 "  {what:<17} {shown:>11}  sample {} ({}): {}",
                 w.index,
-                w.verdict,
+                w.verdict.word(),
                 params.join(", ")
             );
             worst_json.insert(what.replace([' ', '-'], "_"), serde_json::json!({"value": if value.is_finite() { Some(value) } else { None }, "sample": w.index}));
@@ -573,7 +579,7 @@ fn sweep_cmd(
     kinds.sort_unstable();
     kinds.dedup();
     if !kinds.is_empty() {
-        println!("\n  findings among the failed samples:");
+        println!("\n  findings among the samples (the limited ones: the guard acted):");
         for k in kinds {
             println!(
                 "  {k:<26} {} samples",
@@ -586,8 +592,8 @@ fn sweep_cmd(
             let v = serde_json::json!({
                 "scenario": { "name": s.name, "file": s.file.display().to_string() },
                 "samples": samples, "seed": seed, "shard": format!("{}/{}", shard.k, shard.n),
-                "verdict": if failed == 0 { "pass" } else { "fail" },
-                "passed": results.len() - failed, "failed": failed,
+                "verdict": worst.word(),
+                "passed": passed, "limited": limited, "failed": failed,
                 "worst": worst_json,
                 "results": results,
             });
@@ -598,11 +604,7 @@ fn sweep_cmd(
             .map_err(|e| e.to_string())
         })?;
     }
-    Ok(if failed == 0 {
-        ExitCode::SUCCESS
-    } else {
-        ExitCode::from(1)
-    })
+    Ok(verdict(worst))
 }
 
 /// `t=A,i=B` into its two parts.

@@ -19,7 +19,7 @@ pub struct Sample {
     /// Sample index.
     pub index: u64,
     /// "pass" or "fail".
-    pub verdict: &'static str,
+    pub verdict: crate::cosim::Verdict,
     /// Kinds of the findings.
     pub findings: Vec<&'static str>,
     /// True peak current, A.
@@ -102,7 +102,7 @@ pub fn sample(s: &Scenario, seed: u64, index: u64) -> Sample {
     };
     Sample {
         index,
-        verdict: if r.passed() { "pass" } else { "fail" },
+        verdict: r.verdict(),
         findings: r.findings.iter().map(|f| f.kind).collect(),
         peak_current_a: r.peak_current_a,
         peak_drain_voltage_v: r.peak_drain_voltage_v,

@@ -7,6 +7,7 @@
 use coilward::Condition;
 use coilward_sim::bridge::cosim::run;
 use coilward_sim::bridge::scenario::BridgeScenario;
+use coilward_sim::cosim::Verdict;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
@@ -26,7 +27,14 @@ fn scenario(text: &str) -> BridgeScenario {
 fn the_reversing_motor_demo_runs_end_to_end_with_the_interlock() {
     let s = scenario(&text());
     let r = run(&s, true);
-    assert!(r.passed(), "{:?}", r.findings);
+    // Limited, not failed: no limit exceeded, and the guard's only action is changing the
+    // request (the interlock's hold, the ceiling in plug braking).
+    assert_eq!(r.verdict(), Verdict::Limited, "{:?}", r.findings);
+    assert!(
+        r.findings.iter().all(|f| f.kind == "guard-acted"),
+        "{:?}",
+        r.findings
+    );
     assert_eq!(r.reversals.len(), 1);
     let v = r.reversals[0];
     let driven = v.driven_s.expect("the reversal happens");
@@ -178,9 +186,10 @@ fn the_command_line_runs_and_checks_a_bridge_scenario() {
         .arg(dir.path().join("m.json"))
         .output()
         .unwrap();
+    // Exit status 3: limited (the interlock held the reversal).
     assert_eq!(
         out.status.code(),
-        Some(0),
+        Some(3),
         "{}",
         String::from_utf8_lossy(&out.stdout)
     );
@@ -189,7 +198,7 @@ fn the_command_line_runs_and_checks_a_bridge_scenario() {
     assert!(csv.contains("reversal-hold"));
     let json: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(dir.path().join("m.json")).unwrap()).unwrap();
-    assert_eq!(json["verdict"], "pass");
+    assert_eq!(json["verdict"], "limited");
     let out = Command::new(exe)
         .args(["sweep", "--samples", "2"])
         .arg(demo())
@@ -258,7 +267,18 @@ fn a_reversal_waits_the_whole_dead_time_from_the_true_release() {
     ] {
         let s = scenario(&latching_valve(period, dead));
         let r = run(&s, false);
-        assert!(r.passed(), "{period} {dead}: {:?}", r.findings);
+        // The interlock's hold is the guard's only action.
+        assert_eq!(
+            r.verdict(),
+            Verdict::Limited,
+            "{period} {dead}: {:?}",
+            r.findings
+        );
+        assert!(
+            r.findings.iter().all(|f| f.kind == "guard-acted"),
+            "{:?}",
+            r.findings
+        );
         let v = r.reversals[0];
         let gap = v.driven_s.expect("driven") - v.true_release_s.expect("settled");
         let (t, d) = (s.period, f64::from(s.limits.reversal_dead_time));

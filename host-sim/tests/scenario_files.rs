@@ -149,8 +149,24 @@ fn exit_status_pass_fail_bad_input() {
         .arg(demo("unclamped-avalanche.toml"))
         .output()
         .unwrap();
-    assert_eq!(acted.status.code(), Some(1));
+    // The guard cut the current and nothing was exceeded: limited, exit status 3.
+    assert_eq!(acted.status.code(), Some(3));
+    assert!(String::from_utf8_lossy(&acted.stdout).contains("verdict: LIMITED"));
     let dir = tempfile::tempdir().unwrap();
+    // A guard that believes a coil four times faster lets it on while current still flows:
+    // fail, exit status 1.
+    let early = dir.path().join("early.toml");
+    std::fs::write(
+        &early,
+        valve_text()
+            .replace("at = \"140 ms\"", "at = \"121 ms\"")
+            .replace("at = \"155 ms\"", "at = \"136 ms\"")
+            + "\n[model]\ninductance = \"10 mH\"\n",
+    )
+    .unwrap();
+    let failed = sim().arg("run").arg(&early).output().unwrap();
+    assert_eq!(failed.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&failed.stdout).contains("verdict: FAIL"));
     let bad = dir.path().join("bad.toml");
     std::fs::write(&bad, valve_text().replace("\"24 V\"", "\"24\"")).unwrap();
     let out = sim().arg("run").arg(&bad).output().unwrap();

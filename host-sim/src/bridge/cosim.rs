@@ -80,12 +80,19 @@ pub struct BridgeRun {
     pub max_estimate_error_a: f64,
     /// Periods in which `reversal-hold` held the output.
     pub held_periods: u64,
+    /// Periods in which the applied duty differed from the request.
+    pub acted_periods: u64,
 }
 
 impl BridgeRun {
-    /// Whether no limit was exceeded and the guard had to act only by its interlock.
+    /// What the run amounts to (see [`crate::cosim::Verdict`]).
+    pub fn verdict(&self) -> crate::cosim::Verdict {
+        crate::cosim::Verdict::of(&self.findings)
+    }
+
+    /// Whether no limit was exceeded and the guard never changed the request.
     pub fn passed(&self) -> bool {
-        self.findings.is_empty()
+        self.verdict() == crate::cosim::Verdict::Pass
     }
 
     fn find(&mut self, kind: &'static str, t: f64, detail: String) {
@@ -321,6 +328,21 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
         r.max_estimate_error_a = r.max_estimate_error_a.max(err);
         r.estimated_returned_energy_j += m.coulombs(out.estimate.returned) * rail;
         r.record(&out, t);
+        if out.duty != request {
+            r.acted_periods += 1;
+            let (applied, asked) = (
+                f64::from(out.duty) / f64::from(n_full) * 100.0,
+                want * 100.0,
+            );
+            r.find(
+                "guard-acted",
+                t,
+                format!(
+                    "applied {applied:.1} % where {asked:.1} % was requested ({})",
+                    out.active
+                ),
+            );
+        }
         if out.active.contains(Condition::ReversalHold) {
             r.held_periods += 1;
         }

@@ -64,7 +64,7 @@ pub fn json(s: &BridgeScenario, r: &BridgeRun) -> serde_json::Value {
         "scenario": s.name,
         "file": s.file.display().to_string(),
         "topology": "full-bridge",
-        "verdict": if r.passed() { "pass" } else { "fail" },
+        "verdict": r.verdict().word(),
         "assumed": s.assumed,
         "peak_current_a": r.peak_current_a,
         "max_estimate_error_a": r.max_estimate_error_a,
@@ -136,10 +136,16 @@ pub fn summary(s: &BridgeScenario, r: &BridgeRun) -> String {
             }
         );
     }
-    if r.findings.is_empty() {
-        let _ = writeln!(o, "  verdict: pass");
-    } else {
-        let _ = writeln!(o, "  verdict: fail");
+    let _ = writeln!(o, "{}", crate::report::verdict_line(r.verdict()));
+    if r.acted_periods > 0 {
+        let _ = writeln!(
+            o,
+            "  the guard changed the request in {} of {} periods",
+            r.acted_periods,
+            (s.duration / s.period).round()
+        );
+    }
+    {
         for f in &r.findings {
             let _ = writeln!(o, "  - {} at {}: {}", f.kind, si(f.t_s, "s", 4), f.detail);
         }
@@ -221,7 +227,7 @@ pub fn svg(
             "{} — full bridge, {} decay — verdict: {}",
             s.name,
             decay_name(s),
-            if r.passed() { "pass" } else { "fail" }
+            r.verdict().word()
         ),
         (20, 12),
         ("sans-serif", 20).into_font(),

@@ -11,7 +11,7 @@ use serde_json::{Value, json};
 pub fn report(s: &Scenario, r: &Run) -> Value {
     json!({
         "scenario": { "name": s.name, "file": s.file.display().to_string() },
-        "verdict": if r.passed() { "pass" } else { "fail" },
+        "verdict": r.verdict().word(),
         "findings": r.findings,
         "peak_current_a": r.peak_current_a,
         "peak_drain_voltage_v": r.peak_drain_voltage_v,

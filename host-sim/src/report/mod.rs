@@ -44,6 +44,21 @@ pub fn si(value: f64, unit: &str, digits: usize) -> String {
     format!("{x:.decimals$} {p}{unit}")
 }
 
+/// The summary's verdict line, the same for both topologies.
+pub fn verdict_line(v: crate::cosim::Verdict) -> &'static str {
+    match v {
+        crate::cosim::Verdict::Pass => {
+            "  verdict: PASS — no limit exceeded and the guard never changed the request"
+        }
+        crate::cosim::Verdict::Limited => {
+            "  verdict: LIMITED — no limit exceeded; the guard changed the request (findings below)"
+        }
+        crate::cosim::Verdict::Fail => {
+            "  verdict: FAIL — a limit exceeded or the run not carried out (findings below)"
+        }
+    }
+}
+
 /// The terminal summary of a run.
 pub fn summary(s: &Scenario, r: &Run) -> String {
     let mut o = heading(s, r);
@@ -113,13 +128,8 @@ pub fn summary(s: &Scenario, r: &Run) -> String {
         }
     }
     let _ = writeln!(o);
-    if r.passed() {
-        let _ = writeln!(
-            o,
-            "  verdict: PASS — no limit exceeded and the guard never had to act"
-        );
-    } else {
-        let _ = writeln!(o, "  verdict: FAIL");
+    let _ = writeln!(o, "{}", verdict_line(r.verdict()));
+    {
         for f in &r.findings {
             let _ = writeln!(o, "    {:>9}  {}: {}", si(f.t_s, "s", 5), f.kind, f.detail);
         }

@@ -63,11 +63,7 @@ pub fn write(s: &Scenario, r: &Run, path: &Path) -> Result<(), Box<dyn std::erro
     root.fill(&WHITE)?;
     let (title, body) = root.split_vertically(40);
     title.draw(&Text::new(
-        format!(
-            "{} — verdict: {}",
-            s.name,
-            if r.passed() { "pass" } else { "fail" }
-        ),
+        format!("{} — verdict: {}", s.name, r.verdict().word()),
         (20, 12),
         ("sans-serif", 20).into_font(),
     ))?;
