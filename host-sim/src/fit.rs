@@ -21,7 +21,8 @@
 //!
 //! Refusals, each with its reason: no edge (the current never leaves the noise), clipped (a flat
 //! top while the current was still rising fast: the scope's range), too short (the fit covers
-//! under half a time constant), too noisy (L or R uncertain by more than 5 %).
+//! under half a time constant), too noisy (L or R uncertain by more than 5 %), not a coil (L or R
+//! not positive: a wrong supply, on-resistance or unit).
 
 use crate::capture::Capture;
 use std::fmt;
@@ -88,6 +89,13 @@ pub enum Problem {
     },
     /// The fit did not converge.
     NoFit,
+    /// The fitted inductance or resistance is not positive: not a coil.
+    NotPhysical {
+        /// Inductance, H.
+        inductance: f64,
+        /// Resistance, Ω.
+        resistance: f64,
+    },
 }
 
 impl fmt::Display for Problem {
@@ -121,6 +129,15 @@ impl fmt::Display for Problem {
                 r * 100.0
             ),
             Problem::NoFit => f.write_str("the fit did not converge"),
+            Problem::NotPhysical {
+                inductance,
+                resistance,
+            } => write!(
+                f,
+                "not a coil: the fit gives L = {}, R = {}; check --supply (its value and sign), --on-resistance (it must be below the coil's own) and the current's units (a capture in mA read as A)",
+                si(*inductance, "H", 4),
+                si(*resistance, "Ω", 4)
+            ),
         }
     }
 }
@@ -559,6 +576,14 @@ pub fn fit(c: &Capture, o: &FitOptions) -> Fitted {
             Ok(f) => out.fall = Some(f),
             Err(p) => out.problems.push(p),
         }
+    }
+    if let Some(r) = &out.rise
+        && (r.inductance.value <= 0.0 || r.resistance.value <= 0.0)
+    {
+        out.problems.push(Problem::NotPhysical {
+            inductance: r.inductance.value,
+            resistance: r.resistance.value,
+        });
     }
     if let Some(r) = &out.rise {
         let (lr, rr) = (r.inductance.relative(), r.resistance.relative());

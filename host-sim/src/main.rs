@@ -515,6 +515,20 @@ fn sweep_cmd(
         .map(|r| r.verdict)
         .max()
         .unwrap_or(cosim::Verdict::Pass);
+    // The failed samples first, before any figure: they are what a designer must look at.
+    for r in results
+        .iter()
+        .filter(|r| r.verdict == cosim::Verdict::Fail)
+        .take(5)
+    {
+        println!("  failed: sample {} ({})", r.index, r.findings.join(", "));
+    }
+    if failed > 5 {
+        println!(
+            "  failed: {} more samples (all in the JSON results)",
+            failed - 5
+        );
+    }
     let worst_cases: Vec<(&str, Option<&sweep::Sample>, String)> = vec![
         (
             "peak current",

@@ -281,6 +281,27 @@ fn too_short_is_said() {
 }
 
 #[test]
+fn a_fit_that_is_not_a_coil_is_refused() {
+    // The 24 V / 18 Ω rise given with a wrong supply sign, or with an on-resistance larger than
+    // the coil's own: the fitted L or R comes out negative, and the fit says why instead of
+    // proposing a [coil] section.
+    let text = synthetic(4000, 5e-6, 1e-3, rl, 2e-3, 5);
+    let mut wrong_sign = OPTS;
+    wrong_sign.supply = -24.0;
+    let mut big_on = OPTS;
+    big_on.series_resistance = 30.0;
+    for o in [wrong_sign, big_on] {
+        let f = fit::fit(&capture(&text), &o);
+        let p = f
+            .problems
+            .iter()
+            .find(|p| matches!(p, Problem::NotPhysical { .. }))
+            .unwrap_or_else(|| panic!("{:?}", f.problems));
+        assert!(p.to_string().starts_with("not a coil"), "{p}");
+    }
+}
+
+#[test]
 fn too_noisy_is_said() {
     // 9 % noise on a 100-sample record: the edge is plain, the parameters are not.
     let f = fit::fit(&capture(&synthetic(100, 100e-6, 1e-3, rl, 0.12, 4)), &OPTS);
