@@ -137,6 +137,31 @@ impl Outputs<'_> {
         self.csv.is_some() || self.svg.is_some()
     }
 
+    /// Before any work: the report paths are distinct and each can be written.
+    fn check(&self) -> Result<(), ExitCode> {
+        let given = [
+            ("--json", self.json),
+            ("--csv", self.csv),
+            ("--svg", self.svg),
+        ];
+        for (i, (a, pa)) in given.iter().enumerate() {
+            let Some(pa) = pa else { continue };
+            for (b, pb) in &given[i + 1..] {
+                if pb.is_some_and(|pb| pb == *pa) {
+                    eprintln!(
+                        "error: {a} and {b} name the same file, {}: one would overwrite the other",
+                        pa.display()
+                    );
+                    return Err(ExitCode::from(2));
+                }
+            }
+            write_file(pa, &format!("{a} report"), |p| {
+                std::fs::write(p, "").map_err(|e| e.to_string())
+            })?;
+        }
+        Ok(())
+    }
+
     /// Writes the reports that were asked for, each with its own writer, and names the files.
     fn write(
         &self,
@@ -173,6 +198,7 @@ fn verdict(v: cosim::Verdict) -> ExitCode {
 
 fn run_bridge(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
     let s = load_bridge(file)?;
+    out.check()?;
     let r = bridge::cosim::run(&s, out.rows());
     print!("{}", bridge::report::summary(&s, &r));
     out.write(
@@ -312,6 +338,7 @@ fn faults_cmd(file: &Path, json: Option<&Path>) -> Result<ExitCode, ExitCode> {
 
 fn run(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
     let s = load(file)?;
+    out.check()?;
     let r = cosim::run(&s, Options { rows: out.rows() });
     print!("{}", report::summary(&s, &r));
     out.write(
@@ -484,6 +511,12 @@ fn sweep_cmd(
             file.display()
         );
         return Err(ExitCode::from(2));
+    }
+    // The output is checked writable before the work.
+    if let Some(p) = json {
+        write_file(p, "JSON results", |p| {
+            std::fs::write(p, "").map_err(|e| e.to_string())
+        })?;
     }
     let mine = (0..samples).filter(|&i| shard.owns(i)).count() as u64;
     let bar = ProgressBar::new(mine);

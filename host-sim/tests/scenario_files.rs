@@ -176,6 +176,34 @@ fn exit_status_pass_fail_bad_input() {
         err.contains("bad.toml:") && err.contains("supply.voltage"),
         "{err}"
     );
+    // Report paths are checked before any work: the same file twice, or a file that cannot be
+    // written, is bad input and nothing is simulated.
+    let same = dir.path().join("same.out");
+    let out = sim()
+        .arg("run")
+        .arg(demo("relay-zener.toml"))
+        .arg("--json")
+        .arg(&same)
+        .arg("--csv")
+        .arg(&same)
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("--json and --csv name the same file"));
+    assert!(out.stdout.is_empty());
+    let out = sim()
+        .arg("run")
+        .arg(demo("relay-zener.toml"))
+        .arg("--svg")
+        .arg(dir.path().join("no-such-dir").join("p.svg"))
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(
+        out.stdout.is_empty(),
+        "{}",
+        String::from_utf8_lossy(&out.stdout)
+    );
     let check = sim()
         .arg("check")
         .arg(demo("relay-zener.toml"))
