@@ -155,9 +155,7 @@ impl Outputs<'_> {
                     return Err(ExitCode::from(2));
                 }
             }
-            write_file(pa, &format!("{a} report"), |p| {
-                std::fs::write(p, "").map_err(|e| e.to_string())
-            })?;
+            writable(pa, &format!("{a} report"))?;
         }
         Ok(())
     }
@@ -285,14 +283,19 @@ fn write_file(
     })
 }
 
+/// Before any work: `path` can be written (it is created empty), or exit status 2.
+fn writable(path: &Path, what: &str) -> Result<(), ExitCode> {
+    write_file(path, what, |p| {
+        std::fs::write(p, "").map_err(|e| e.to_string())
+    })
+}
+
 fn faults_cmd(file: &Path, json: Option<&Path>) -> Result<ExitCode, ExitCode> {
     use rayon::prelude::*;
     let s = load(file)?;
     // The output is checked writable before the work.
     if let Some(p) = json {
-        write_file(p, "fault report", |p| {
-            std::fs::write(p, "").map_err(|e| e.to_string())
-        })?;
+        writable(p, "fault report")?;
     }
     let cases = coilward_sim::faults::suite(&s);
     let outcomes: Vec<_> = cases
@@ -486,6 +489,24 @@ fn print_tolerance_and_clamp_power(s: &Scenario) {
     );
 }
 
+/// The failed samples, before any figure: they are what a designer must look at (five at most;
+/// all of them are in the JSON results).
+fn print_failed(results: &[sweep::Sample], failed: usize) {
+    for r in results
+        .iter()
+        .filter(|r| r.verdict == cosim::Verdict::Fail)
+        .take(5)
+    {
+        println!("  failed: sample {} ({})", r.index, r.findings.join(", "));
+    }
+    if failed > 5 {
+        println!(
+            "  failed: {} more samples (all in the JSON results)",
+            failed - 5
+        );
+    }
+}
+
 fn sweep_cmd(
     file: &Path,
     samples: u64,
@@ -514,9 +535,7 @@ fn sweep_cmd(
     }
     // The output is checked writable before the work.
     if let Some(p) = json {
-        write_file(p, "JSON results", |p| {
-            std::fs::write(p, "").map_err(|e| e.to_string())
-        })?;
+        writable(p, "JSON results")?;
     }
     let mine = (0..samples).filter(|&i| shard.owns(i)).count() as u64;
     let bar = ProgressBar::new(mine);
@@ -527,12 +546,12 @@ fn sweep_cmd(
     let t0 = std::time::Instant::now();
     let results = sweep::run(&s, samples, seed, shard, || bar.inc(1));
     bar.finish_and_clear();
-    let count = |v: cosim::Verdict| results.iter().filter(|r| r.verdict == v).count();
-    let (passed, limited, failed) = (
-        count(cosim::Verdict::Pass),
-        count(cosim::Verdict::Limited),
-        count(cosim::Verdict::Fail),
-    );
+    let [passed, limited, failed] = [
+        cosim::Verdict::Pass,
+        cosim::Verdict::Limited,
+        cosim::Verdict::Fail,
+    ]
+    .map(|v| results.iter().filter(|r| r.verdict == v).count());
     println!(
         "{} ({}): {} samples (shard {}/{} of {samples}, seed {seed}) in {:.2} s",
         s.name,
@@ -548,20 +567,7 @@ fn sweep_cmd(
         .map(|r| r.verdict)
         .max()
         .unwrap_or(cosim::Verdict::Pass);
-    // The failed samples first, before any figure: they are what a designer must look at.
-    for r in results
-        .iter()
-        .filter(|r| r.verdict == cosim::Verdict::Fail)
-        .take(5)
-    {
-        println!("  failed: sample {} ({})", r.index, r.findings.join(", "));
-    }
-    if failed > 5 {
-        println!(
-            "  failed: {} more samples (all in the JSON results)",
-            failed - 5
-        );
-    }
+    print_failed(&results, failed);
     let worst_cases: Vec<(&str, Option<&sweep::Sample>, String)> = vec![
         (
             "peak current",

@@ -107,8 +107,27 @@ impl BridgeRun {
 }
 
 impl BridgeRun {
-    /// The conditions a tick raised or cleared.
-    fn record(&mut self, out: &coilward::bridge::BridgeOutput, t: f64) {
+    /// The conditions a tick raised or cleared, and whether it changed the request `(counts,
+    /// fraction, counts per period)`.
+    fn record(
+        &mut self,
+        out: &coilward::bridge::BridgeOutput,
+        t: f64,
+        (request, want, n_full): (i32, f64, u32),
+    ) {
+        if out.duty != request {
+            self.acted_periods += 1;
+            let applied = f64::from(out.duty) / f64::from(n_full) * 100.0;
+            self.find(
+                "guard-acted",
+                t,
+                format!(
+                    "applied {applied:.1} % where {:.1} % was requested ({})",
+                    want * 100.0,
+                    out.active
+                ),
+            );
+        }
         for c in Condition::ALL {
             for (on, detail) in [
                 (out.raised.contains(c), "raised"),
@@ -327,22 +346,7 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
         let err = (est - i_true).abs();
         r.max_estimate_error_a = r.max_estimate_error_a.max(err);
         r.estimated_returned_energy_j += m.coulombs(out.estimate.returned) * rail;
-        r.record(&out, t);
-        if out.duty != request {
-            r.acted_periods += 1;
-            let (applied, asked) = (
-                f64::from(out.duty) / f64::from(n_full) * 100.0,
-                want * 100.0,
-            );
-            r.find(
-                "guard-acted",
-                t,
-                format!(
-                    "applied {applied:.1} % where {asked:.1} % was requested ({})",
-                    out.active
-                ),
-            );
-        }
+        r.record(&out, t, (request, want, n_full));
         if out.active.contains(Condition::ReversalHold) {
             r.held_periods += 1;
         }
