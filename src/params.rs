@@ -377,6 +377,10 @@ pub enum Field {
     ToleranceSaturatedInductance,
     /// `tolerance.clamp_voltage`
     ToleranceClampVoltage,
+    /// `tolerance.back_emf_constant` (full bridge)
+    ToleranceBackEmfConstant,
+    /// `tolerance.bus_capacitance` (full bridge)
+    ToleranceBusCapacitance,
 }
 
 impl Field {
@@ -441,6 +445,8 @@ impl Field {
             Field::ToleranceSaturationCurrent => "tolerance.saturation_current",
             Field::ToleranceSaturatedInductance => "tolerance.saturated_inductance",
             Field::ToleranceClampVoltage => "tolerance.clamp_voltage",
+            Field::ToleranceBackEmfConstant => "tolerance.back_emf_constant",
+            Field::ToleranceBusCapacitance => "tolerance.bus_capacitance",
         }
     }
 }
@@ -515,6 +521,10 @@ pub enum Conflict {
     /// A spread of the declared tolerance leaves a parameter the model cannot take (a time
     /// constant or a resistance out of range at a corner of the box).
     CornerOutOfRange,
+    /// A spread of the declared tolerance describes a part only the other topology has (the
+    /// node capacitance, saturation and clamp path on a full bridge; the back-EMF and the bulk
+    /// capacitance on a low-side switch).
+    OtherTopology,
     /// The release current is at or below the ring a turn-off can leave in the switch-node
     /// capacitance, so a release could never be confirmed.
     ReleaseBelowRing,
@@ -591,6 +601,9 @@ impl fmt::Display for Conflict {
             }
             Conflict::CornerOutOfRange => {
                 "at a corner of the declared tolerance a time constant or resistance leaves its range"
+            }
+            Conflict::OtherTopology => {
+                "this spread describes a part the other topology has, not this one: leave it at 0"
             }
             Conflict::WindowNotAbovePeriod => {
                 "the averaging window is not longer than the control period"

@@ -110,6 +110,11 @@ pub struct Tolerance {
     /// switch), ± fraction (0 ..= 0.9). A lower voltage decays slower and puts more energy in
     /// the clamp; the switch's own breakdown is taken as given.
     pub clamp_voltage: f32,
+    /// Full bridge: spread of the back-EMF constant, ± fraction (0 ..= 0.9): the true back-EMF
+    /// is within this fraction of the one the guard is given (and within the motor's limit).
+    pub back_emf_constant: f32,
+    /// Full bridge: the bulk capacitance down to `bus.capacitance·(1 − this)` (0 ..= 0.9).
+    pub bus_capacitance: f32,
 }
 
 impl Tolerance {
@@ -123,6 +128,8 @@ impl Tolerance {
         saturation_current: 0.0,
         saturated_inductance: 0.0,
         clamp_voltage: 0.0,
+        back_emf_constant: 0.0,
+        bus_capacitance: 0.0,
     };
 
     /// With an inductance spread.
@@ -160,6 +167,20 @@ impl Tolerance {
         self
     }
 
+    /// With a back-EMF-constant spread (full bridge).
+    #[must_use]
+    pub const fn with_back_emf_constant(mut self, f: f32) -> Self {
+        self.back_emf_constant = f;
+        self
+    }
+
+    /// With a bulk-capacitance spread (full bridge; only its low end matters).
+    #[must_use]
+    pub const fn with_bus_capacitance(mut self, f: f32) -> Self {
+        self.bus_capacitance = f;
+        self
+    }
+
     /// With saturation spreads (current, saturated inductance).
     #[must_use]
     pub const fn with_saturation(mut self, current: f32, inductance: f32) -> Self {
@@ -176,17 +197,19 @@ impl Default for Tolerance {
 }
 
 /// Spreads validated, as f64 fractions.
-struct Spreads {
-    l: f64,
-    r: f64,
-    v: f64,
-    c: f64,
-    i_sat: f64,
-    l_sat: f64,
-    clamp: f64,
+pub(crate) struct Spreads {
+    pub(crate) l: f64,
+    pub(crate) r: f64,
+    pub(crate) v: f64,
+    pub(crate) c: f64,
+    pub(crate) i_sat: f64,
+    pub(crate) l_sat: f64,
+    pub(crate) clamp: f64,
+    pub(crate) k: f64,
+    pub(crate) bus: f64,
 }
 
-fn spreads(t: &Tolerance) -> Result<Spreads, ConfigError> {
+pub(crate) fn spreads(t: &Tolerance) -> Result<Spreads, ConfigError> {
     let f = |field, v, max| non_negative(field, v, max).map(f64::from);
     Ok(Spreads {
         l: f(Field::ToleranceInductance, t.inductance, 0.9)?,
@@ -200,13 +223,15 @@ fn spreads(t: &Tolerance) -> Result<Spreads, ConfigError> {
             0.9,
         )?,
         clamp: f(Field::ToleranceClampVoltage, t.clamp_voltage, 0.9)?,
+        k: f(Field::ToleranceBackEmfConstant, t.back_emf_constant, 0.9)?,
+        bus: f(Field::ToleranceBusCapacitance, t.bus_capacitance, 0.9)?,
     })
 }
 
 /// Widening of every corner against rounding (see the module documentation).
-const MARGIN: f64 = 1e-6;
+pub(crate) const MARGIN: f64 = 1e-6;
 /// Raw units added to each segment of the bound for the truncating products.
-const ROUNDING: i64 = 2;
+pub(crate) const ROUNDING: i64 = 2;
 /// Body-diode drop allowed below ground at the switch node, V (a silicon body diode drops
 /// about 0.7 ..= 1.2 V: common practice, with margin).
 const BODY_DIODE: f64 = 1.5;
@@ -278,7 +303,7 @@ pub(crate) struct Bound {
 /// documentation).
 pub(crate) const SLICES: usize = 8;
 /// The widest a slice may be, `L_b/L_a`.
-const SLICE_RATIO: f64 = 1.08;
+pub(crate) const SLICE_RATIO: f64 = 1.08;
 
 /// One slice `L_a ..= L_b` of the inductance range: its rise and fall tables per timer count.
 #[derive(Debug, Clone, PartialEq)]
@@ -333,6 +358,14 @@ impl Bound {
     /// Builds the corners of `p` for the tolerance `t` (`nominal` is `p` validated).
     pub(crate) fn new(p: &Params, nominal: &Model, t: &Tolerance) -> Result<Self, ConfigError> {
         let s = spreads(t)?;
+        for (spread, field) in [
+            (s.k, Field::ToleranceBackEmfConstant),
+            (s.bus, Field::ToleranceBusCapacitance),
+        ] {
+            if spread > 0.0 {
+                return Err(ConfigError::conflict(field, Conflict::OtherTopology));
+            }
+        }
         let d = nominal.derived();
         let r_w = f64::from(d.resistance);
         let r_on = f64::from(p.switch.on_resistance);

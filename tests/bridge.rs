@@ -498,7 +498,8 @@ fn a_stalled_start_with_a_known_current_is_a_reversal_for_the_other_direction() 
 #[test]
 fn per_channel_state_stays_small() {
     // Printed for the contributor guide; the per-channel state is what a firmware keeps per
-    // bridge, so it is held to the low-side guard's 64-byte goal.
+    // bridge. With the declared-tolerance bound it carries two frames per inductance slice, so it
+    // is held to the low-side state's size (which carries its own bound slices), not to 64 bytes.
     println!(
         "BridgeModel {} B, BridgeGuard {} B, BridgeState {} B, BridgeOutput {} B",
         std::mem::size_of::<coilward::bridge::BridgeModel>(),
@@ -506,7 +507,11 @@ fn per_channel_state_stays_small() {
         std::mem::size_of::<coilward::bridge::BridgeState>(),
         std::mem::size_of::<coilward::bridge::BridgeOutput>(),
     );
-    assert!(std::mem::size_of::<coilward::bridge::BridgeState>() <= 64);
+    println!("GuardState {} B", std::mem::size_of::<coilward::GuardState>());
+    assert!(
+        std::mem::size_of::<coilward::bridge::BridgeState>()
+            <= std::mem::size_of::<coilward::GuardState>()
+    );
 }
 
 proptest! {

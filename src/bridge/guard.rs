@@ -37,10 +37,12 @@
 //! # Panics
 //! None: inputs are clamped, sums saturate, shifts are checked.
 
+use crate::bridge::bound::{BoundState, BridgeBound};
 use crate::bridge::drive::PeriodPlan;
 use crate::bridge::{AppliedDecay, BridgeCoil, BridgeEstimate, BridgeModel, BridgeParams};
 use crate::condition::{Action, Condition, Conditions};
 use crate::params::{ConfigError, Conflict, Field};
+use crate::tolerance::Tolerance;
 use crate::units::{Charge, Current, SignedVolts, Volts};
 
 /// What the guard does while `supply-pump` is active.
@@ -96,6 +98,12 @@ pub struct BridgeLimits {
     pub reversal_dead_time: f32,
     /// What each condition does.
     pub policy: BridgePolicy,
+    /// The circuits the guard must be right for (default [`Tolerance::EXACT`]: the parameters
+    /// are exact and the guard acts on its nominal estimate). With any spread it acts on an
+    /// upper bound of the current magnitude for every circuit inside the box: inductance,
+    /// resistance, supply reading, back-EMF constant and bulk capacitance (the low side's
+    /// node-capacitance, saturation and clamp spreads are refused: the bridge has no such part).
+    pub tolerance: Tolerance,
 }
 
 impl BridgeLimits {
@@ -113,7 +121,15 @@ impl BridgeLimits {
             release_current,
             reversal_dead_time,
             policy: BridgePolicy::default(),
+            tolerance: Tolerance::EXACT,
         }
+    }
+
+    /// The same limits covering the declared `tolerance`.
+    #[must_use]
+    pub const fn with_tolerance(mut self, tolerance: Tolerance) -> Self {
+        self.tolerance = tolerance;
+        self
     }
 }
 
@@ -169,8 +185,12 @@ pub struct BridgeOutput {
     pub latched: Conditions,
     /// The estimate over the period just ended.
     pub estimate: BridgeEstimate,
-    /// Predicted peak magnitude of the coming period's drive.
+    /// Predicted peak magnitude of the coming period (with a declared tolerance, the bound's:
+    /// at or above the true one for every circuit inside the box).
     pub predicted_peak: Current,
+    /// The current magnitude the interlock acts on now: with a declared tolerance the bound's
+    /// largest (at or above the true magnitude inside the box), else the estimate's.
+    pub bound: Current,
     /// While `reversal-hold` is active: the time left, µs (decay plus dead time; `None`: the
     /// current will not decay that far).
     pub reversal_in_us: Option<u32>,
@@ -216,6 +236,13 @@ pub struct BridgeState {
     quiet_us: u32,
     /// Charge on the bulk capacitance above rest, Charge bits.
     bus: i64,
+    /// The supply reading of the last call (U16F16 bits; 0 before the first): the ended
+    /// period ran between it and the next one.
+    rail: u32,
+    /// The back-EMF of the last call (U16F16 bits).
+    emf: i32,
+    /// With a declared tolerance: the bound's frames per slice (zero otherwise).
+    bound: BoundState,
     returned: Charge,
     active: Conditions,
     latched: Conditions,
@@ -268,6 +295,8 @@ pub struct BridgeGuard {
     supply_min: u32,
     supply_max: u32,
     worst_current: i64,
+    /// With a declared tolerance, the upper bound the decisions act on.
+    bound: Option<BridgeBound>,
 }
 
 /// The highest current magnitude over a period of `duty` and `decay` from `i_now`.
@@ -327,6 +356,7 @@ impl BridgeGuard {
         let helping =
             SignedVolts::from_bits(-((f64::from(params.motor.back_emf_limit) * 65_536.0) as i32));
         let worst_current = model.steady_drive(v_max, helping).max(trip);
+        let bound = BridgeBound::new(params, &model, &limits.tolerance, trip)?;
         Ok(Self {
             ceiling,
             trip,
@@ -339,12 +369,19 @@ impl BridgeGuard {
             supply_max: v_max.to_bits(),
             worst_current,
             model,
+            bound,
         })
     }
 
     /// The model the guard runs.
     pub const fn model(&self) -> &BridgeModel {
         &self.model
+    }
+
+    /// How many slices of the inductance range the bound tracks (0 without a declared
+    /// tolerance: the guard acts on its nominal estimate).
+    pub fn bound_slices(&self) -> usize {
+        self.bound.as_ref().map_or(0, BridgeBound::slices)
     }
 
     /// The reversal dead time in whole periods (rounded up): the most periods it can hold a
@@ -368,6 +405,9 @@ impl BridgeGuard {
             direction: Direction::None,
             quiet_us: u32::MAX,
             bus: 0,
+            rail: 0,
+            emf: 0,
+            bound: [[0; 2]; crate::bridge::bound::BRIDGE_SLICES],
             returned: Charge::ZERO,
             active: Conditions::NONE,
             latched: Conditions::NONE,
@@ -381,6 +421,7 @@ impl BridgeGuard {
             coil: BridgeCoil::with_current(current),
             direction: Direction::of(current.to_bits()),
             quiet_us: 0,
+            bound: BridgeBound::start(current.to_bits()),
             ..self.start_idle()
         }
     }
@@ -388,9 +429,14 @@ impl BridgeGuard {
     /// State after a reset: the coil may carry the worst-case current in either direction, so
     /// both directions wait for its full decay and the dead time.
     pub fn start_after_reset(&self) -> BridgeState {
+        let s = self.start_with_current(Current::from_bits(self.worst_current));
         BridgeState {
             direction: Direction::Unknown,
-            ..self.start_with_current(Current::from_bits(self.worst_current))
+            bound: self
+                .bound
+                .as_ref()
+                .map_or(s.bound, BridgeBound::after_reset),
+            ..s
         }
     }
 
@@ -479,6 +525,7 @@ impl BridgeGuard {
         let n_full = m.duty_resolution() as i32; // <= 65535
         // 1. The period just ended.
         let i_start = state.coil.current();
+        let after_slow_then = state.coil.after_slow();
         let est = m.step_with(
             &mut state.coil,
             state.applied,
@@ -487,6 +534,23 @@ impl BridgeGuard {
             state.decay,
         );
         state.returned = state.returned.saturating_add(est.returned);
+        // The bound over the same period: the rail and the back-EMF between the two readings
+        // that frame it.
+        let bound_before = self.bound.as_ref().map(|b| b.magnitude(&state.bound));
+        if let Some(b) = &self.bound {
+            let now = m.supply_bits(input.supply);
+            let before = if state.rail == 0 { now } else { state.rail };
+            b.advance(
+                &mut state.bound,
+                m,
+                after_slow_then,
+                (state.applied, state.decay),
+                (before.min(now), before.max(now)),
+                (SignedVolts::from_bits(state.emf), input.back_emf),
+            );
+        }
+        state.rail = m.supply_bits(input.supply);
+        state.emf = input.back_emf.to_bits();
         // 2. The bus: the period just ended, then whether it is still recovering from a pump.
         let mut pump = false;
         if let Some(b) = m.bus {
@@ -503,6 +567,11 @@ impl BridgeGuard {
         let i_now = state.coil.current().to_bits();
         let mag = i_now.unsigned_abs().min(Current::LIMIT.to_bits() as u64) as i64;
         let peak = est.peak_magnitude().to_bits();
+        // What the interlock and the ceiling act on: the bound when a tolerance is declared.
+        let held = self
+            .bound
+            .as_ref()
+            .map_or(mag, |b| b.magnitude(&state.bound));
 
         let prev = state.active;
         let mut active = Conditions::NONE;
@@ -546,10 +615,14 @@ impl BridgeGuard {
 
         // 3. The interlock. The dead time runs from the instant the estimate reached the
         // release level, not from the end of the period in which it did.
-        state.quiet_us = if state.applied == 0 && mag <= self.release {
-            let start = i_start.to_bits().unsigned_abs();
+        state.quiet_us = if state.applied == 0 && held <= self.release {
+            let start = bound_before.map_or(i_start.to_bits().unsigned_abs(), |b| b as u64);
             if start <= self.release as u64 {
                 state.quiet_us.saturating_add(self.period_us)
+            } else if bound_before.is_some() {
+                // The bound fell inside the period just ended: its crossing is taken at the
+                // period's end (later than any true crossing).
+                0
             } else {
                 // Fell inside the period just ended: the crossing, rounded up (so the quiet time
                 // is never overstated), from the closed form of the decay that was applied.
@@ -582,7 +655,7 @@ impl BridgeGuard {
                 Direction::Unknown => true,
                 d => d != wanted,
             };
-        if reversing && (mag > self.release || state.quiet_us < self.dead_us) {
+        if reversing && (held > self.release || state.quiet_us < self.dead_us) {
             duty = 0;
             active.insert(Condition::ReversalHold);
             // The quickest decay: through the diodes, against the supply. Slow decay would
@@ -590,14 +663,16 @@ impl BridgeGuard {
             if decay == AppliedDecay::Configured {
                 decay = AppliedDecay::Fast;
             }
-            let dead_left = self.dead_us.saturating_sub(if mag > self.release {
+            let dead_left = self.dead_us.saturating_sub(if held > self.release {
                 0
             } else {
                 state.quiet_us
             });
+            // The nominal decay of the magnitude acted on (with a bound: its largest).
+            let from = if i_now < 0 { -held } else { held };
             reversal_in = m
                 .decay_time_us(
-                    Current::from_bits(i_now),
+                    Current::from_bits(from),
                     Current::from_bits(self.release),
                     input.supply,
                     input.back_emf,
@@ -605,7 +680,7 @@ impl BridgeGuard {
                 )
                 .map(|t| t.saturating_add(dead_left));
         } else if state.direction == Direction::Unknown
-            && mag <= self.release
+            && held <= self.release
             && state.quiet_us >= self.dead_us
         {
             // The assumed current has decayed: nothing is known to flow any more.
@@ -617,7 +692,25 @@ impl BridgeGuard {
         // either decay's), so the largest duty that fits is found by bisection.
         let (supply, emf) = (input.supply, input.back_emf);
         let after_slow = state.coil.after_slow();
+        let rails = (vs, vs);
+        let bounded = |f: usize, duty: i32, decay: AppliedDecay| {
+            self.bound.as_ref().map(|b| {
+                b.frame_period(
+                    &state.bound,
+                    f,
+                    m,
+                    after_slow,
+                    (duty, decay),
+                    rails,
+                    (emf, emf),
+                )
+                .0
+            })
+        };
         let reach = |duty: i32, decay: AppliedDecay| -> i64 {
+            if let Some(p) = bounded(usize::from(duty < 0), duty, decay) {
+                return p.peak;
+            }
             let c = m.corners(i_now, after_slow, duty, supply, emf, decay);
             let d = i64::from(duty.signum());
             c.iter().map(|&x| x * d).max().unwrap_or(0)
@@ -639,7 +732,14 @@ impl BridgeGuard {
         // A spinning motor can push the recirculating current past the ceiling whatever the
         // duty (slow decay is a brake): then the off part decays fast instead, through the
         // diodes, against the supply.
-        let magnitude = magnitude_at(m, (i_now, after_slow), supply, emf);
+        let nominal = magnitude_at(m, (i_now, after_slow), supply, emf);
+        let magnitude = |duty: i32, decay: AppliedDecay| match (
+            bounded(0, duty, decay),
+            bounded(1, duty, decay),
+        ) {
+            (Some(a), Some(b)) => a.peak.max(b.peak),
+            _ => nominal(duty, decay),
+        };
         let mut predicted = magnitude(duty, decay);
         if predicted > self.ceiling && decay != AppliedDecay::Fast && m.has_slow_part(decay) {
             decay = AppliedDecay::Fast;
@@ -654,7 +754,23 @@ impl BridgeGuard {
                 let (drawn, returned) = (Charge::from_bits(p.drawn), Charge::from_bits(p.returned));
                 self.bus_after(state.bus, duty, decay, drawn, returned)
             };
-            if after(duty, decay) > b.headroom {
+            // With a bound: the charge the rail reading already shows plus the most the plan
+            // could return (the drive's draw ignored), against the headroom at the lowest
+            // capacitance.
+            let passes = |duty: i32, decay: AppliedDecay| {
+                let (_, fast, _) = m.split(duty, decay);
+                let sunk = b.sink_per_count.saturating_mul(i64::from(fast));
+                match (bounded(0, duty, decay), &self.bound) {
+                    (Some(a), Some(bb)) => {
+                        let r = a
+                            .returned
+                            .saturating_add(bounded(1, duty, decay).map_or(0, |x| x.returned));
+                        bb.bus_would_pass(input.supply, r, sunk)
+                    }
+                    _ => false,
+                }
+            };
+            if after(duty, decay) > b.headroom || passes(duty, decay) {
                 active.insert(Condition::SupplyPump);
                 if pol.supply_pump == PumpResponse::Recirculate {
                     (duty, decay) = self.spare_the_bus(duty, &magnitude);
@@ -682,6 +798,7 @@ impl BridgeGuard {
             latched: state.latched,
             estimate: est,
             predicted_peak: Current::from_bits(predicted.min(Current::LIMIT.to_bits())),
+            bound: Current::from_bits(held.min(Current::LIMIT.to_bits())),
             reversal_in_us: reversal_in,
             bus_charge: Charge::from_bits(state.bus),
         }

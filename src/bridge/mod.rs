@@ -52,6 +52,7 @@
 //! limit, so every asymptote lies within ±2⁶¹ raw (validation), the state stays between its old
 //! value and an asymptote, and each difference fed to the scaling is below 2⁶² in magnitude.
 
+mod bound;
 mod drive;
 mod guard;
 
