@@ -507,7 +507,10 @@ fn per_channel_state_stays_small() {
         std::mem::size_of::<coilward::bridge::BridgeState>(),
         std::mem::size_of::<coilward::bridge::BridgeOutput>(),
     );
-    println!("GuardState {} B", std::mem::size_of::<coilward::GuardState>());
+    println!(
+        "GuardState {} B",
+        std::mem::size_of::<coilward::GuardState>()
+    );
     assert!(
         std::mem::size_of::<coilward::bridge::BridgeState>()
             <= std::mem::size_of::<coilward::GuardState>()

@@ -40,7 +40,9 @@
 //! already shows, `C_lo·(V_read,hi − V_nom)`, ignoring the drive's draw (see the bridge guard).
 //!
 //! Rounding: every corner is widened by 10⁻⁶ relative and each segment adds 2 raw units, as on
-//! the low side.
+//! the low side; the back-EMF given is taken one raw unit lower still (its own rounding). With
+//! no spread declared the box is the model itself, so the bound covers the nominal estimate's
+//! rounding: the guard always acts on it.
 //!
 //! # Panics
 //! None: products are bounded by validation, sums saturate.
@@ -150,15 +152,14 @@ fn widen(x: u32, g: Gain) -> u32 {
 }
 
 impl BridgeBound {
-    /// Builds the bound of `p` (validated as `model`) for `t`; `None` when `t` declares no
-    /// spread at all (the guard then acts on the exact nominal estimate). `trip` is the trip
-    /// current, raw.
+    /// Builds the bound of `p` (validated as `model`) for `t` (with no spread declared, it covers
+    /// the model's own rounding). `trip` is the trip current, raw.
     pub(crate) fn new(
         p: &BridgeParams,
         model: &BridgeModel,
         t: &Tolerance,
         trip: i64,
-    ) -> Result<Option<Self>, ConfigError> {
+    ) -> Result<Self, ConfigError> {
         let s = spreads(t)?;
         for (spread, field) in [
             (s.c, Field::ToleranceNodeCapacitance),
@@ -169,9 +170,6 @@ impl BridgeBound {
             if spread > 0.0 {
                 return Err(ConfigError::conflict(field, Conflict::OtherTopology));
             }
-        }
-        if *t == Tolerance::EXACT {
-            return Ok(None);
         }
         if s.bus > 0.0 && p.bus.is_none() {
             return Err(ConfigError::conflict(
@@ -239,7 +237,7 @@ impl BridgeBound {
         });
         let v_hi = f64::from(p.supply.max) * (1.0 + s.v / (1.0 - s.v) + MARGIN);
         let worst = (v_hi + f64::from(p.motor.back_emf_limit)) / r_drive * raw_per_amp;
-        Ok(Some(Self {
+        Ok(Self {
             slices: core::array::from_fn(|j| slice(j.min(used - 1))),
             used,
             on_gain: gain(r_drive),
@@ -252,7 +250,7 @@ impl BridgeBound {
             emf_spread: Gain::new(s.k + MARGIN),
             bus,
             after_reset: (libm::ceil(worst) as i64).max(trip),
-        }))
+        })
     }
 
     /// How many slices are in use.
@@ -299,7 +297,8 @@ impl BridgeBound {
         let e = if f == 0 { a.min(b) } else { -a.max(b) };
         let cap = i64::from(m.emf_cap);
         let e = e.clamp(-cap, cap);
-        let e_lo = (e - self.emf_spread.apply(e.unsigned_abs() as u32) as i64).max(-cap);
+        // One raw unit lower still: the back-EMF given is the true one rounded to its format.
+        let e_lo = (e - self.emf_spread.apply(e.unsigned_abs() as u32) as i64 - 1).max(-cap);
         let through = |g: Gain, e: i64| {
             // |e| <= cap < 2^26: each result is validated below 2^61.
             let x = g.apply(e.unsigned_abs() as u32) as i64;

@@ -4,9 +4,11 @@
 //! # Protections
 //! - **Reversal interlock** (`reversal-hold`): a request in the other direction than the last
 //!   drive is held (output off) until the current magnitude is at or below the release current
-//!   and then, with the output still off, for the configured dead time, counted from the
-//!   instant the estimate reached the release level (the closed-form crossing inside its
-//!   period, rounded toward later), so the gap is never shorter than configured. While it holds, the off part is fast decay whatever the configured mode (slow decay
+//!   and then, with the output still off, for the configured dead time, counted from the end of
+//!   the period in which the bound (at or above the true magnitude) reached the release level,
+//!   so the gap after the true current's crossing is never shorter than configured (it may be
+//!   up to one period longer). While it holds, the off part is fast decay whatever the
+//!   configured mode (slow decay
 //!   would keep a braking current flowing as long as a motor turns), unless `supply-pump` asks
 //!   for recirculation. Driving again in the same direction is ordinary
 //!   PWM and is not held. After a reset the direction of a possible current is unknown, so
@@ -99,8 +101,8 @@ pub struct BridgeLimits {
     /// What each condition does.
     pub policy: BridgePolicy,
     /// The circuits the guard must be right for (default [`Tolerance::EXACT`]: the parameters
-    /// are exact and the guard acts on its nominal estimate). With any spread it acts on an
-    /// upper bound of the current magnitude for every circuit inside the box: inductance,
+    /// are exact, up to the model's rounding). The guard acts on an upper bound of the current
+    /// magnitude for every circuit inside the box: inductance,
     /// resistance, supply reading, back-EMF constant and bulk capacitance (the low side's
     /// node-capacitance, saturation and clamp spreads are refused: the bridge has no such part).
     pub tolerance: Tolerance,
@@ -185,11 +187,11 @@ pub struct BridgeOutput {
     pub latched: Conditions,
     /// The estimate over the period just ended.
     pub estimate: BridgeEstimate,
-    /// Predicted peak magnitude of the coming period (with a declared tolerance, the bound's:
-    /// at or above the true one for every circuit inside the box).
+    /// Predicted peak magnitude of the coming period, the bound's: at or above the true one for
+    /// every circuit inside the declared tolerance.
     pub predicted_peak: Current,
-    /// The current magnitude the interlock acts on now: with a declared tolerance the bound's
-    /// largest (at or above the true magnitude inside the box), else the estimate's.
+    /// The current magnitude the interlock acts on now: the bound's largest (at or above the
+    /// true magnitude for every circuit inside the declared tolerance).
     pub bound: Current,
     /// While `reversal-hold` is active: the time left, µs (decay plus dead time; `None`: the
     /// current will not decay that far).
@@ -241,7 +243,7 @@ pub struct BridgeState {
     rail: u32,
     /// The back-EMF of the last call (U16F16 bits).
     emf: i32,
-    /// With a declared tolerance: the bound's frames per slice (zero otherwise).
+    /// The bound's two frames per inductance slice.
     bound: BoundState,
     returned: Charge,
     active: Conditions,
@@ -295,21 +297,9 @@ pub struct BridgeGuard {
     supply_min: u32,
     supply_max: u32,
     worst_current: i64,
-    /// With a declared tolerance, the upper bound the decisions act on.
-    bound: Option<BridgeBound>,
-}
-
-/// The highest current magnitude over a period of `duty` and `decay` from `i_now`.
-fn magnitude_at(
-    m: &BridgeModel,
-    (i_now, after_slow): (i64, bool),
-    supply: Volts,
-    emf: SignedVolts,
-) -> impl Fn(i32, AppliedDecay) -> i64 + '_ {
-    move |duty, decay| {
-        let c = m.corners(i_now, after_slow, duty, supply, emf, decay);
-        c.iter().map(|x| x.saturating_abs()).max().unwrap_or(0)
-    }
+    /// The upper bound the decisions act on (over the declared tolerance; with none, over the
+    /// model's own rounding).
+    bound: BridgeBound,
 }
 
 fn amps_to_raw(model: &BridgeModel, field: Field, amps: f32) -> Result<i64, ConfigError> {
@@ -378,10 +368,10 @@ impl BridgeGuard {
         &self.model
     }
 
-    /// How many slices of the inductance range the bound tracks (0 without a declared
-    /// tolerance: the guard acts on its nominal estimate).
+    /// How many slices of the inductance range the bound tracks (1 with no inductance spread
+    /// declared).
     pub fn bound_slices(&self) -> usize {
-        self.bound.as_ref().map_or(0, BridgeBound::slices)
+        self.bound.slices()
     }
 
     /// The reversal dead time in whole periods (rounded up): the most periods it can hold a
@@ -401,7 +391,9 @@ impl BridgeGuard {
         BridgeState {
             coil: BridgeCoil::idle(),
             applied: 0,
-            decay: AppliedDecay::Configured,
+            // Before the first tick every switch is off: the coil sees fast decay (a slow decay
+            // would brake a turning rotor, and ends with both low switches on).
+            decay: AppliedDecay::Fast,
             direction: Direction::None,
             quiet_us: u32::MAX,
             bus: 0,
@@ -432,10 +424,7 @@ impl BridgeGuard {
         let s = self.start_with_current(Current::from_bits(self.worst_current));
         BridgeState {
             direction: Direction::Unknown,
-            bound: self
-                .bound
-                .as_ref()
-                .map_or(s.bound, BridgeBound::after_reset),
+            bound: self.bound.after_reset(),
             ..s
         }
     }
@@ -524,7 +513,6 @@ impl BridgeGuard {
         let m = &self.model;
         let n_full = m.duty_resolution() as i32; // <= 65535
         // 1. The period just ended.
-        let i_start = state.coil.current();
         let after_slow_then = state.coil.after_slow();
         let est = m.step_with(
             &mut state.coil,
@@ -536,19 +524,17 @@ impl BridgeGuard {
         state.returned = state.returned.saturating_add(est.returned);
         // The bound over the same period: the rail and the back-EMF between the two readings
         // that frame it.
-        let bound_before = self.bound.as_ref().map(|b| b.magnitude(&state.bound));
-        if let Some(b) = &self.bound {
-            let now = m.supply_bits(input.supply);
-            let before = if state.rail == 0 { now } else { state.rail };
-            b.advance(
-                &mut state.bound,
-                m,
-                after_slow_then,
-                (state.applied, state.decay),
-                (before.min(now), before.max(now)),
-                (SignedVolts::from_bits(state.emf), input.back_emf),
-            );
-        }
+        let bound_before = self.bound.magnitude(&state.bound);
+        let now = m.supply_bits(input.supply);
+        let before = if state.rail == 0 { now } else { state.rail };
+        self.bound.advance(
+            &mut state.bound,
+            m,
+            after_slow_then,
+            (state.applied, state.decay),
+            (before.min(now), before.max(now)),
+            (SignedVolts::from_bits(state.emf), input.back_emf),
+        );
         state.rail = m.supply_bits(input.supply);
         state.emf = input.back_emf.to_bits();
         // 2. The bus: the period just ended, then whether it is still recovering from a pump.
@@ -567,11 +553,8 @@ impl BridgeGuard {
         let i_now = state.coil.current().to_bits();
         let mag = i_now.unsigned_abs().min(Current::LIMIT.to_bits() as u64) as i64;
         let peak = est.peak_magnitude().to_bits();
-        // What the interlock and the ceiling act on: the bound when a tolerance is declared.
-        let held = self
-            .bound
-            .as_ref()
-            .map_or(mag, |b| b.magnitude(&state.bound));
+        // What the interlock and the ceiling act on: the bound's largest magnitude.
+        let held = self.bound.magnitude(&state.bound);
 
         let prev = state.active;
         let mut active = Conditions::NONE;
@@ -616,26 +599,12 @@ impl BridgeGuard {
         // 3. The interlock. The dead time runs from the instant the estimate reached the
         // release level, not from the end of the period in which it did.
         state.quiet_us = if state.applied == 0 && held <= self.release {
-            let start = bound_before.map_or(i_start.to_bits().unsigned_abs(), |b| b as u64);
-            if start <= self.release as u64 {
+            if bound_before <= self.release {
                 state.quiet_us.saturating_add(self.period_us)
-            } else if bound_before.is_some() {
+            } else {
                 // The bound fell inside the period just ended: its crossing is taken at the
                 // period's end (later than any true crossing).
                 0
-            } else {
-                // Fell inside the period just ended: the crossing, rounded up (so the quiet time
-                // is never overstated), from the closed form of the decay that was applied.
-                let fell = m
-                    .decay_time_us(
-                        i_start,
-                        Current::from_bits(self.release),
-                        input.supply,
-                        input.back_emf,
-                        state.decay,
-                    )
-                    .unwrap_or(self.period_us);
-                self.period_us.saturating_sub(fell)
             }
         } else {
             0
@@ -694,8 +663,8 @@ impl BridgeGuard {
         let after_slow = state.coil.after_slow();
         let rails = (vs, vs);
         let bounded = |f: usize, duty: i32, decay: AppliedDecay| {
-            self.bound.as_ref().map(|b| {
-                b.frame_period(
+            self.bound
+                .frame_period(
                     &state.bound,
                     f,
                     m,
@@ -705,16 +674,10 @@ impl BridgeGuard {
                     (emf, emf),
                 )
                 .0
-            })
         };
-        let reach = |duty: i32, decay: AppliedDecay| -> i64 {
-            if let Some(p) = bounded(usize::from(duty < 0), duty, decay) {
-                return p.peak;
-            }
-            let c = m.corners(i_now, after_slow, duty, supply, emf, decay);
-            let d = i64::from(duty.signum());
-            c.iter().map(|&x| x * d).max().unwrap_or(0)
-        };
+        // The peak in the drive's direction.
+        let reach =
+            |duty: i32, decay: AppliedDecay| bounded(usize::from(duty < 0), duty, decay).peak;
         if duty != 0 {
             let d = duty.signum();
             let n = duty.unsigned_abs();
@@ -732,13 +695,10 @@ impl BridgeGuard {
         // A spinning motor can push the recirculating current past the ceiling whatever the
         // duty (slow decay is a brake): then the off part decays fast instead, through the
         // diodes, against the supply.
-        let nominal = magnitude_at(m, (i_now, after_slow), supply, emf);
-        let magnitude = |duty: i32, decay: AppliedDecay| match (
-            bounded(0, duty, decay),
-            bounded(1, duty, decay),
-        ) {
-            (Some(a), Some(b)) => a.peak.max(b.peak),
-            _ => nominal(duty, decay),
+        let magnitude = |duty: i32, decay: AppliedDecay| {
+            bounded(0, duty, decay)
+                .peak
+                .max(bounded(1, duty, decay).peak)
         };
         let mut predicted = magnitude(duty, decay);
         if predicted > self.ceiling && decay != AppliedDecay::Fast && m.has_slow_part(decay) {
@@ -754,21 +714,16 @@ impl BridgeGuard {
                 let (drawn, returned) = (Charge::from_bits(p.drawn), Charge::from_bits(p.returned));
                 self.bus_after(state.bus, duty, decay, drawn, returned)
             };
-            // With a bound: the charge the rail reading already shows plus the most the plan
+            // The bound's: the charge the rail reading already shows plus the most the plan
             // could return (the drive's draw ignored), against the headroom at the lowest
             // capacitance.
             let passes = |duty: i32, decay: AppliedDecay| {
                 let (_, fast, _) = m.split(duty, decay);
                 let sunk = b.sink_per_count.saturating_mul(i64::from(fast));
-                match (bounded(0, duty, decay), &self.bound) {
-                    (Some(a), Some(bb)) => {
-                        let r = a
-                            .returned
-                            .saturating_add(bounded(1, duty, decay).map_or(0, |x| x.returned));
-                        bb.bus_would_pass(input.supply, r, sunk)
-                    }
-                    _ => false,
-                }
+                let r = bounded(0, duty, decay)
+                    .returned
+                    .saturating_add(bounded(1, duty, decay).returned);
+                self.bound.bus_would_pass(input.supply, r, sunk)
             };
             if after(duty, decay) > b.headroom || passes(duty, decay) {
                 active.insert(Condition::SupplyPump);
