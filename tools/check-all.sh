@@ -103,8 +103,13 @@ expect 3 "$SIM" run examples/scenarios/unclamped-avalanche.toml
 # Driven to the ceiling on purpose (the fault suite's base): the guard acts, so the verdict is limited.
 expect 3 "$SIM" run examples/scenarios/valve-at-ceiling.toml
 cargo run --quiet --release -p coilward-sim --example fault_table >"$OUT/faults.md"
-# The fault suite over each low-side demo's declared tolerance: nothing inside it is exceeded.
-for f in irrigation-valve relay-zener relay-on-events unclamped-avalanche valve-at-ceiling; do
+# The small-bus door motor: supply-pump, coasting, then braking (limited); its plot is written.
+expect 3 "$SIM" run examples/scenarios/door-motor-small-bus.toml --svg "$OUT/door.svg"
+test -s "$OUT/door.svg"
+# The fault suite over each demo's declared tolerance (both topologies): nothing inside it is
+# exceeded.
+for f in irrigation-valve relay-zener relay-on-events unclamped-avalanche valve-at-ceiling \
+    reversing-gear-motor door-motor-small-bus; do
     expect 0 "$SIM" faults "examples/scenarios/$f.toml" --json "$OUT/faults-$f.json"
     grep -q '"inside_tolerance": true' "$OUT/faults-$f.json"
 done

@@ -58,8 +58,10 @@ pub struct Outcome {
     pub inside_tolerance: bool,
     /// True peak current over the guard's effective ceiling.
     pub peak_over_ceiling: f64,
-    /// Largest true clamp pulse over the pulse rating (0 without a rating).
+    /// Largest true clamp pulse over the pulse rating (0 without a rating; the low side).
     pub pulse_over_rating: f64,
+    /// Highest true bus voltage over the supply's maximum (0 on the low side).
+    pub bus_over_maximum: f64,
     /// The load was switched on before its true current fell below the release current.
     pub early_turn_on: bool,
     /// Any of the three above.
@@ -307,6 +309,7 @@ pub fn run(case: &Case) -> (Outcome, Run) {
         inside_tolerance: case.inside,
         peak_over_ceiling,
         pulse_over_rating,
+        bus_over_maximum: 0.0,
         early_turn_on,
         exceeded: over(peak_over_ceiling) || over(pulse_over_rating) || early_turn_on,
         flagged: first_flag.is_some(),
@@ -321,51 +324,55 @@ pub fn run(case: &Case) -> (Outcome, Run) {
 /// The suite's table in Markdown (README).
 pub fn table(outcomes: &[Outcome], period: f64) -> String {
     use crate::report::si;
-    let mut s = String::from(
-        "| case | inside the declared tolerance | true peak / ceiling | clamp pulse / rating | switched on early | exceeded | guard flagged |\n|---|---|---|---|---|---|---|\n",
+    // A bridge's cases report the bus where a low side's report the clamp pulse.
+    let bridge = outcomes.iter().any(|o| o.bus_over_maximum > 0.0);
+    let (third, early) = if bridge {
+        ("true bus peak / maximum", "reversed early")
+    } else {
+        ("clamp pulse / rating", "switched on early")
+    };
+    let mut s = format!(
+        "| case | inside the declared tolerance | true peak / ceiling | {third} | {early} | exceeded | guard flagged |\n|---|---|---|---|---|---|---|\n",
     );
-    // The random points fold into one row: the worst of each column.
+    // The random points fold into one row, the worst of each column; so do the corners when
+    // there are more than eight.
+    let corners = outcomes
+        .iter()
+        .filter(|o| o.name.starts_with("corner:"))
+        .count();
+    let folds = |o: &Outcome| {
+        o.name.starts_with("random point") || (corners > 8 && o.name.starts_with("corner:"))
+    };
+    let mut rows: Vec<Outcome> = outcomes.iter().filter(|o| !folds(o)).cloned().collect();
+    if corners > 8 {
+        let group: Vec<&Outcome> = outcomes
+            .iter()
+            .filter(|o| o.name.starts_with("corner:"))
+            .collect();
+        rows.push(worst_of(
+            &group,
+            format!("{corners} corners (worst of each column)"),
+        ));
+    }
     let random: Vec<&Outcome> = outcomes
         .iter()
         .filter(|o| o.name.starts_with("random point"))
         .collect();
-    let folded = (!random.is_empty()).then(|| Outcome {
-        name: format!(
+    if !random.is_empty() {
+        let name = format!(
             "{} random points inside (worst of each column)",
             random.len()
-        ),
-        inside_tolerance: true,
-        peak_over_ceiling: random
-            .iter()
-            .map(|o| o.peak_over_ceiling)
-            .fold(0.0, f64::max),
-        pulse_over_rating: random
-            .iter()
-            .map(|o| o.pulse_over_rating)
-            .fold(0.0, f64::max),
-        early_turn_on: random.iter().any(|o| o.early_turn_on),
-        exceeded: random.iter().any(|o| o.exceeded),
-        flagged: random.iter().any(|o| o.flagged),
-        first_flag: random.iter().find_map(|o| o.first_flag),
-        starts: 0.0,
-        detectable: false,
-        bound_margin_a: random
-            .iter()
-            .map(|o| o.bound_margin_a)
-            .fold(f64::MAX, f64::min),
-    });
-    let rows = outcomes
-        .iter()
-        .filter(|o| !o.name.starts_with("random point"))
-        .chain(folded.iter());
-    for o in rows {
+        );
+        rows.push(worst_of(&random, name));
+    }
+    for o in &rows {
         let flagged = match o.first_flag {
             Some((c, t)) => {
                 let late = t - o.starts;
                 format!(
                     "`{c}` at {}{}",
                     si(t, "s", 3),
-                    if late <= period * 1.000_001 {
+                    if o.detectable && late <= period * 1.000_001 {
                         " (within one period)"
                     } else {
                         ""
@@ -381,11 +388,37 @@ pub fn table(outcomes: &[Outcome], period: f64) -> String {
             o.name,
             if o.inside_tolerance { "yes" } else { "no" },
             o.peak_over_ceiling,
-            o.pulse_over_rating,
+            if bridge {
+                o.bus_over_maximum
+            } else {
+                o.pulse_over_rating
+            },
             if o.early_turn_on { "**yes**" } else { "no" },
             if o.exceeded { "**yes**" } else { "no" },
             flagged
         ));
     }
     s
+}
+
+/// One row for a group of cases inside the box: the worst of each column.
+fn worst_of(group: &[&Outcome], name: String) -> Outcome {
+    let max = |f: fn(&Outcome) -> f64| group.iter().map(|o| f(o)).fold(0.0, f64::max);
+    Outcome {
+        name,
+        inside_tolerance: true,
+        peak_over_ceiling: max(|o| o.peak_over_ceiling),
+        pulse_over_rating: max(|o| o.pulse_over_rating),
+        bus_over_maximum: max(|o| o.bus_over_maximum),
+        early_turn_on: group.iter().any(|o| o.early_turn_on),
+        exceeded: group.iter().any(|o| o.exceeded),
+        flagged: group.iter().any(|o| o.flagged),
+        first_flag: group.iter().find_map(|o| o.first_flag),
+        starts: 0.0,
+        detectable: false,
+        bound_margin_a: group
+            .iter()
+            .map(|o| o.bound_margin_a)
+            .fold(f64::MAX, f64::min),
+    }
 }

@@ -82,6 +82,12 @@ struct BoundBus {
     nominal: u32,
     /// `C_lo·(V_max − V_nom)`.
     headroom: i64,
+    /// `L_hi·s²·2¹⁶·2³²/(2·q_bit)`, widened (`s`: amperes per raw current unit): `x²` of a
+    /// current `x·2¹⁶` (raw) times this, over a stopping voltage in volt bits, bounds the charge
+    /// that stopping it with every switch off returns (see [`BridgeBound::stop_fits`]).
+    stop: Gain,
+    /// What the supply sinks, raw current (rounded down).
+    sink: i64,
 }
 
 /// The bridge guard's bound (see the module documentation).
@@ -96,6 +102,8 @@ pub(crate) struct BridgeBound {
     /// `2V_f/(R_lo + 2R_d)` and `V_f/(R_lo + R_on + R_d)`, raw.
     fast_offset: i64,
     dead_offset: i64,
+    /// `2V_f` in volt bits, rounded down.
+    stop_offset: i64,
     /// `f_V/(1 − f_V)` and `f_V/(1 + f_V)`, widened: the true rail is within
     /// `reading·(1 − below) ..= reading·(1 + above)`.
     above: Gain,
@@ -116,14 +124,28 @@ struct Frame {
     slow: i64,
     fast: i64,
     dead: i64,
+    /// The lowest voltage that stops a current in fast decay, `V_lo + 2V_f + e_lo`, volt bits
+    /// (at or below zero: the back-EMF keeps the current flowing).
+    stop: i64,
 }
 
-/// One frame's period: the largest value it reaches, its end and its fast-decay charge bound.
+/// One frame's period: the largest value it reaches, its end, its fast-decay charge bound and
+/// the frame's stopping voltage (volt bits).
 #[derive(Debug, Clone, Copy)]
 pub(crate) struct FramePeriod {
     pub(crate) peak: i64,
     pub(crate) end: i64,
     pub(crate) returned: i64,
+    pub(crate) stop: i64,
+}
+
+impl FramePeriod {
+    const ZERO: Self = Self {
+        peak: 0,
+        end: 0,
+        returned: 0,
+        stop: 0,
+    };
 }
 
 /// A segment of the bound toward `a` from `j` (≥ 0): the rise or the fall table as `j` lies
@@ -229,10 +251,15 @@ impl BridgeBound {
             let c_lo = f64::from(b.capacitance) * (1.0 - s.bus - MARGIN);
             let charge_bit = f64::from(d.charge_unit);
             let v = |x: f32| (f64::from(x) * 65_536.0) as u32;
+            let amp = f64::from(d.full_scale) / 1_099_511_627_776.0;
             BoundBus {
                 per_bit: Gain::new(c_lo / 65_536.0 / charge_bit),
                 nominal: v(p.supply.nominal),
                 headroom: (c_lo * f64::from(p.supply.max - p.supply.nominal) / charge_bit) as i64,
+                stop: Gain::new(
+                    l_hi * amp * amp * 65_536.0 * 4_294_967_296.0 / (2.0 * charge_bit) * up * up,
+                ),
+                sink: (f64::from(b.sink_current) * raw_per_amp) as i64,
             }
         });
         let v_hi = f64::from(p.supply.max) * (1.0 + s.v / (1.0 - s.v) + MARGIN);
@@ -245,6 +272,7 @@ impl BridgeBound {
             dead_gain: gain(r_dead),
             fast_offset: libm::ceil(2.0 * vf / r_fast * raw_per_amp * up) as i64,
             dead_offset: libm::ceil(vf / r_dead * raw_per_amp * up) as i64,
+            stop_offset: libm::floor(2.0 * vf * 65_536.0) as i64,
             above: Gain::new(s.v / (1.0 - s.v) + MARGIN),
             below: Gain::new(s.v / (1.0 + s.v) + MARGIN),
             emf_spread: Gain::new(s.k + MARGIN),
@@ -314,6 +342,7 @@ impl BridgeBound {
             fast: -(self.fast_gain.apply(v_lo) as i64 + self.fast_offset)
                 - through(self.fast_gain, e_lo),
             dead: -(self.dead_offset + through(self.dead_gain, e_lo)),
+            stop: i64::from(v_lo) + self.stop_offset + e_lo,
         }
     }
 
@@ -363,6 +392,7 @@ impl BridgeBound {
             peak: j0.max(ja).max(j1).max(j2).max(jb).max(j3),
             end: j3,
             returned,
+            stop: fr.stop,
         }
     }
 
@@ -386,6 +416,7 @@ impl BridgeBound {
             peak: 0,
             end: 0,
             returned: 0,
+            stop: fr.stop,
         };
         let mut ends = [0; BRIDGE_SLICES];
         for ((s, frames), end) in self.slices[..self.used].iter().zip(st).zip(&mut ends) {
@@ -422,16 +453,126 @@ impl BridgeBound {
         peak
     }
 
-    /// Whether returning up to `returned` (Charge bits) in the coming period, less what the
-    /// supply sinks meanwhile, could lift the true rail past the maximum, starting from the rail
-    /// the reading shows at most.
-    pub(crate) fn bus_would_pass(&self, supply: Volts, returned: i64, sunk: i64) -> bool {
-        let Some(b) = self.bus else { return false };
+    /// The charge the rail reading already shows above rest, at most (Charge bits, at the
+    /// lowest capacitance), and the bus terms; `None` without a bus.
+    fn bus_now(&self, supply: Volts) -> Option<(BoundBus, i64)> {
+        let b = self.bus?;
         let v_hi = widen(supply.to_bits(), self.above);
         let now = b
             .per_bit
             .apply(v_hi.saturating_sub(b.nominal))
             .min(i64::MAX as u64) as i64;
-        now.saturating_add(returned.saturating_sub(sunk).max(0)) > b.headroom
+        Some((b, now))
+    }
+
+    /// Whether the plan `(duty, decay)` from `st` keeps the true rail at or under the maximum,
+    /// in the coming period and after it: the charge the rail reading already shows, plus what
+    /// the period returns in both frames less what the supply sinks meanwhile (`sunk`), plus
+    /// what bringing the current at the period's end to rest returns, stays within the
+    /// headroom. The current can be brought to rest by coasting (every switch off; see
+    /// [`Self::stop_fits`]), by recirculating for as long as it takes (when the back-EMF cannot
+    /// drive the recirculating current past the ceiling), or by one period of recirculation
+    /// and then coasting. A plan that keeps this leaves [`Self::can_coast`] or one of the
+    /// others true at the next tick: the guard always has an exit.
+    ///
+    /// With `strict` an eighth of the headroom is held back: the guard plans with it and takes
+    /// an exit without it, so that the next tick's readings (a back-EMF a little different,
+    /// the rounding of the bound) cannot close the exit a plan left open.
+    #[allow(clippy::too_many_arguments)] // the period's inputs, as `frame_period`
+    pub(crate) fn keeps_bus(
+        &self,
+        st: &BoundState,
+        m: &BridgeModel,
+        after_slow: bool,
+        plan: (i32, AppliedDecay),
+        (rails, emfs): ((u32, u32), (SignedVolts, SignedVolts)),
+        (supply, sunk): (Volts, i64),
+        (ceiling, strict): (i64, bool),
+    ) -> bool {
+        let Some((b, now)) = self.bus_now(supply) else {
+            return true;
+        };
+        let mut next = *st;
+        let mut periods = [FramePeriod::ZERO; 2];
+        for (f, p) in periods.iter_mut().enumerate() {
+            let (worst, ends) = self.frame_period(st, f, m, after_slow, plan, rails, emfs);
+            for (frames, e) in next.iter_mut().zip(ends).take(self.used) {
+                frames[f] = e;
+            }
+            *p = worst;
+        }
+        let returned = periods[0]
+            .returned
+            .saturating_add(periods[1].returned)
+            .saturating_sub(sunk)
+            .max(0);
+        let reserve = if strict { b.headroom >> 3 } else { 0 };
+        let left = (b.headroom - reserve)
+            .saturating_sub(now)
+            .saturating_sub(returned);
+        if left < 0 {
+            return false;
+        }
+        if periods
+            .iter()
+            .all(|p| Self::stop_fits(&b, p.end, p.stop, left))
+        {
+            return true;
+        }
+        // Recirculating: each frame heads for its slow asymptote (the back-EMF over the
+        // resistance); at or under the ceiling in both, recirculation never passes it.
+        let slow = (0, AppliedDecay::Slow);
+        let rest: [FramePeriod; 2] =
+            core::array::from_fn(|f| self.frame_period(&next, f, m, false, slow, rails, emfs).0);
+        let settles = (0..2).all(|f| self.frame(f, 0, m, rails, emfs).slow <= ceiling);
+        settles
+            || rest
+                .iter()
+                .all(|p| p.peak <= ceiling && Self::stop_fits(&b, p.end, p.stop, left))
+    }
+
+    /// Whether coasting from `st` (every switch off until the current is at rest) keeps the
+    /// true rail at or under the maximum: in each frame, what stopping its largest current
+    /// returns ([`Self::stop_fits`]) fits in the headroom the rail reading leaves. It covers
+    /// the whole stop, so a coast that fits keeps fitting while it lasts.
+    pub(crate) fn can_coast(
+        &self,
+        st: &BoundState,
+        m: &BridgeModel,
+        (rails, emfs): ((u32, u32), (SignedVolts, SignedVolts)),
+        supply: Volts,
+    ) -> bool {
+        let Some((b, now)) = self.bus_now(supply) else {
+            return true;
+        };
+        let left = b.headroom.saturating_sub(now);
+        (0..2).all(|f| {
+            let j = st[..self.used].iter().map(|x| x[f]).max().unwrap_or(0);
+            left >= 0 && Self::stop_fits(&b, j, self.frame(f, 0, m, rails, emfs).stop, left)
+        })
+    }
+
+    /// Whether stopping a current `j` (raw, in a frame whose stopping voltage is `stop` volt
+    /// bits) with every switch off gives the bus at most `left` (Charge bits).
+    ///
+    /// With every switch off the current falls at least as fast as `U/L` (`U` the stopping
+    /// voltage; the resistance only helps), so the charge it gives the bus beyond what the
+    /// supply sinks, `∫ max(0, j − I_sink) dt`, is at most `L_hi·(j − I_sink)²/(2U)` (the
+    /// triangle under that line; a stop begun later returns the rest of the same triangle).
+    /// It is compared without a division: `x²·k ≤ U·left`. A frame whose back-EMF keeps the
+    /// current flowing (`U ≤ 0`) fits only at zero.
+    fn stop_fits(b: &BoundBus, j: i64, stop: i64, left: i64) -> bool {
+        let x = j.saturating_sub(b.sink).max(0);
+        if x == 0 {
+            return true;
+        }
+        if stop <= 0 {
+            return false;
+        }
+        // Rounded up to 2¹⁶ raw units: x_s < 2^48, x_s² < 2^96.
+        let xs = (x as u128).div_ceil(1 << 16);
+        let need = b.stop.apply_u128_full(xs * xs).saturating_add(1);
+        // stop < 2^34 (volt bits), left < 2^63: the product < 2^97.
+        need <= (stop as u128) * (left.max(0) as u128)
     }
 }

@@ -450,25 +450,39 @@ impl BridgeGuard {
             .saturating_add(gain)
     }
 
-    /// A plan that returns nothing to the bus: the off part in slow decay, with the largest
-    /// duty (of `duty`'s sign, at most its magnitude) whose period stays under the ceiling, or
-    /// no drive at all when even recirculation alone passes it (plug braking on a turning
-    /// rotor: driving against it only adds energy the bus would have to take).
+    /// A plan that keeps the bus (`keeps`, strictly or not) and the ceiling, in this order of
+    /// preference: the off part in slow decay with the largest duty (of `duty`'s sign, at most
+    /// its magnitude) that keeps both strictly; coasting when `coast` says the bus can take the
+    /// whole stop (every switch off: the current stops on the diodes; every strict plan has
+    /// left room for it or for one more period of recirculation first); and otherwise slow
+    /// decay with no drive — that recirculation, or, when nothing keeps both (the guard started
+    /// not knowing the current, or the circuit is outside its tolerance), the bus first, since
+    /// a rail past the switches' breakdown destroys them, and the trip still guards the
+    /// current.
     fn spare_the_bus(
         &self,
         duty: i32,
         magnitude: &dyn Fn(i32, AppliedDecay) -> i64,
+        keeps: &dyn Fn(i32, AppliedDecay, bool) -> bool,
+        coast: bool,
     ) -> (i32, AppliedDecay) {
         let slow = AppliedDecay::Slow;
-        if magnitude(duty, slow) <= self.ceiling {
+        let fits =
+            |c: i32, decay, strict| magnitude(c, decay) <= self.ceiling && keeps(c, decay, strict);
+        if fits(duty, slow, true) {
             return (duty, slow);
         }
         let d = duty.signum();
-        let lo = crate::qmath::largest_count(duty.unsigned_abs(), |c| {
-            magnitude(d * c as i32, slow) <= self.ceiling
-        });
-        // lo <= 65535; at lo = 0 no drive is left, fitting or not.
-        (d * lo as i32, slow)
+        let lo =
+            crate::qmath::largest_count(duty.unsigned_abs(), |c| fits(d * c as i32, slow, true));
+        // lo <= 65535.
+        if lo > 0 || fits(0, slow, true) {
+            return (d * lo as i32, slow);
+        }
+        if coast && magnitude(0, AppliedDecay::Fast) <= self.ceiling {
+            return (0, AppliedDecay::Fast);
+        }
+        (0, slow)
     }
 
     /// Clears latched trips. Conditions still present trip again.
@@ -714,21 +728,31 @@ impl BridgeGuard {
                 let (drawn, returned) = (Charge::from_bits(p.drawn), Charge::from_bits(p.returned));
                 self.bus_after(state.bus, duty, decay, drawn, returned)
             };
-            // The bound's: the charge the rail reading already shows plus the most the plan
-            // could return (the drive's draw ignored), against the headroom at the lowest
-            // capacitance.
-            let passes = |duty: i32, decay: AppliedDecay| {
+            // The nominal tracker and the bound's: the charge the rail reading already shows plus
+            // the most the plan could return (the drive's draw ignored), and what stopping the
+            // current at the period's end would return, against the headroom at the lowest
+            // capacitance (`BridgeBound::keeps_bus`).
+            let keeps = |duty: i32, decay: AppliedDecay, strict: bool| {
                 let (_, fast, _) = m.split(duty, decay);
                 let sunk = b.sink_per_count.saturating_mul(i64::from(fast));
-                let r = bounded(0, duty, decay)
-                    .returned
-                    .saturating_add(bounded(1, duty, decay).returned);
-                self.bound.bus_would_pass(input.supply, r, sunk)
+                after(duty, decay) <= b.headroom
+                    && self.bound.keeps_bus(
+                        &state.bound,
+                        m,
+                        after_slow,
+                        (duty, decay),
+                        (rails, (emf, emf)),
+                        (input.supply, sunk),
+                        (self.ceiling, strict),
+                    )
             };
-            if after(duty, decay) > b.headroom || passes(duty, decay) {
+            if !keeps(duty, decay, true) {
                 active.insert(Condition::SupplyPump);
                 if pol.supply_pump == PumpResponse::Recirculate {
-                    (duty, decay) = self.spare_the_bus(duty, &magnitude);
+                    let coast =
+                        self.bound
+                            .can_coast(&state.bound, m, (rails, (emf, emf)), input.supply);
+                    (duty, decay) = self.spare_the_bus(duty, &magnitude, &keeps, coast);
                     predicted = magnitude(duty, decay);
                     if predicted > self.ceiling {
                         // Neither decay keeps both the bus and the ceiling: the bus comes first

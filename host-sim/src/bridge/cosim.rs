@@ -7,7 +7,7 @@
 //! change of a leg between high and low (the changing leg floats for the dead time). The run
 //! starts one period before t = 0 with the bridge off, as for the low-side co-simulation.
 
-use crate::bridge::plant::{BridgePlant, BridgeState, BridgeTally};
+use crate::bridge::plant::{BridgePlant, BridgeTally};
 use crate::bridge::scenario::BridgeScenario;
 use crate::cosim::{EventRecord, Finding};
 use crate::plant::PlantError;
@@ -78,6 +78,9 @@ pub struct BridgeRun {
     pub peak_bus_v: f64,
     /// Largest |estimate − true| at the period starts, A.
     pub max_estimate_error_a: f64,
+    /// Smallest margin of the magnitude the guard acts on (its bound with a declared tolerance,
+    /// else its estimate) over the true magnitude at the period starts, A (negative: below it).
+    pub min_bound_margin_a: f64,
     /// Periods in which `reversal-hold` held the output.
     pub held_periods: u64,
     /// Periods in which the applied duty differed from the request.
@@ -288,7 +291,10 @@ fn apply(
 
 /// Runs the scenario. Rows are kept when `rows` is set.
 pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
-    let mut r = BridgeRun::default();
+    let mut r = BridgeRun {
+        min_bound_margin_a: f64::INFINITY,
+        ..BridgeRun::default()
+    };
     let guard: BridgeGuard = match s.guard() {
         Ok(g) => g,
         Err(e) => {
@@ -302,12 +308,29 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
     let release = f64::from(s.limits.release_current);
     let supply = s.circuit.supply;
     let vs = Volts::saturating_from_num(supply);
-    let mut plant = BridgePlant::new(s.circuit, BridgeState::default());
-    let mut state = guard.start_idle();
+    let mut plant = BridgePlant::new(s.circuit, s.start);
+    // A coil that may carry current the guard was not told of: it starts as after a reset.
+    let mut state = if s.start.current == 0.0 {
+        guard.start_idle()
+    } else {
+        guard.start_after_reset()
+    };
     let mut legs = (LegState::Float, LegState::Float);
     // The period before t = 0: off.
     let mut tally = BridgeTally::starting(plant.state);
-    let pre = guard.tick(&mut state, BridgeInput::new(0, vs));
+    let emf_of = |speed: f64| {
+        if s.speed_feedback {
+            m.back_emf_from_speed(Speed::saturating_from_num(speed))
+        } else {
+            coilward::SignedVolts::ZERO
+        }
+    };
+    let pre = guard.tick(
+        &mut state,
+        BridgeInput::new(0, vs).with_back_emf(emf_of(plant.state.speed)),
+    );
+    // What it raises (a supply outside its window, say) belongs to the run.
+    r.record(&pre, -s.period, (0, 0.0, n_full));
     let phases = |o: &coilward::bridge::BridgeOutput| {
         o.plan
             .phases()
@@ -332,19 +355,18 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
         let t = k as f64 * s.period;
         let want = s.duty_in_period(k);
         let request = (want * f64::from(n_full)).round() as i32;
-        let emf = if s.speed_feedback {
-            m.back_emf_from_speed(Speed::saturating_from_num(plant.state.speed))
-        } else {
-            coilward::SignedVolts::ZERO
-        };
+        let emf = emf_of(plant.state.speed);
         let i_true = plant.state.current;
-        // The firmware measures the rail it drives from: the bus, lifted by what came back.
+        // The firmware measures the rail it drives from: the bus, lifted by what came back
+        // (read with the scenario's reading error, zero unless the fault suite sets one).
         let rail = plant.rail();
-        let vs = Volts::saturating_from_num(rail);
+        let vs = Volts::saturating_from_num((rail + s.reading_offset).max(0.0));
         let out = guard.tick(&mut state, BridgeInput::new(request, vs).with_back_emf(emf));
         let est = f64::from(m.amps(state.current()));
         let err = (est - i_true).abs();
         r.max_estimate_error_a = r.max_estimate_error_a.max(err);
+        let margin = f64::from(m.amps(out.bound)) - i_true.abs();
+        r.min_bound_margin_a = r.min_bound_margin_a.min(margin);
         r.estimated_returned_energy_j += m.coulombs(out.estimate.returned) * rail;
         r.record(&out, t, (request, want, n_full));
         if out.active.contains(Condition::ReversalHold) {

@@ -15,13 +15,15 @@
 //!              reversal_dead_time = "500 us"
 //! [[drive]]    at = "0 s"  duty = "-60 %"
 //! [run]        duration = "200 ms"
+//! [tolerance]  inductance = "±20 %"  resistance = "±15 %"  supply_reading = "±3 %"
+//!              back_emf_constant = "±20 %"  bus_capacitance = "±20 %"
 //! ```
 //! (one key per line in a real file; the full key list is in the contributor guide). The firmware
 //! is taken to know the circuit exactly; a positive duty drives current from leg A to leg B.
 
-use crate::bridge::plant::{BridgeCircuit, Bus, Rotor};
+use crate::bridge::plant::{BridgeCircuit, BridgeState, Bus, Rotor};
 use crate::scenario::{Cx, ScenarioError};
-use crate::units::Unit;
+use crate::units::{self, Spread, Unit};
 use coilward::bridge::{
     BodyDiode, BridgeLimits, BridgeParams, BusParams, DecayMode, MotorParams, PumpResponse,
 };
@@ -51,6 +53,17 @@ struct Raw {
     #[serde(default)]
     drive: Vec<RawDrive>,
     run: RawRun,
+    tolerance: Option<RawTolerance>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawTolerance {
+    inductance: Text,
+    resistance: Text,
+    supply_reading: Text,
+    back_emf_constant: Text,
+    bus_capacitance: Text,
 }
 
 #[derive(Deserialize)]
@@ -148,6 +161,39 @@ pub struct BridgeStep {
     pub duty: f64,
 }
 
+/// The `[tolerance]` spreads of a bridge scenario, each ± a fraction of its nominal value (0:
+/// exact). The guard's declared-tolerance bound covers every circuit inside them.
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct BridgeSpreads {
+    /// `coil.inductance`.
+    pub inductance: f64,
+    /// `coil.resistance` (the winding and the switches' on-resistance together).
+    pub resistance: f64,
+    /// The firmware's reading of the rail.
+    pub supply_reading: f64,
+    /// `motor.constant` (the back-EMF the guard is given is the speed times its nominal value).
+    pub back_emf_constant: f64,
+    /// `bus.capacitance`.
+    pub bus_capacitance: f64,
+}
+
+impl BridgeSpreads {
+    /// The spreads as the library's [`coilward::Tolerance`].
+    pub fn declared(&self) -> coilward::Tolerance {
+        coilward::Tolerance::EXACT
+            .with_inductance(self.inductance as f32)
+            .with_resistance(self.resistance as f32)
+            .with_supply_reading(self.supply_reading as f32)
+            .with_back_emf_constant(self.back_emf_constant as f32)
+            .with_bus_capacitance(self.bus_capacitance as f32)
+    }
+
+    /// Whether every spread is zero.
+    pub fn is_exact(&self) -> bool {
+        *self == Self::default()
+    }
+}
+
 /// A validated full-bridge scenario.
 #[derive(Debug, Clone)]
 pub struct BridgeScenario {
@@ -173,10 +219,74 @@ pub struct BridgeScenario {
     pub drive: Vec<BridgeStep>,
     /// Run length, s.
     pub duration: f64,
+    /// The declared spreads the guard covers (`[tolerance]`).
+    pub tolerance: BridgeSpreads,
+    /// Error of the firmware's reading of the rail, V (0 in a scenario; the fault suite moves
+    /// it within and beyond `tolerance.supply_reading`).
+    pub reading_offset: f64,
+    /// The plant's state at the start (at rest in a scenario; the fault suite starts some cases
+    /// with current flowing or the rotor turning). With current flowing the guard starts as
+    /// after a reset, not knowing it.
+    pub start: BridgeState,
     /// Defaults the file left to the simulator.
     pub assumed: Vec<String>,
     spans: HashMap<String, std::ops::Range<usize>>,
     source: String,
+}
+
+/// The `[tolerance]` section: each spread as a fraction of its nominal value (`nominal`: the
+/// supply, inductance and resistance; the motor constant and bus capacitance when described).
+fn spreads(
+    cx: &mut Cx,
+    raw: Option<&RawTolerance>,
+    (voltage, l, r): (f64, f64, f64),
+    constant: Option<f64>,
+    capacitance: Option<f64>,
+) -> Result<BridgeSpreads, ScenarioError> {
+    let Some(t) = raw else {
+        return Ok(BridgeSpreads::default());
+    };
+    let mut one = |key: &str, text: &Text, unit: Unit, nominal: Option<f64>, needs: &str| {
+        let Some(v) = text else { return Ok(0.0) };
+        let name = format!("tolerance.{key}");
+        cx.spans.insert(name.clone(), v.span());
+        let Some(nominal) = nominal else {
+            return Err(cx.error(&name, Some(v.span()), needs));
+        };
+        let f = match units::parse_spread(v.get_ref(), unit)
+            .map_err(|e| cx.error(&name, Some(v.span()), e.0))?
+        {
+            Spread::Relative(f) => f,
+            Spread::Absolute(a) => a / nominal,
+        };
+        cx.check(&name, f < 0.9, "must be below ±90 % of the nominal value")?;
+        Ok(f)
+    };
+    Ok(BridgeSpreads {
+        inductance: one("inductance", &t.inductance, Unit::Henry, Some(l), "")?,
+        resistance: one("resistance", &t.resistance, Unit::Ohm, Some(r), "")?,
+        supply_reading: one(
+            "supply_reading",
+            &t.supply_reading,
+            Unit::Volt,
+            Some(voltage),
+            "",
+        )?,
+        back_emf_constant: one(
+            "back_emf_constant",
+            &t.back_emf_constant,
+            Unit::VoltSecondPerRadian,
+            constant,
+            "applies to a motor: describe it in [motor] or leave this out",
+        )?,
+        bus_capacitance: one(
+            "bus_capacitance",
+            &t.bus_capacitance,
+            Unit::Farad,
+            capacitance,
+            "applies to a bus: describe it in [bus] or leave this out",
+        )?,
+    })
 }
 
 /// The scenario key of a library field.
@@ -393,6 +503,15 @@ impl BridgeScenario {
             "must be positive and at most 20 million control periods",
         )?;
 
+        let tolerance = spreads(
+            &mut cx,
+            raw.tolerance.as_ref(),
+            (voltage, l, r),
+            rotor.map(|x| x.constant),
+            bus.map(|b| b.capacitance),
+        )?;
+        limits.tolerance = tolerance.declared();
+
         let mut params = BridgeParams::new(
             SupplyParams::new(voltage as f32, min as f32, max as f32),
             CoilParams::new(l as f32, r as f32),
@@ -431,6 +550,9 @@ impl BridgeScenario {
             period,
             drive,
             duration,
+            tolerance,
+            reading_offset: 0.0,
+            start: BridgeState::default(),
             assumed,
             spans: cx.spans,
             source: text.to_string(),
