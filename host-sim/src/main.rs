@@ -73,7 +73,7 @@ enum Command {
     /// Run the fault suite on the scenario: its declared tolerance's corners and random points
     /// inside, and named faults outside.
     #[command(
-        after_help = "Example:\n  coilward-sim faults examples/scenarios/valve-at-ceiling.toml --json faults.json\n\nThe scenario's [tolerance] section (and supply_reading) is the box the guard covers. A case\nexceeds when the true current passes the guard's ceiling, a clamp pulse passes its rating, or\nthe load is switched on before its current fell below the release current. Exit status: 0\nnothing inside the box exceeded, 1 something inside it did, 2 bad input."
+        after_help = "Examples:\n  coilward-sim faults examples/scenarios/valve-at-ceiling.toml --json faults.json\n  coilward-sim faults examples/scenarios/door-motor-small-bus.toml\n\nThe scenario's [tolerance] section (and supply_reading) is the box the guard covers. A case\nexceeds when the true current passes the guard's ceiling, a clamp pulse passes its rating (low\nside) or the bus its maximum (full bridge), or the load is switched on or reversed before its\ncurrent fell below the release current. Exit status: 0 nothing inside the box exceeded, 1\nsomething inside it did, 2 bad input."
     )]
     Faults {
         /// Scenario file (TOML).
@@ -314,14 +314,19 @@ fn faults_cmd(file: &Path, json: Option<&Path>) -> Result<ExitCode, ExitCode> {
     println!("{name} ({})", file.display());
     // The third column: the bus on a bridge, the clamp pulse on a low side.
     let third = if bridge { "bus/max" } else { "pulse/rat." };
+    let w = outcomes
+        .iter()
+        .map(|o| o.name.chars().count())
+        .max()
+        .unwrap_or(4);
     println!(
-        "  {:<72} {:>6} {:>11} {:>11} {:>6} {:>9} {:>8}",
+        "  {:<w$} {:>6} {:>11} {:>11} {:>6} {:>9} {:>8}",
         "case", "inside", "peak/ceil.", third, "early", "exceeded", "flagged"
     );
     let yes = |b: bool| if b { "yes" } else { "no" };
     for o in &outcomes {
         println!(
-            "  {:<72} {:>6} {:>11.3} {:>11.3} {:>6} {:>9} {:>8}",
+            "  {:<w$} {:>6} {:>11.3} {:>11.3} {:>6} {:>9} {:>8}",
             o.name,
             yes(o.inside_tolerance),
             o.peak_over_ceiling,

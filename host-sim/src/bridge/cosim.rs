@@ -72,7 +72,8 @@ pub struct BridgeRun {
     pub peak_current_a: f64,
     /// Energy returned to the supply, J (plant, exact).
     pub returned_energy_j: f64,
-    /// The guard's returned energy, J (its charge times the supply).
+    /// The guard's returned energy, J: its charge at the rail read after the period, less half
+    /// the rise that charge made on the bus it believes in.
     pub estimated_returned_energy_j: f64,
     /// Highest bus voltage, V.
     pub peak_bus_v: f64,
@@ -367,7 +368,14 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
         r.max_estimate_error_a = r.max_estimate_error_a.max(err);
         let margin = f64::from(m.amps(out.bound)) - i_true.abs();
         r.min_bound_margin_a = r.min_bound_margin_a.min(margin);
-        r.estimated_returned_energy_j += m.coulombs(out.estimate.returned) * rail;
+        // The charge the guard says came back, at the rail it flowed into: the rail read now,
+        // less half the rise that charge made on the bus it believes in (`∫V dq`).
+        let back = m.coulombs(out.estimate.returned);
+        let rise = s
+            .params
+            .bus
+            .map_or(0.0, |b| back / f64::from(b.capacitance));
+        r.estimated_returned_energy_j += back * (rail - rise / 2.0);
         r.record(&out, t, (request, want, n_full));
         if out.active.contains(Condition::ReversalHold) {
             r.held_periods += 1;
