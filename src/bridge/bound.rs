@@ -298,8 +298,8 @@ impl BridgeBound {
 
     /// The largest magnitude the state allows now.
     pub(crate) fn magnitude(&self, st: &BoundState) -> i64 {
-        st[..self.used]
-            .iter()
+        st.iter()
+            .take(self.used)
             .map(|f| f[0].max(f[1]))
             .max()
             .unwrap_or(0)
@@ -419,7 +419,10 @@ impl BridgeBound {
             stop: fr.stop,
         };
         let mut ends = [0; BRIDGE_SLICES];
-        for ((s, frames), end) in self.slices[..self.used].iter().zip(st).zip(&mut ends) {
+        // `f & 1`: a frame index the compiler can bound (no panic path).
+        let f = f & 1;
+        let slices = self.slices.iter().take(self.used);
+        for ((s, frames), end) in slices.zip(st).zip(&mut ends) {
             let p = Self::period(s, frames[f], after_slow, &fr, phases, m.dead);
             *end = p.end;
             worst.peak = worst.peak.max(p.peak);
@@ -446,7 +449,7 @@ impl BridgeBound {
         for f in 0..2 {
             let (p, ends) = self.frame_period(st, f, m, after_slow, applied, rails, emfs);
             for (frames, e) in st.iter_mut().zip(ends).take(self.used) {
-                frames[f] = e;
+                frames[f & 1] = e;
             }
             peak = peak.max(p.peak);
         }
@@ -497,7 +500,7 @@ impl BridgeBound {
         for (f, p) in periods.iter_mut().enumerate() {
             let (worst, ends) = self.frame_period(st, f, m, after_slow, plan, rails, emfs);
             for (frames, e) in next.iter_mut().zip(ends).take(self.used) {
-                frames[f] = e;
+                frames[f & 1] = e;
             }
             *p = worst;
         }
@@ -547,7 +550,12 @@ impl BridgeBound {
         };
         let left = b.headroom.saturating_sub(now);
         (0..2).all(|f| {
-            let j = st[..self.used].iter().map(|x| x[f]).max().unwrap_or(0);
+            let j = st
+                .iter()
+                .take(self.used)
+                .map(|x| x[f & 1])
+                .max()
+                .unwrap_or(0);
             left >= 0 && Self::stop_fits(&b, j, self.frame(f, 0, m, rails, emfs).stop, left)
         })
     }
