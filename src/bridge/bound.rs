@@ -288,7 +288,10 @@ impl BridgeBound {
 
     /// The state for a coil known to carry `i` (raw, signed).
     pub(crate) fn start(i: i64) -> BoundState {
-        [[i.max(0), i.saturating_neg().max(0)]; BRIDGE_SLICES]
+        // Within the representable magnitude, so that every segment's difference fits.
+        let limit = crate::units::Current::LIMIT.to_bits();
+        let i = i.clamp(-limit, limit);
+        [[i.max(0), (-i).max(0)]; BRIDGE_SLICES]
     }
 
     /// The state after a reset: either direction may carry the worst case.
