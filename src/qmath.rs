@@ -25,12 +25,16 @@ pub(crate) const DUTY_DIGITS: usize = 4;
 
 /// `E(x) = 1 − e^(−x)` as mantissa and shift: `E = m·2^−(32+s)`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub(crate) struct Decay {
     pub(crate) m: u32,
     pub(crate) s: u32,
 }
 
 impl Decay {
+    /// `E(0) = 0`.
+    pub(crate) const ZERO: Self = Self { m: 0, s: 0 };
+
     /// The value as f64 (tests and configuration only).
     #[cfg(test)]
     pub(crate) fn value(self) -> f64 {
@@ -66,6 +70,17 @@ impl<const D: usize> DecayTable<D> {
             digit_unit *= 16.0;
         }
         Self { m, s }
+    }
+
+    /// Folds every entry into a 64-bit FNV-1a hash (configuration only): the fingerprint by
+    /// which a channel's memo of evaluated factors knows the tables it came from.
+    pub(crate) fn fingerprint(&self, mut h: u64) -> u64 {
+        for w in self.m.iter().flatten().chain(self.s.iter()) {
+            for b in w.to_le_bytes() {
+                h = (h ^ u64::from(b)).wrapping_mul(0x0000_0100_0000_01b3); // FNV: wraps by design
+            }
+        }
+        h
     }
 
     /// `E(n·u)` for a count `n` (`n < 16^D`; higher digits are ignored).
@@ -575,8 +590,55 @@ pub(crate) fn mul_exp2_neg(x: i64, y: u64) -> i64 {
 /// that holds up to some count and fails above it (at most 16 evaluations); `n` itself is
 /// not tried.
 pub(crate) fn largest_count(n: u32, fits: impl Fn(u32) -> bool) -> u32 {
-    let (mut lo, mut hi) = (0u32, n);
-    while hi - lo > 1 {
+    bisect(0, n, fits)
+}
+
+/// [`largest_count`] searching outward from `guess` first (steps of 1, 2, 4, … until the answer
+/// is bracketed, then bisection): an answer `d` counts away costs about `2·log2(d) + 2`
+/// evaluations, so a search that usually lands next to the last answer costs two.
+pub(crate) fn largest_count_near(n: u32, guess: u32, fits: impl Fn(u32) -> bool) -> u32 {
+    if n == 0 {
+        return 0;
+    }
+    let g = guess.min(n - 1);
+    let mut step = 1u32;
+    let (lo, hi) = if fits(g) {
+        // g fits: walk up while the next probe fits.
+        let mut lo = g;
+        loop {
+            let probe = lo.saturating_add(step);
+            if probe >= n {
+                break (lo, n);
+            }
+            if !fits(probe) {
+                break (lo, probe);
+            }
+            lo = probe;
+            step = step.saturating_mul(2);
+        }
+    } else {
+        // g fails: walk down until a probe fits (or 0 is reached, which is the answer then).
+        let mut hi = g;
+        loop {
+            if hi <= step {
+                break (0, hi);
+            }
+            let probe = hi - step;
+            if fits(probe) {
+                break (probe, hi);
+            }
+            hi = probe;
+            step = step.saturating_mul(2);
+        }
+    };
+    bisect(lo, hi, fits)
+}
+
+/// The largest count in `lo ..< hi` that `fits`, given that `lo` fits (or is 0) and `hi` does
+/// not (or is the end).
+fn bisect(lo: u32, hi: u32, fits: impl Fn(u32) -> bool) -> u32 {
+    let (mut lo, mut hi) = (lo, hi);
+    while hi.saturating_sub(lo) > 1 {
         let mid = lo + (hi - lo) / 2;
         if fits(mid) {
             lo = mid;
@@ -683,6 +745,30 @@ pub(crate) fn chi(lambda: u64) -> u64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    proptest::proptest! {
+        /// The outward search finds the bisection's answer (the largest count below `n` under
+        /// the threshold, 0 when none is) from any guess, and a guess next to the answer costs
+        /// at most three evaluations.
+        #[test]
+        fn the_outward_search_agrees_with_bisection(
+            n in 0u32..70_000,
+            t in 0u32..70_000,
+            guess in 0u32..80_000,
+        ) {
+            let fits = |c: u32| c <= t;
+            let want = largest_count(n, fits);
+            let calls = core::cell::Cell::new(0u32);
+            let got = largest_count_near(n, guess, |c| {
+                calls.set(calls.get() + 1);
+                fits(c)
+            });
+            proptest::prop_assert_eq!(got, want);
+            if n > 1 && guess.abs_diff(want) <= 1 && want + 1 < n && guess < n {
+                proptest::prop_assert!(calls.get() <= 3, "{} evaluations", calls.get());
+            }
+        }
+    }
 
     #[test]
     fn series_coefficients_match_their_definition() {
