@@ -249,16 +249,48 @@ impl Model {
     /// # Ok::<(), coilward::ConfigError>(())
     /// ```
     pub fn step(&self, state: &mut CoilState, duty: u32, supply: Volts) -> PeriodEstimate {
-        let vs = self.supply(supply);
         let n = if duty > self.duty_full {
             self.duty_full
         } else {
             duty
         };
+        self.step_with(state, n, supply, self.duty_factors(n))
+    }
+
+    /// The decay factors of a period of duty `n <= duty_full`: `E` of its on-part and of its
+    /// off-part (what [`Model::step_with`] takes).
+    pub(crate) fn duty_factors(&self, n: u32) -> (Decay, Decay) {
+        (
+            self.on_duty.eval(n),
+            self.off_duty.eval(self.duty_full.saturating_sub(n)),
+        )
+    }
+
+    /// [`Model::step`] for a duty `n <= duty_full` whose factors `(on, off)` were evaluated
+    /// before ([`Model::duty_factors`]): bit for bit the same result without the two table
+    /// evaluations (a part of another length, after a saturation split, still reads its table).
+    pub(crate) fn step_with(
+        &self,
+        state: &mut CoilState,
+        n: u32,
+        supply: Volts,
+        (on, off): (Decay, Decay),
+    ) -> PeriodEstimate {
+        let vs = self.supply(supply);
         let i0 = state.current.to_bits();
-        let i1 = self.on_part(i0, self.on_asymptote(vs), n, Unit::Count);
+        let unsat_on = |k| if k == n { on } else { self.on_duty.eval(k) };
+        let sat_on = self.saturated(Unit::Count, |s| s.tau_on_counts);
+        let i1 = rise(i0, self.on_asymptote(vs), n, unsat_on, sat_on);
         // n <= duty_full, so the subtraction cannot wrap.
-        let i2 = self.off_part(i1, self.off_asymptote(vs), self.duty_full - n, Unit::Count);
+        let m = self.duty_full - n;
+        let unsat_off = |k| if k == m { off } else { self.off_duty.eval(k) };
+        let i2 = fall(
+            i1,
+            self.off_asymptote(vs),
+            m,
+            unsat_off,
+            self.saturated_off(Unit::Count),
+        );
         state.current = Current::from_bits(i2);
         PeriodEstimate::of(i0, i1, i2)
     }

@@ -14,11 +14,13 @@
 //! - **Release interval** (`release-hold`): after the output has been off, a turn-on is allowed
 //!   only once the estimate is at or below the release current; the remaining time is
 //!   `τ_off·ln((I + a)/(I_rel + a))` ([`Model::decay_time_us`]).
-//! - **Current ceiling** (`current-limit`): the coming period's peak `i + (A_on − i)·E(n·T/Nτ_on)`
-//!   must stay at or below the ceiling; otherwise the largest duty that satisfies it is found by
-//!   bisection over the counts (at most 16 table evaluations, no division). The ceiling is the
-//!   lower of the configured one and the current whose turn-off energy at the maximum supply equals
-//!   the clamp's single-pulse rating.
+//! - **Current ceiling** (`current-limit`): the bound must stay at or below the ceiling in the
+//!   coming period and in one more at the same duty; otherwise the largest duty that satisfies
+//!   it is searched outward from the last applied duty (steps of 1, 2, 4, … then bisection, no
+//!   division), and while rising toward it the guard goes half way, which settles the bound
+//!   where taking the largest would make it swing from period to period. The ceiling is the
+//!   lower of the configured one and the current whose turn-off energy at the maximum supply
+//!   equals the clamp's single-pulse rating.
 //! - **Trip** (`overcurrent`): the estimate (start or peak of the period) above the trip current.
 //! - **Clamp energy** (`clamp-pulse`, `clamp-overheat`): each commanded turn-off's energy
 //!   ([`Model::turn_off_energy`]) against the rating; the Foster replica fed by every off-segment
@@ -26,6 +28,14 @@
 //! - **Winding** (`coil-overheat`): the IEC 60255-149 thermal image, see [`crate::thermal`].
 //! - **Supply** (`supply-range`): outside `supply.min ..= supply.max`; below by default only
 //!   reported, above by default a trip (the clamp margins are gone).
+//!
+//! # Cost of a tick
+//! A channel keeps the factors its applied duty reads from the tables (see
+//! [`DutyFactors`](crate::tolerance::DutyFactors)): a drive that repeats its duty evaluates no
+//! table, bit for bit the same results. The coming period is first screened with one slice (the
+//! lowest inductance, from the largest start, the off-segment at its highest): far from the
+//! ceiling that settles it, near it every slice decides. An off-segment's node-charge terms
+//! are shared by the slices of a period. Measured per call by `cargo xtask target-bench`.
 //!
 //! # Winding temperature and the model's resistance
 //! The model is built for one winding temperature. Re-deriving it is a slow call
@@ -47,18 +57,19 @@ use crate::estimate::Unit;
 use crate::estimate::{CoilState, PeriodEstimate};
 use crate::model::Model;
 use crate::params::{ConfigError, Conflict, Field, Params, positive};
+use crate::qmath::Decay;
 use crate::qmath::ln_ratio;
 use crate::thermal::{
     ClampAverage, ClampHeat, ClampReplica, ClampThermal, CoilHeat, CoilReplica, CoilThermal,
     ThermalSnapshot,
 };
-use crate::tolerance::{Bound, SLICES, Tolerance};
+use crate::tolerance::{Bound, DutyFactors, SLICES, Tolerance};
 use crate::units::{Current, Energy, Volts};
 use fixed::types::I32F32;
 
 /// Calls for which `current-limit` stays reported after the last limited one. Peak limiting
-/// alternates limited and unlimited periods (a period after a limited one often fits the full
-/// request); the report lingers so that the condition reads as one episode, not a flood of
+/// can alternate limited and unlimited periods (a period after a limited one often fits the
+/// full request); the report lingers so that the condition reads as one episode, not a flood of
 /// raised/cleared events. The duty itself is never held back by this.
 pub const LIMIT_LINGER: u8 = 32;
 
@@ -297,6 +308,16 @@ pub struct GuardState {
     /// The current is an assumption (after a reset), not an estimate from a known start: it
     /// holds the output off but raises no overcurrent or clamp-pulse until it has decayed.
     assumed: bool,
+    memo: Memo,
+}
+
+impl Memo {
+    /// Nothing kept.
+    const NONE: Self = Self {
+        fingerprint: 0,
+        model: None,
+        slices: DutyFactors::empty(0),
+    };
 }
 
 impl GuardState {
@@ -398,6 +419,22 @@ pub struct Guard {
     /// Resistance-ratio bound per kelvin (Q32.32) and the model's temperature (Q32.32 °C).
     stale_per_kelvin: u64,
     model_temperature: i64,
+    /// A 64-bit hash of the duty tables, by which a channel's [`Memo`] knows they are these.
+    fingerprint: u64,
+}
+
+/// What a channel keeps of the duty it applies: the factors a period at that duty reads from
+/// the tables (the nominal model's and every slice's, see
+/// [`DutyFactors`](crate::tolerance::DutyFactors)) and the fingerprint of the guard they came
+/// from. A drive that repeats its duty reads no table; the results are the same bit for bit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+struct Memo {
+    /// The guard's fingerprint (0: nothing kept yet).
+    fingerprint: u64,
+    /// The nominal model's (on, off) factors for `slices.n`, once evaluated.
+    model: Option<(Decay, Decay)>,
+    slices: DutyFactors,
 }
 
 fn amps_to_raw(model: &Model, field: Field, amps: f32) -> Result<i64, ConfigError> {
@@ -557,7 +594,16 @@ impl Guard {
         // Worst-case current after a reset: the steady on-current at the maximum supply, or the
         // trip current if higher.
         let worst_current = bound.rise.on_asymptote(v_max_hi.to_bits()).max(trip);
+        // FNV-1a's offset basis; never 0 in practice (0 marks an empty memo).
+        let fingerprint = bound
+            .fingerprint(
+                model
+                    .off_duty
+                    .fingerprint(model.on_duty.fingerprint(0xcbf2_9ce4_8422_2325)),
+            )
+            .max(1);
         Ok(Self {
+            fingerprint,
             ceiling,
             trip,
             release,
@@ -622,6 +668,21 @@ impl Guard {
             dropped: false,
             limit_linger: 0,
             assumed: false,
+            memo: self.recall(&Memo::NONE, 0),
+        }
+    }
+
+    /// The memo for duty `n` (`n <= duty_full`): the channel's own when it is for `n` and for
+    /// this guard's tables, else an empty one (its factors are evaluated as they are asked for).
+    fn recall(&self, kept: &Memo, n: u32) -> Memo {
+        if kept.fingerprint == self.fingerprint && kept.slices.n == n {
+            *kept
+        } else {
+            Memo {
+                fingerprint: self.fingerprint,
+                model: None,
+                slices: DutyFactors::empty(n),
+            }
         }
     }
 
@@ -739,68 +800,105 @@ impl Guard {
         crate::qmath::mul_q32(i.max(0) as u64, f).min(Current::LIMIT.to_bits() as u64) as i64
     }
 
-    /// Whether duty `n` keeps every slice's bound at or below the ceiling in the coming period
-    /// and in one more at the same duty. The look-ahead makes limiting settle at the duty that
-    /// holds the ceiling, instead of alternating full periods with nearly empty ones. Monotone
-    /// in `n` (every segment map of the bound is monotone in its start and length).
-    fn holds(&self, state: &GuardState, n: u32, vh: u32, f: u64) -> bool {
+    /// Whether the duty of `memo` keeps every slice's bound at or below the ceiling in the
+    /// coming period and in one more at the same duty, and if so the bound's peak in the coming
+    /// period (raw). The look-ahead makes limiting settle at the duty that holds the ceiling,
+    /// instead of alternating full periods with nearly empty ones. Monotone in the duty (every
+    /// segment map of the bound is monotone in its start and length).
+    fn check(&self, state: &GuardState, memo: &mut Memo, vh: u32, f: u64) -> Option<i64> {
         let full = self.model.duty_full;
+        let n = memo.slices.n;
         let b = &self.bound;
         let opened = n < full && (n > 0 || state.on_at_end);
-        (0..b.used()).all(|j| {
+        let mut peak = 0;
+        let fr = b.off_frame(full - n, vh, opened, Unit::Count);
+        for j in 0..b.used() {
+            let (e_on, e_off) = memo.slices.slice(b, j, full);
             let b0 = state.slice_start(j, n);
-            let b1 = b.on_slice(j, b0, n, vh);
-            if Self::raised(b1.max(b0), f) > self.ceiling {
-                return false;
+            let b1 = b.on_slice(j, b0, n, vh, e_on).max(b0);
+            if Self::raised(b1, f) > self.ceiling {
+                return None;
             }
-            let (off_peak, b2) = b.off_slice(j, b1, full - n, vh, opened);
-            let b3 = b.on_slice(j, b2, n, vh);
-            Self::raised(b3.max(off_peak), f) <= self.ceiling
-        })
+            let (off_peak, b2) = b.off_slice(j, b1, &fr, e_off);
+            let b3 = b.on_slice(j, b2, n, vh, e_on);
+            if Self::raised(b3.max(off_peak), f) > self.ceiling {
+                return None;
+            }
+            peak = peak.max(b1);
+        }
+        Some(peak)
+    }
+
+    /// A sufficient test for [`Guard::check`] with one slice instead of all, and an upper bound
+    /// of the bound's peak in the coming period: the first slice's rise (the lowest inductance,
+    /// so at or above every slice's from the same start) from the largest start, the
+    /// off-segment at its highest ([`Bound::off_top`]) and the rise again. Far from the ceiling
+    /// it settles a period in two segments instead of three per slice; near it, it fails and
+    /// the slices decide.
+    fn screen(&self, state: &GuardState, memo: &mut Memo, vh: u32, f: u64) -> Option<i64> {
+        let n = memo.slices.n;
+        let b = &self.bound;
+        let (e, _) = memo.slices.slice(b, 0, self.model.duty_full);
+        // At or above every slice's start (the largest slice, or the ring's envelope).
+        let b0 = state.bound_bits();
+        let b1 = b.on_slice(0, b0, n, vh, e).max(b0);
+        let b3 = b.on_slice(0, b.off_top(b1, vh), n, vh, e);
+        (Self::raised(b3, f) <= self.ceiling).then_some(b1)
     }
 
     /// The requested `duty`, or the largest one below it that holds the bound under the ceiling
-    /// (`holds` is monotone in n). Steady limiting lands next to the last duty, so that is tried
-    /// first: the same answer as the bisection, in two evaluations instead of twelve.
-    fn limit(&self, state: &GuardState, duty: u32, vh: u32, f: u64) -> u32 {
-        let holds = |n| self.holds(state, n, vh, f);
-        if holds(duty) {
-            return duty;
+    /// (`check` is monotone in the duty), with its memo and the bound's peak in the coming
+    /// period; duty 0 when none does.
+    fn limit(&self, state: &GuardState, duty: u32, vh: u32, f: u64) -> (u32, Memo, Option<i64>) {
+        // The probes of the search sit near the ceiling, where the screen fails: the slices.
+        let at = |n: u32| {
+            let mut memo = self.recall(&state.memo, n);
+            let peak = self.check(state, &mut memo, vh, f);
+            (memo, peak)
+        };
+        let holds = |n| at(n).1.is_some();
+        let mut memo = self.recall(&state.memo, duty);
+        if let Some(p) = self
+            .screen(state, &mut memo, vh, f)
+            .or_else(|| self.check(state, &mut memo, vh, f))
+        {
+            return (duty, memo, Some(p));
         }
+        // Steady limiting lands next to the last duty: search outward from it.
         let last = state.applied;
-        if last > 0 && last < duty && holds(last) && !holds(last + 1) {
-            return last;
+        let lo = crate::qmath::largest_count_near(duty, last, holds);
+        // Rising toward the ceiling, go half way: the largest duty that holds swings the bound
+        // (a long on-part leaves it high, so the next largest is short, and so on), half steps
+        // settle it.
+        let lo = if last > 0 && lo > last {
+            last + (lo - last).div_ceil(2)
+        } else {
+            lo
+        };
+        match at(lo) {
+            (memo, Some(p)) => (lo, memo, Some(p)),
+            _ => (0, self.recall(&state.memo, 0), None),
         }
-        if last > 1 && last <= duty && holds(last - 1) && !holds(last) {
-            return last - 1;
-        }
-        let lo = crate::qmath::largest_count(duty, holds);
-        if holds(lo) { lo } else { 0 }
-    }
-
-    /// The bound's peak in the coming period at duty `n` (raw).
-    fn peak_at(&self, state: &GuardState, n: u32, vh: u32) -> i64 {
-        (0..self.bound.used()).fold(0, |m, j| {
-            let b0 = state.slice_start(j, n);
-            m.max(self.bound.on_slice(j, b0, n, vh).max(b0))
-        })
     }
 
     /// Advances the bound over one period of duty `n`: returns its peak and end (the largest
     /// over the slices) and updates the state.
-    fn advance_period(&self, state: &mut GuardState, n: u32, vh: u32) -> (i64, i64) {
+    fn advance_period(&self, state: &mut GuardState, memo: &mut Memo, vh: u32) -> (i64, i64) {
         let full = self.model.duty_full;
+        let n = memo.slices.n;
         let b = &self.bound;
         // A turn-off: the switch opens inside the period, or at its start after being on.
         let opened = n < full && (n > 0 || state.on_at_end);
         let (mut peak, mut end) = (0, 0);
         let e0 = state.envelope.current().working_bits();
         let mut opened_at = 0;
+        let fr = b.off_frame(full - n, vh, opened, Unit::Count);
         for j in 0..b.used() {
+            let (e_on, e_off) = memo.slices.slice(b, j, full);
             let b0 = state.slice_start(j, n);
-            let b1 = b.on_slice(j, b0, n, vh);
+            let b1 = b.on_slice(j, b0, n, vh, e_on);
             opened_at = opened_at.max(b1);
-            let (off_peak, b2) = b.off_slice(j, b1, full - n, vh, opened);
+            let (off_peak, b2) = b.off_slice(j, b1, &fr, e_off);
             if let Some(slot) = state.bound.get_mut(j) {
                 *slot = CoilState::with_current(Current::from_bits(b2));
             }
@@ -883,18 +981,25 @@ impl Guard {
         let n_full = m.duty_full;
         // 1. The period just ended.
         let was = state.applied.min(n_full);
-        let est = m.step(&mut state.coil, was, input.supply);
+        let mut memo = self.recall(&state.memo, was);
+        let factors = memo.model.unwrap_or_else(|| m.duty_factors(was));
+        memo.model = Some(factors);
+        let est = m.step_with(&mut state.coil, was, input.supply, factors);
         let vh = self.bound.supply_hi(vs);
         let b_start = state.bound_bits();
-        let (b_peak, b_end) = self.advance_period(state, was, vh);
-        // 2. Replicas, fed by the bound. Off-segment energy: the whole turn-off once the bound
-        // has decayed to its floor, else the chord bound. It always has a consumer: the clamp
-        // replica, or else the average-power watch.
+        let (b_peak, b_end) = self.advance_period(state, &mut memo, vh);
+        state.memo = memo;
+        // 2. Replicas, fed by the bound. Off-segment energy: the whole turn-off when the bound
+        // decayed from above its floor to it (a release), else the chord bound (the bound's
+        // decay is convex, so the chord from its peak to its end lies above it and above every
+        // true current; a bound resting at its floor costs no logarithm). It always has a
+        // consumer: the clamp replica, or else the average-power watch.
         let energy = if was >= n_full {
             Energy::ZERO
         } else {
             let f = &self.bound.fall;
-            if b_end <= self.bound.ring() + 2 {
+            let floor = self.bound.ring() + 2;
+            if b_end <= floor && b_peak > floor {
                 f.turn_off_energy(Current::from_bits(b_peak), Volts::from_bits(vh))
             } else {
                 f.off_segment_energy_bound(
@@ -1041,7 +1146,9 @@ impl Guard {
         pwm: bool,
     ) -> Output {
         let f = self.stale_factor(state);
-        let i_now = Self::raised(state.bound_bits(), f);
+        // The bound now (decide changes no slice).
+        let i0 = state.bound_bits();
+        let i_now = Self::raised(i0, f);
         let i_peak = Self::raised(b_peak, f);
         let prev = state.active;
         let mut active = Conditions::NONE;
@@ -1178,22 +1285,20 @@ impl Guard {
             release_in = decay.zip(ring).map(|(a, b)| a.max(b));
         }
         // Ceiling.
-        let i0 = state.bound_bits();
         let mut predicted = i0;
         if duty > 0 {
             if pwm {
-                let limited = self.limit(state, duty, vh, f);
+                let (limited, memo, peak) = self.limit(state, duty, vh, f);
                 if limited != duty {
                     duty = limited;
                     active.insert(Condition::CurrentLimit);
                 }
+                predicted = peak.unwrap_or(i0);
+                state.memo = memo;
             } else if i_now >= self.ceiling {
                 duty = 0;
                 active.insert(Condition::CurrentLimit);
             }
-        }
-        if duty > 0 && pwm {
-            predicted = self.peak_at(state, duty, vh);
         }
         if active.contains(Condition::CurrentLimit) {
             state.limit_linger = LIMIT_LINGER;
@@ -1228,13 +1333,116 @@ impl Guard {
             latched: state.latched,
             estimate: est,
             predicted_peak: Current::from_bits(predicted),
-            bound: state.bound(),
+            bound: Current::from_bits(i0),
             next_check_us: if !pwm && duty > 0 {
                 self.next_check_us(state, Volts::from_bits(vh))
             } else {
                 None
             },
             release_in_us: release_in,
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::params::SwitchParams;
+    use crate::params::{ClampPath, CoilParams, ControlParams, Saturation, SupplyParams};
+
+    /// A valve that exercises every part of the bound: saturating, 470 pF at its node, a
+    /// declared tolerance (six slices), both clamp paths.
+    fn hard_guard(clamp: ClampPath, temperature: f32) -> Guard {
+        let mut coil = CoilParams::new(0.040, 18.0).with_saturation(Saturation::new(0.9, 0.012));
+        coil.node_capacitance = Some(470e-12);
+        coil.winding_temperature = temperature;
+        let p = Params::new(
+            SupplyParams::new(24.0, 18.0, 30.0),
+            coil,
+            SwitchParams::new(0.1, 60.0),
+            clamp,
+            ControlParams::new(50e-6, 3200, 2.0),
+        );
+        let l = GuardLimits::new(1.1, 1.3, 0.05).with_tolerance(
+            Tolerance::EXACT
+                .with_inductance(0.2)
+                .with_resistance(0.1)
+                .with_supply_reading(0.02)
+                .with_node_capacitance(0.5)
+                .with_saturation(0.1, 0.2),
+        );
+        Guard::new(&p, &l).expect("valid guard")
+    }
+
+    const CLAMPS: [ClampPath; 2] = [
+        ClampPath::Freewheel {
+            forward_drop: 0.7,
+            resistance: 0.05,
+        },
+        ClampPath::SwitchClamp {
+            clamp_voltage: 45.0,
+            resistance: 0.5,
+        },
+    ];
+
+    /// The state without its memo, for comparing two channels.
+    fn forgetful(s: &GuardState) -> GuardState {
+        GuardState {
+            memo: Memo::NONE,
+            ..*s
+        }
+    }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(64))]
+
+        /// The memo changes no result: a channel that keeps it and one that forgets it before
+        /// every tick give the same outputs and states, bit for bit, also across a guard
+        /// retuned to another winding temperature (other tables, so another fingerprint).
+        #[test]
+        fn the_memo_changes_no_result(
+            clamp in 0usize..2,
+            steps in proptest::collection::vec((0u32..3400, 0u32..4, 16.0f32..32.0), 1..120),
+        ) {
+            let a = hard_guard(CLAMPS[clamp % 2], 20.0);
+            let b = hard_guard(CLAMPS[clamp % 2], 60.0);
+            proptest::prop_assert_ne!(a.fingerprint, b.fingerprint);
+            let mut kept = a.start_idle();
+            let mut forgot = a.start_idle();
+            for (k, &(request, hold, supply)) in steps.iter().enumerate() {
+                // The request repeats for a while (the memo's case) and then moves.
+                let duty = request - request % 64 + hold;
+                let g = if k < steps.len() / 2 { &a } else { &b };
+                let input = Input::new(duty, Volts::from_num(supply));
+                forgot.memo = Memo::NONE;
+                let x = g.tick(&mut kept, input);
+                let y = g.tick(&mut forgot, input);
+                proptest::prop_assert_eq!(x, y);
+                proptest::prop_assert_eq!(forgetful(&kept), forgetful(&forgot));
+            }
+        }
+
+        /// The screen is sufficient and its peak is an upper bound: whenever it passes a duty,
+        /// the slices pass it too, with a peak at or below the screen's.
+        #[test]
+        fn the_screen_never_passes_what_the_slices_refuse(
+            clamp in 0usize..2,
+            steps in proptest::collection::vec((0u32..3400, 16.0f32..32.0), 1..60),
+            probe in 0u32..3201,
+        ) {
+            let g = hard_guard(CLAMPS[clamp % 2], 20.0);
+            let mut s = g.start_idle();
+            for &(duty, supply) in &steps {
+                g.tick(&mut s, Input::new(duty, Volts::from_num(supply)));
+                let vh = g.bound.supply_hi(g.model.supply(Volts::from_num(supply)));
+                let f = g.stale_factor(&s);
+                let mut memo = g.recall(&s.memo, probe);
+                if let Some(p) = g.screen(&s, &mut memo, vh, f) {
+                    let q = g.check(&s, &mut memo, vh, f);
+                    proptest::prop_assert!(q.is_some(), "the screen passed {probe}, the slices did not");
+                    proptest::prop_assert!(q.unwrap_or(i64::MAX) <= p, "{q:?} > {p}");
+                }
+            }
         }
     }
 }

@@ -79,7 +79,7 @@ use crate::model::{Model, PathKind};
 use crate::params::{
     ClampPath, ConfigError, Conflict, Field, Params, Problem, Saturation, non_negative,
 };
-use crate::qmath::{BitTable, DUTY_DIGITS, DecayTable, Gain, div_up, div_up_wide};
+use crate::qmath::{BitTable, DUTY_DIGITS, Decay, DecayTable, Gain, div_up, div_up_wide};
 
 /// The uncertainty the guard is told to cover: each a relative spread around the parameter's
 /// nominal value (0.1 = ±10 %). The default, [`Tolerance::EXACT`], trusts the parameters.
@@ -297,6 +297,60 @@ pub(crate) struct Bound {
     reading: Gain,
     node: Option<NodeCharge>,
     ring: Option<Ring>,
+}
+
+/// The decay factors of one duty for every slice in use (`E` of its on-part and of its off-part,
+/// per slice's τ): all that a period at that duty reads from the slices' tables. A channel keeps
+/// the factors of the duty it applies (with the nominal model's two and the fingerprint of the
+/// guard whose tables they are), so a drive that repeats its duty evaluates no table; any
+/// other duty, or a guard with other tables, evaluates afresh. The results are the tables' own,
+/// bit for bit: a factor is only ever used for the table and the length it was evaluated at.
+/// The fingerprint is a 64-bit hash: two guards with different tables share one with a
+/// probability of about 2⁻⁶⁴.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub(crate) struct DutyFactors {
+    /// The duty, counts.
+    pub(crate) n: u32,
+    /// Slices whose factors are evaluated (the first `filled`): a check that fails at a slice
+    /// evaluates none after it.
+    filled: u8,
+    on: [Decay; SLICES],
+    off: [Decay; SLICES],
+}
+
+impl DutyFactors {
+    /// Nothing evaluated yet for duty `n`.
+    pub(crate) const fn empty(n: u32) -> Self {
+        Self {
+            n,
+            filled: 0,
+            on: [Decay::ZERO; SLICES],
+            off: [Decay::ZERO; SLICES],
+        }
+    }
+
+    /// Slice `j`'s (on, off) factors, evaluated from `bound`'s tables (for a period of `full`
+    /// counts) the first time they are asked for.
+    #[inline]
+    pub(crate) fn slice(&mut self, bound: &Bound, j: usize, full: u32) -> (Decay, Decay) {
+        let off_len = full.saturating_sub(self.n);
+        let from = usize::from(self.filled);
+        if j >= from {
+            let slots = self.on.iter_mut().zip(self.off.iter_mut());
+            let todo = bound.slices.iter().zip(slots).take(j + 1).skip(from);
+            for (sl, (on, off)) in todo {
+                *on = sl.on.eval(self.n);
+                *off = sl.off.eval(off_len);
+            }
+            // j < SLICES <= u8::MAX.
+            self.filled = (j + 1).min(SLICES) as u8;
+        }
+        (
+            self.on.get(j).copied().unwrap_or(Decay::ZERO),
+            self.off.get(j).copied().unwrap_or(Decay::ZERO),
+        )
+    }
 }
 
 /// Slices of the inductance range tracked side by side in PWM, at most (see the module
@@ -633,13 +687,38 @@ impl Bound {
         self.used
     }
 
-    /// Slice `j`'s on-segment of `n` counts from `i0` at the high supply `vh`.
+    /// A 64-bit hash of the slices' tables (configuration only; see [`DutyFactors`]).
+    pub(crate) fn fingerprint(&self, h: u64) -> u64 {
+        self.slices
+            .iter()
+            .take(self.used)
+            .fold(h, |h, sl| sl.off.fingerprint(sl.on.fingerprint(h)))
+    }
+
+    /// Slice `j`'s on-segment of `n` counts from `i0` at the high supply `vh`; `e` is the
+    /// slice's on-factor for `n` ([`DutyFactors::slice`]).
     #[inline]
-    pub(crate) fn on_slice(&self, j: usize, i0: i64, n: u32, vh: u32) -> i64 {
+    pub(crate) fn on_slice(&self, j: usize, i0: i64, n: u32, vh: u32, e: Decay) -> i64 {
         let Some(sl) = self.slices.get(j) else {
             return self.on_event_or_whole(i0, n, vh, Unit::Count);
         };
-        self.on_with(i0, n, vh, |k| sl.on.eval(k), sl.tau_on_counts, Unit::Count)
+        let table = |k| if k == n { e } else { sl.on.eval(k) };
+        self.on_with(i0, n, vh, table, sl.tau_on_counts, Unit::Count)
+    }
+
+    /// At or above every slice's off-segment (its peak and its end) from a start at or below
+    /// `i1`, for any length: no decay, any asymptote above the start, the node's charge and the
+    /// ring floor (the cases of [`Bound::off_with`] each end at or below this).
+    #[inline]
+    pub(crate) fn off_top(&self, i1: i64, vh: u32) -> i64 {
+        let top = i1.max(self.fall.off_asymptote(vh));
+        let top = match &self.node {
+            Some(n) => top
+                .saturating_add(n.sqrt_c_over_l.apply(vh.saturating_add(n.body)) as i64)
+                .max(n.ring),
+            None => top,
+        };
+        top.saturating_add(ROUNDING)
     }
 
     /// The whole box's on-segment (event mode: `unit` is µs).
@@ -680,14 +759,52 @@ impl Bound {
         rise(i0, a, len, unsat, self.rise.saturated(unit, |_| tau)) + ROUNDING
     }
 
-    /// Slice `j`'s off-segment of `n` counts from `i1` at the high supply `vh`; `opened`: the
-    /// switch opened at its start (a turn-off, which charges the node). Returns the highest
-    /// current inside the segment and its end.
+    /// What an off-segment of `len` units at the high supply `vh` shares across the slices
+    /// (`opened`: the switch opened at its start, a turn-off, which charges the node).
     #[inline]
-    pub(crate) fn off_slice(&self, j: usize, i1: i64, n: u32, vh: u32, opened: bool) -> (i64, i64) {
-        match self.slices.get(j) {
-            Some(sl) => self.off_with(i1, n, vh, opened, Unit::Count, |k| sl.off.eval(k)),
-            None => self.off_event_or_whole(i1, n, vh, opened, Unit::Count),
+    pub(crate) fn off_frame(&self, len: u32, vh: u32, opened: bool, unit: Unit) -> OffFrame {
+        let node = match &self.node {
+            Some(n) if opened && len > 0 => {
+                let charge = match unit {
+                    Unit::Count => n.charge_counts,
+                    Unit::Micro => n.charge_us,
+                };
+                // x_lo = max(i_min, C·V_n/t_off), the quotient rounded up (no division).
+                let q = div_up(charge, u64::from(len));
+                let x_lo = n.i_min.max(q.min(1 << 61) as i64);
+                let v_n = n
+                    .node_base
+                    .saturating_add(if n.node_adds_supply { vh } else { 0 });
+                // K·V_n², then over x rounded up (x >= x_lo >= 1).
+                let kv = n.k1.apply_u128_full(u128::from(v_n) * u128::from(v_n));
+                Some(NodeFrame {
+                    c: n.sqrt_c_over_l.apply(vh.saturating_add(n.body)) as i64,
+                    x_lo,
+                    kv,
+                    h_lo: n.raise(kv, x_lo),
+                })
+            }
+            _ => None,
+        };
+        OffFrame {
+            len,
+            a: self.fall.off_asymptote(vh),
+            unit,
+            node,
+        }
+    }
+
+    /// Slice `j`'s off-segment from `i1` in the frame `fr` (of `fr.len` counts); `e` is the
+    /// slice's off-factor for that length ([`DutyFactors::slice`]). Returns the highest current
+    /// inside the segment and its end.
+    #[inline]
+    pub(crate) fn off_slice(&self, j: usize, i1: i64, fr: &OffFrame, e: Decay) -> (i64, i64) {
+        let n = fr.len;
+        if let Some(sl) = self.slices.get(j) {
+            self.off_with(i1, fr, |k| if k == n { e } else { sl.off.eval(k) })
+        } else {
+            let f = &self.fall;
+            self.off_with(i1, fr, |k| f.off_duty.eval(k))
         }
     }
 
@@ -702,30 +819,29 @@ impl Bound {
         unit: Unit,
     ) -> (i64, i64) {
         let f = &self.fall;
-        self.off_with(i1, len, vh, opened, unit, |k| match unit {
+        let fr = self.off_frame(len, vh, opened, unit);
+        self.off_with(i1, &fr, |k| match unit {
             Unit::Count => f.off_duty.eval(k),
             Unit::Micro => f.off_event.eval(k),
         })
     }
 
-    /// An off-segment with the fall corner's asymptote and the decay `table`.
+    /// An off-segment from `i1` in the frame `fr` with the decay `table`.
     #[inline]
     fn off_with(
         &self,
         i1: i64,
-        len: u32,
-        vh: u32,
-        opened: bool,
-        unit: Unit,
+        fr: &OffFrame,
         table: impl Fn(u32) -> crate::qmath::Decay,
     ) -> (i64, i64) {
+        let len = fr.len;
         if len == 0 {
             return (i1, i1);
         }
-        let a = self.fall.off_asymptote(vh);
+        let a = fr.a;
         let decay = |start: i64| {
             if a < start {
-                fall(start, a, len, &table, self.fall.saturated_off(unit))
+                fall(start, a, len, &table, self.fall.saturated_off(fr.unit))
             } else {
                 // An asymptote above the start (a supply at or above a clamp across the switch):
                 // the current rises at most to it.
@@ -735,15 +851,16 @@ impl Bound {
         let Some(n) = &self.node else {
             return (i1, decay(i1) + ROUNDING);
         };
-        if !opened {
+        let Some(nf) = &fr.node else {
+            // No turn-off: nothing charges the node.
             return (i1, decay(i1).max(n.ring) + ROUNDING);
-        }
+        };
         // The true end is not monotone in the start (a small current charges the node slowly and
         // gains more), so the bound is the supremum over every start x in 0 ..= i1:
         // - any x: at most x + c, c = (V + V_bd)·√(C/L) (energy);
         // - x >= x_lo (the charge completes early): at most decay(h(x)), h(x) = x + K/x + k2,
         //   convex, so its largest value on x_lo ..= i1 is at an end.
-        let c = n.sqrt_c_over_l.apply(vh.saturating_add(n.body)) as i64;
+        let c = nf.c;
         if a >= i1 {
             // Not a decay: a supply at or above a clamp across the switch holds the current up,
             // so it rises toward the asymptote; the node's charge adds at most c on top.
@@ -751,27 +868,47 @@ impl Bound {
             return (top, top.max(n.ring) + ROUNDING);
         }
         let peak = i1.saturating_add(c);
-        let charge = match unit {
-            Unit::Count => n.charge_counts,
-            Unit::Micro => n.charge_us,
-        };
-        // x_lo = max(i_min, C·V_n/t_off), the quotient rounded up (no division).
-        let q = div_up(charge, u64::from(len));
-        let x_lo = n.i_min.max(q.min(1 << 61) as i64);
-        if i1 < x_lo {
+        if i1 < nf.x_lo {
             return (peak, peak.max(n.ring) + ROUNDING);
         }
-        let v_n = n
-            .node_base
-            .saturating_add(if n.node_adds_supply { vh } else { 0 });
-        // K·V_n², then over x rounded up; x >= x_lo >= 1 here.
-        let kv = n.k1.apply_u128_full(u128::from(v_n) * u128::from(v_n));
-        let h = |x: i64| {
-            let raise = div_up_wide(kv, x as u64).min(1 << 61) as i64;
-            x.saturating_add(raise).saturating_add(n.k2)
-        };
-        let y = h(x_lo).max(h(i1));
-        let end = decay(y).min(peak).max(x_lo.saturating_add(c)).max(n.ring);
+        let y = nf.h_lo.max(n.raise(nf.kv, i1));
+        let end = decay(y)
+            .min(peak)
+            .max(nf.x_lo.saturating_add(c))
+            .max(n.ring);
         (peak, end + ROUNDING)
+    }
+}
+
+/// What an off-segment of one length at one supply shares across the slices: the fall
+/// corner's asymptote and, after a turn-off with a node capacitance, the node's terms (the
+/// charge's shortest start and its raise there, computed once a period instead of once a slice).
+#[derive(Clone, Copy)]
+pub(crate) struct OffFrame {
+    len: u32,
+    a: i64,
+    unit: Unit,
+    node: Option<NodeFrame>,
+}
+
+/// The node's terms of an [`OffFrame`].
+#[derive(Clone, Copy)]
+struct NodeFrame {
+    /// The most the charge can add, `(V + V_bd)·√(C/L)`, raw.
+    c: i64,
+    /// The smallest start whose charge completes inside the segment, raw.
+    x_lo: i64,
+    /// `K·V_n²`, the numerator of the raise.
+    kv: u128,
+    /// `h(x_lo)`.
+    h_lo: i64,
+}
+
+impl NodeCharge {
+    /// `h(x) = x + K·V_n²/x + k2` for `x >= 1` (`kv` = K·V_n²), the quotient rounded up.
+    #[inline]
+    fn raise(&self, kv: u128, x: i64) -> i64 {
+        let q = div_up_wide(kv, x.max(1) as u64).min(1 << 61) as i64;
+        x.saturating_add(q).saturating_add(self.k2)
     }
 }

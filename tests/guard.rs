@@ -677,3 +677,39 @@ fn limiting_settles_at_the_duty_that_holds_the_ceiling() {
     let d = f64::from(lo) / f64::from(N);
     assert!((0.74..0.765).contains(&d), "{d}");
 }
+
+#[test]
+fn limiting_on_a_declared_tolerance_settles_too() {
+    // The demo valve made harder to bound: saturating above 0.9 A (12 mH saturated), 470 pF at
+    // its node, and a declared tolerance (L ±20 %, R ±10 %, reading ±2 %, node C +50 %,
+    // saturation ±10 %/±20 %), so six slices of the inductance range decide the ceiling. Taking
+    // the largest duty that holds made the bound swing: a long on-part left it high, the next
+    // largest was short, and so on, 1711 ↔ 2363 counts forever (measured before the half step
+    // was added). Half steps while rising settle it within four counts of 3200.
+    let mut p = common::valve();
+    p.coil = p
+        .coil
+        .with_saturation(coilward::Saturation::new(0.9, 0.012));
+    p.coil.node_capacitance = Some(470e-12);
+    let limits = GuardLimits::new(1.1, 1.3, 0.05).with_tolerance(
+        coilward::Tolerance::EXACT
+            .with_inductance(0.2)
+            .with_resistance(0.1)
+            .with_supply_reading(0.02)
+            .with_node_capacitance(0.5)
+            .with_saturation(0.1, 0.2),
+    );
+    let g = Guard::new(&p, &limits).expect("valid guard");
+    let mut s = g.start_idle();
+    run(&g, &mut s, N, 2000);
+    let (mut lo, mut hi) = (u32::MAX, 0);
+    for _ in 0..400 {
+        let out = g.tick(&mut s, Input::new(N, v(24.0)));
+        assert!(out.active.contains(Condition::CurrentLimit));
+        assert!(out.predicted_peak <= g.ceiling());
+        lo = lo.min(out.duty);
+        hi = hi.max(out.duty);
+    }
+    eprintln!("CHECK settled limiting inside a declared tolerance: duty {lo} ..= {hi} of {N}");
+    assert!(hi - lo <= 4, "{lo} ..= {hi}");
+}
