@@ -80,6 +80,19 @@ pub fn limits() -> GuardLimits {
     l
 }
 
+/// The trace's valve as a PWM drive is usually built: the same saturating coil with 470 pF at
+/// its node, freewheeling through a diode (0.7 V, 50 mΩ) instead of the 45 V clamp (which under
+/// steady PWM takes far more power than its replica allows and trips). For the typical-tick
+/// benchmark, with the trace's limits (declared tolerance, both thermal images).
+pub fn freewheel_params() -> Params {
+    let mut p = params();
+    p.clamp = ClampPath::Freewheel {
+        forward_drop: 0.7,
+        resistance: 0.05,
+    };
+    p
+}
+
 /// A high-resistance coil with nothing across the switch and 22 nF at its node, whose turn-offs
 /// ring under the breakdown (the bound's ring envelope), with a declared tolerance: for the
 /// panic-free build.

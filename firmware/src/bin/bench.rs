@@ -62,29 +62,68 @@ fn main() -> ! {
         m.step(black_box(&mut coil), black_box(typical), black_box(vs))
     });
 
-    // Guard tick, typical: the same steady PWM, under the ceiling, every replica running.
-    let mut s = guard.start_idle();
+    // Guard tick, held: a valve held in steady PWM at 55 % through its freewheel diode
+    // (about 0.7 A, continuous conduction; its bound stays under the 1.1 A ceiling with the
+    // declared tolerance), every replica running, nothing raised. The same duty as the period before.
+    let held = 1760;
+    let fp = black_box(trace::freewheel_params());
+    let Ok(hold) = Guard::new(&fp, &l) else {
+        coilward_firmware::finish(false)
+    };
+    let mut s = hold.start_idle();
     for _ in 0..2000 {
-        guard.tick(&mut s, Input::new(typical, vs));
+        hold.tick(&mut s, Input::new(held, vs));
+    }
+    let check = hold.tick(&mut s.clone(), Input::new(held, vs));
+    if check.duty != held || !check.active.is_empty() {
+        let _ = writeln!(out, "the held tick is not a plain drive: {check:?}");
+        coilward_firmware::finish(false)
     }
     measure(&mut out, "tick", || {
-        guard.tick(
+        hold.tick(
             black_box(&mut s),
+            Input::new(black_box(held), black_box(vs)),
+        )
+    });
+
+    // A new duty (the request moved by one count): the tables are read afresh.
+    measure(&mut out, "tick-new-duty", || {
+        hold.tick(
+            black_box(&mut s),
+            Input::new(black_box(held + 1), black_box(vs)),
+        )
+    });
+
+    // The 45 V clamp of the trace's valve under steady PWM: its replica trips within the 2 000
+    // periods, so this is a latched guard at duty 0 whose bound rests at its floor.
+    let mut d = guard.start_idle();
+    for _ in 0..2000 {
+        guard.tick(&mut d, Input::new(typical, vs));
+    }
+    measure(&mut out, "tick-tripped", || {
+        guard.tick(
+            black_box(&mut d),
             Input::new(black_box(typical), black_box(vs)),
         )
     });
 
-    // Discontinuous conduction (at 40 % the 45 V clamp empties the coil every period): the
-    // off-segment's energy is then the exact turn-off energy.
+    // Discontinuous conduction of the bound (at 20 % the 45 V clamp empties the coil every
+    // period): the off-segment's energy is then the exact turn-off energy. Taken before the
+    // clamp's replica trips.
     let mut d = guard.start_idle();
-    for _ in 0..2000 {
-        guard.tick(&mut d, Input::new(1280, vs));
+    for _ in 0..200 {
+        guard.tick(&mut d, Input::new(640, vs));
+    }
+    let check = guard.tick(&mut d.clone(), Input::new(640, vs));
+    if check.duty != 640 || !check.active.is_empty() {
+        let _ = writeln!(
+            out,
+            "the discontinuous tick is not a plain drive: {check:?}"
+        );
+        coilward_firmware::finish(false)
     }
     measure(&mut out, "tick-dcm", || {
-        guard.tick(
-            black_box(&mut d),
-            Input::new(black_box(1280), black_box(vs)),
-        )
+        guard.tick(black_box(&mut d), Input::new(black_box(640), black_box(vs)))
     });
 
     // Paths that can be the longest: the ceiling's bisection ...
