@@ -449,6 +449,70 @@ impl Field {
             Field::ToleranceBusCapacitance => "tolerance.bus_capacitance",
         }
     }
+
+    /// The SI unit the field is given in (`""` for a count, a ratio or a fraction), for
+    /// messages: `"outside 100 µs ..= 1 s"` reads better than a bare range.
+    pub const fn unit(self) -> &'static str {
+        match self {
+            Field::SupplyNominal
+            | Field::SupplyMin
+            | Field::SupplyMax
+            | Field::SwitchBreakdown
+            | Field::ClampForwardDrop
+            | Field::ClampZenerVoltage
+            | Field::ClampVoltage
+            | Field::AdcVoltsPerCount
+            | Field::AdcOffset
+            | Field::BodyDiodeForwardDrop
+            | Field::MotorBackEmfLimit => "V",
+            Field::CoilInductance | Field::CoilSaturatedInductance => "H",
+            Field::CoilResistance
+            | Field::SwitchOnResistance
+            | Field::ClampResistance
+            | Field::BodyDiodeResistance => "Ω",
+            Field::CoilReferenceTemperature
+            | Field::CoilWindingTemperature
+            | Field::ClampThermalAmbient
+            | Field::ClampThermalCeiling
+            | Field::CoilThermalAmbient => "°C",
+            Field::ClampThermalHysteresis | Field::CoilThermalRiseAtBasic => "K",
+            Field::CoilTemperatureCoefficient => "1/K",
+            Field::CoilNodeCapacitance | Field::BusCapacitance => "F",
+            Field::CoilSaturationCurrent
+            | Field::ControlCurrentFullScale
+            | Field::GuardCurrentCeiling
+            | Field::GuardTripCurrent
+            | Field::GuardReleaseCurrent
+            | Field::CoilThermalBasicCurrent
+            | Field::HoldPullInCurrent
+            | Field::HoldCurrent
+            | Field::BusSinkCurrent => "A",
+            Field::SwitchDeadTime
+            | Field::ControlPeriod
+            | Field::GuardRetryCooldown
+            | Field::GuardClampPowerWindow
+            | Field::CoilThermalTimeConstant
+            | Field::HoldPullInTime
+            | Field::GuardReversalDeadTime => "s",
+            Field::GuardClampPulseEnergy => "J",
+            Field::GuardClampPowerMax => "W",
+            Field::MotorConstant => "V·s/rad",
+            Field::ControlDutyResolution
+            | Field::ClampThermalStage
+            | Field::CoilThermalOverloadFactor
+            | Field::CoilThermalResetLevel
+            | Field::DecayFastShare
+            | Field::ToleranceInductance
+            | Field::ToleranceResistance
+            | Field::ToleranceSupplyReading
+            | Field::ToleranceNodeCapacitance
+            | Field::ToleranceSaturationCurrent
+            | Field::ToleranceSaturatedInductance
+            | Field::ToleranceClampVoltage
+            | Field::ToleranceBackEmfConstant
+            | Field::ToleranceBusCapacitance => "",
+        }
+    }
 }
 
 /// What is wrong with a field.
@@ -625,7 +689,10 @@ impl fmt::Display for ConfigError {
             Problem::NotFinite => f.write_str("not a finite number"),
             Problem::NotPositive => f.write_str("must be greater than zero"),
             Problem::Negative => f.write_str("must not be negative"),
-            Problem::OutOfRange { min, max } => write!(f, "outside {min} ..= {max}"),
+            Problem::OutOfRange { min, max } => match self.field.unit() {
+                "" => write!(f, "outside {min} ..= {max}"),
+                u => write!(f, "outside {min} {u} ..= {max} {u}"),
+            },
             Problem::Conflict(c) => write!(f, "{c}"),
         }
     }
