@@ -89,6 +89,14 @@ pub enum Problem {
     },
     /// The fit did not converge.
     NoFit,
+    /// The switch-off's resistance (winding and path) is below the rise's (winding alone) by
+    /// more than three standard uncertainties: one of the two is wrong.
+    Disagree {
+        /// The rise's winding resistance, Ω.
+        rise: Value,
+        /// The switch-off's winding and path resistance, Ω.
+        off: Value,
+    },
     /// The fitted inductance or resistance is not positive: not a coil.
     NotPhysical {
         /// Inductance, H.
@@ -129,6 +137,14 @@ impl fmt::Display for Problem {
                 r * 100.0
             ),
             Problem::NoFit => f.write_str("the fit did not converge"),
+            Problem::Disagree { rise, off } => write!(
+                f,
+                "the two resistances disagree: the switch-off gives {} ± {} for the winding and the freewheel path together, below the rise's {} ± {} for the winding alone; check --on-resistance (the switch's may be larger than given) and --supply",
+                si(off.value, "Ω", 4),
+                si(off.sigma, "Ω", 2),
+                si(rise.value, "Ω", 4),
+                si(rise.sigma, "Ω", 2)
+            ),
             Problem::NotPhysical {
                 inductance,
                 resistance,
@@ -584,6 +600,13 @@ pub fn fit(c: &Capture, o: &FitOptions) -> Fitted {
             inductance: r.inductance.value,
             resistance: r.resistance.value,
         });
+    }
+    if let (Some(r), Some(off)) = (&out.rise, out.fall.as_ref().and_then(|f| f.off_resistance)) {
+        let rise = r.resistance;
+        let sigma = rise.sigma.hypot(off.sigma);
+        if rise.value > 0.0 && off.value + 3.0 * sigma < rise.value {
+            out.problems.push(Problem::Disagree { rise, off });
+        }
     }
     if let Some(r) = &out.rise {
         let (lr, rr) = (r.inductance.relative(), r.resistance.relative());

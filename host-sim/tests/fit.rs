@@ -454,3 +454,41 @@ fn the_fit_pastes_into_a_scenario_that_runs() {
         .unwrap();
     assert_eq!(o.status.code(), Some(2));
 }
+
+#[test]
+fn rise_and_switch_off_resistances_that_disagree_are_refused() {
+    // A 40 mH, 18 Ω winding behind a 2 Ω switch (24 V, so 1.2 A), switched off at 15 ms into a
+    // 0.7 V diode with 50 mΩ: the decay's τ = L/(18 + 0.05). Told the switch has no resistance,
+    // the rise's winding comes out at 20 Ω while the switch-off says 18.05 Ω for the winding and
+    // the path together: refused. Told the true 2 Ω, both agree and the fit stands.
+    let (l, r_w, r_on, r_p, v_p): (f64, f64, f64, f64, f64) = (0.040, 18.0, 2.0, 0.05, 0.7);
+    let (tau_on, tau_off) = (l / (r_w + r_on), l / (r_w + r_p));
+    let top = 24.0 / (r_w + r_on);
+    let t1: f64 = 14e-3;
+    let i1 = top * (1.0 - (-t1 / tau_on).exp());
+    let a = -v_p / (r_w + r_p);
+    let wave = move |t: f64| {
+        if t < t1 {
+            top * (1.0 - (-t / tau_on).exp())
+        } else {
+            (a + (i1 - a) * (-(t - t1) / tau_off).exp()).max(0.0)
+        }
+    };
+    let text = synthetic(6000, 5e-6, 1e-3, wave, 2e-3, 11);
+    let told = |on: f64| {
+        let mut o = OPTS;
+        o.series_resistance = on;
+        fit::fit(&capture(&text), &o)
+    };
+    let wrong = told(0.0);
+    let p = wrong
+        .problems
+        .iter()
+        .find(|p| matches!(p, Problem::Disagree { .. }))
+        .unwrap_or_else(|| panic!("{:?}", wrong.problems));
+    assert!(p.to_string().contains("--on-resistance"), "{p}");
+    let right = told(r_on);
+    assert!(right.problems.is_empty(), "{:?}", right.problems);
+    let r = right.rise.as_ref().unwrap().resistance.value;
+    assert!((r - r_w).abs() < 0.05, "{r}");
+}
