@@ -13,6 +13,23 @@ use indicatif::{ProgressBar, ProgressStyle};
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
+/// `println!` that ends quietly when standard output has been closed (a pager or `head` that
+/// read enough): the error is dropped instead of panicking.
+macro_rules! say {
+    ($($t:tt)*) => {{
+        use std::io::Write as _;
+        let _ = writeln!(std::io::stdout(), $($t)*);
+    }};
+}
+
+/// `print!` with the same behaviour as [`say!`].
+macro_rules! say_part {
+    ($($t:tt)*) => {{
+        use std::io::Write as _;
+        let _ = write!(std::io::stdout(), $($t)*);
+    }};
+}
+
 #[derive(Parser)]
 #[command(
     name = "coilward-sim",
@@ -172,18 +189,18 @@ impl Outputs<'_> {
                 let text = serde_json::to_string_pretty(&json()).map_err(|e| e.to_string())?;
                 std::fs::write(p, text + "\n").map_err(|e| e.to_string())
             })?;
-            println!("  json: {}", p.display());
+            say!("  json: {}", p.display());
         }
         if let Some(p) = self.csv {
             write_file(p, "CSV report", |p| {
                 let f = std::fs::File::create(p).map_err(|e| e.to_string())?;
                 csv(std::io::BufWriter::new(f)).map_err(|e| e.to_string())
             })?;
-            println!("  csv: {}", p.display());
+            say!("  csv: {}", p.display());
         }
         if let Some(p) = self.svg {
             write_file(p, "plot", |p| svg(p).map_err(|e| e.to_string()))?;
-            println!("  plot: {}", p.display());
+            say!("  plot: {}", p.display());
         }
         Ok(())
     }
@@ -198,7 +215,7 @@ fn run_bridge(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
     let s = load_bridge(file)?;
     out.check()?;
     let r = bridge::cosim::run(&s, out.rows());
-    print!("{}", bridge::report::summary(&s, &r));
+    say_part!("{}", bridge::report::summary(&s, &r));
     out.write(
         || bridge::report::json(&s, &r),
         |w| bridge::report::csv(&r.rows, w),
@@ -215,19 +232,22 @@ fn check_bridge(file: &Path) -> Result<ExitCode, ExitCode> {
     })?;
     let m = guard.model();
     let d = m.derived();
-    println!("{} ({}): valid (full bridge)", s.name, s.file.display());
+    say!("{} ({}): valid (full bridge)", s.name, s.file.display());
     for a in &s.assumed {
-        println!("  assumed: {a}");
+        say!("  assumed: {a}");
     }
-    println!(
+    for w in &s.warnings {
+        say!("  warning: {w}");
+    }
+    say!(
         "  time constant, driving and slow decay   {}",
         si(f64::from(d.tau_on), "s", 4)
     );
-    println!(
+    say!(
         "  time constant, fast decay               {}",
         si(f64::from(d.tau_fast), "s", 4)
     );
-    println!(
+    say!(
         "  stall current, 100 %, nominal supply    {}",
         si(f64::from(d.on_current_nominal), "A", 4)
     );
@@ -236,7 +256,7 @@ fn check_bridge(file: &Path) -> Result<ExitCode, ExitCode> {
     let r_f = c.resistance + 2.0 * c.diode_resistance;
     let a = (c.supply + 2.0 * c.diode_drop) / r_f;
     let q = c.inductance / r_f * (i0 - a * (1.0 + i0 / a).ln());
-    println!(
+    say!(
         "  fast turn-off from the ceiling: {} returned ({} at {}) in {}",
         si(q, "C", 3),
         si(q * c.supply, "J", 3),
@@ -245,14 +265,14 @@ fn check_bridge(file: &Path) -> Result<ExitCode, ExitCode> {
     );
     if let Some(b) = c.bus {
         let rise = ((c.supply * c.supply + 2.0 * q * c.supply / b.capacitance).sqrt()) - c.supply;
-        println!(
+        say!(
             "  with no sink, that lifts {} to {} (max {})",
             si(b.capacitance, "F", 3),
             si(c.supply + rise, "V", 3),
             si(f64::from(s.params.supply.max), "V", 3)
         );
     }
-    println!(
+    say!(
         "  reversal dead time                      {} ({} periods)",
         si(f64::from(s.limits.reversal_dead_time), "s", 3),
         guard.dead_periods()
@@ -311,7 +331,7 @@ fn faults_cmd(file: &Path, json: Option<&Path>) -> Result<ExitCode, ExitCode> {
         let run = |c| coilward_sim::faults::run(c).0;
         (s.name.clone(), cases.par_iter().map(run).collect())
     };
-    println!("{name} ({})", file.display());
+    say!("{name} ({})", file.display());
     // The third column: the bus on a bridge, the clamp pulse on a low side.
     let third = if bridge { "bus/max" } else { "pulse/rat." };
     let w = outcomes
@@ -319,13 +339,19 @@ fn faults_cmd(file: &Path, json: Option<&Path>) -> Result<ExitCode, ExitCode> {
         .map(|o| o.name.chars().count())
         .max()
         .unwrap_or(4);
-    println!(
+    say!(
         "  {:<w$} {:>6} {:>11} {:>11} {:>6} {:>9} {:>8}",
-        "case", "inside", "peak/ceil.", third, "early", "exceeded", "flagged"
+        "case",
+        "inside",
+        "peak/ceil.",
+        third,
+        "early",
+        "exceeded",
+        "flagged"
     );
     let yes = |b: bool| if b { "yes" } else { "no" };
     for o in &outcomes {
-        println!(
+        say!(
             "  {:<w$} {:>6} {:>11.3} {:>11.3} {:>6} {:>9} {:>8}",
             o.name,
             yes(o.inside_tolerance),
@@ -345,9 +371,14 @@ fn faults_cmd(file: &Path, json: Option<&Path>) -> Result<ExitCode, ExitCode> {
         .iter()
         .filter(|o| o.inside_tolerance && o.exceeded)
         .count();
-    println!("\n  inside the declared tolerance: {inside} cases, {bad} exceeded");
+    say!("\n  inside the declared tolerance: {inside} cases, {bad} exceeded");
     if let Some(p) = json {
-        let doc = serde_json::json!({ "scenario": name, "cases": outcomes });
+        let topology = if bridge { "full-bridge" } else { "low-side" };
+        let doc = serde_json::json!({
+            "schema": coilward_sim::report::json::REPORT_SCHEMA,
+            "scenario": coilward_sim::report::json::scenario(&name, file, topology),
+            "cases": outcomes,
+        });
         write_file(p, "fault report", |p| {
             std::fs::write(
                 p,
@@ -363,7 +394,7 @@ fn run(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
     let s = load(file)?;
     out.check()?;
     let r = cosim::run(&s, Options { rows: out.rows() });
-    print!("{}", report::summary(&s, &r));
+    say_part!("{}", report::summary(&s, &r));
     out.write(
         || report::json::report(&s, &r),
         |w| report::csv::write(&r.rows, w),
@@ -382,20 +413,23 @@ fn check(file: &Path) -> Result<ExitCode, ExitCode> {
     let d = m.derived();
     let vs = coilward::Volts::saturating_from_num(s.beliefs.voltage);
     let amps = |a: f32| m.current_from_amps(a);
-    println!("{} ({}): valid", s.name, s.file.display());
+    say!("{} ({}): valid", s.name, s.file.display());
     for a in &s.assumed {
-        println!("  assumed: {a}");
+        say!("  assumed: {a}");
     }
-    println!("\n  as the firmware believes the circuit (the guard's model):");
-    println!(
+    for w in &s.warnings {
+        say!("  warning: {w}");
+    }
+    say!("\n  as the firmware believes the circuit (the guard's model):");
+    say!(
         "  time constant, switch on        {}",
         si(f64::from(d.tau_on), "s", 4)
     );
-    println!(
+    say!(
         "  time constant, freewheeling     {}",
         si(f64::from(d.tau_off), "s", 4)
     );
-    println!(
+    say!(
         "  clamp path                      {} + {}",
         si(f64::from(d.path_voltage), "V", 4),
         si(f64::from(d.path_resistance), "Ω", 3)
@@ -406,50 +440,50 @@ fn check(file: &Path) -> Result<ExitCode, ExitCode> {
         ("nominal", s.beliefs.voltage),
         ("max", s.beliefs.supply_max),
     ] {
-        println!(
+        say!(
             "  steady current, 100 %, {label:<8} {} (at {})",
             si(v / r_on, "A", 4),
             si(v, "V", 3)
         );
     }
-    println!(
+    say!(
         "  effective current ceiling       {}",
         si(f64::from(m.amps(guard.ceiling())), "A", 4)
     );
     let trip = s.limits.trip_current;
     let release = s.limits.release_current;
     if let (Some(i_trip), Some(i_rel)) = (amps(trip), amps(release)) {
-        println!(
+        say!(
             "\n  turning off at the trip current, {}:",
             si(f64::from(trip), "A", 4)
         );
         match m.decay_time_us(i_trip, i_rel, vs) {
-            Some(us) => println!(
+            Some(us) => say!(
                 "  decay to the release current    {} (to {})",
                 si(f64::from(us) * 1e-6, "s", 4),
                 si(f64::from(release), "A", 3)
             ),
             None => {
-                println!("  decay to the release current    never (the path holds the current up)")
+                say!("  decay to the release current    never (the path holds the current up)")
             }
         }
-        println!(
+        say!(
             "  energy into the clamp path      {}",
             si(f64::from(m.joules(m.turn_off_energy(i_trip, vs))), "J", 4)
         );
-        println!(
+        say!(
             "  switch-node peak                {}",
             si(m.peak_drain_voltage(i_trip, vs).to_num::<f64>(), "V", 4)
         );
         if let Some(e) = s.limits.clamp_pulse_energy {
-            println!(
+            say!(
                 "  clamp pulse rating              {}",
                 si(f64::from(e), "J", 3)
             );
         }
         let ceiling = guard.ceiling();
         if let Some(us) = m.decay_time_us(ceiling, i_rel, vs) {
-            println!(
+            say!(
                 "  release from the ceiling        {}",
                 si(f64::from(us) * 1e-6, "s", 4)
             );
@@ -457,10 +491,10 @@ fn check(file: &Path) -> Result<ExitCode, ExitCode> {
     }
     print_tolerance_and_clamp_power(&s);
     if !s.tolerance.is_empty() {
-        println!("\n  tolerance spreads (for sweep):");
+        say!("\n  tolerance spreads (for sweep):");
         for (k, sp) in &s.tolerance {
             let (lo, hi) = sp.bounds(s.plant.get(*k));
-            println!(
+            say!(
                 "  {:<20} {} ..= {}",
                 k.name(),
                 si(lo, k.unit().symbol(), 4),
@@ -475,7 +509,7 @@ fn check(file: &Path) -> Result<ExitCode, ExitCode> {
 /// (from a simulated run).
 fn print_tolerance_and_clamp_power(s: &Scenario) {
     let t = s.limits.tolerance;
-    println!(
+    say!(
         "\n  declared tolerance the guard covers: inductance ±{:.1} %, resistance ±{:.1} %, \
          supply reading ±{:.1} %, node capacitance +{:.1} %, clamp voltage ±{:.1} %",
         t.inductance * 100.0,
@@ -485,7 +519,7 @@ fn print_tolerance_and_clamp_power(s: &Scenario) {
         t.clamp_voltage * 100.0
     );
     if s.beliefs.saturation_current.is_some() {
-        println!(
+        say!(
             "  saturation current ±{:.1} %, saturated inductance ±{:.1} %",
             t.saturation_current * 100.0,
             t.saturated_inductance * 100.0
@@ -502,7 +536,7 @@ fn print_tolerance_and_clamp_power(s: &Scenario) {
     } else {
         format!("limit {}", si(f64::from(p.max_average), "W", 3))
     };
-    println!(
+    say!(
         "  clamp average power, worst      {} over a {} window, simulated ({limit})",
         si(worst, "W", 3),
         si(f64::from(p.window), "s", 3)
@@ -517,10 +551,10 @@ fn print_failed(results: &[sweep::Sample], failed: usize) {
         .filter(|r| r.verdict == cosim::Verdict::Fail)
         .take(5)
     {
-        println!("  failed: sample {} ({})", r.index, r.findings.join(", "));
+        say!("  failed: sample {} ({})", r.index, r.findings.join(", "));
     }
     if failed > 5 {
-        println!(
+        say!(
             "  failed: {} more samples (all in the JSON results)",
             failed - 5
         );
@@ -572,7 +606,7 @@ fn sweep_cmd(
         cosim::Verdict::Fail,
     ]
     .map(|v| results.iter().filter(|r| r.verdict == v).count());
-    println!(
+    say!(
         "{} ({}): {} samples (shard {}/{} of {samples}, seed {seed}) in {:.2} s",
         s.name,
         s.file.display(),
@@ -581,7 +615,7 @@ fn sweep_cmd(
         shard.n,
         t0.elapsed().as_secs_f64()
     );
-    println!("  pass {passed}, limited {limited}, fail {failed}");
+    say!("  pass {passed}, limited {limited}, fail {failed}");
     let worst = results
         .iter()
         .map(|r| r.verdict)
@@ -615,7 +649,7 @@ fn sweep_cmd(
             "A".into(),
         ),
     ];
-    println!("\n  worst cases:");
+    say!("\n  worst cases:");
     let mut worst_json = serde_json::Map::new();
     for (what, w, unit) in &worst_cases {
         if let Some(w) = w {
@@ -636,7 +670,7 @@ fn sweep_cmd(
             } else {
                 "not reached".into()
             };
-            println!(
+            say!(
                 "  {what:<17} {shown:>11}  sample {} ({}): {}",
                 w.index,
                 w.verdict.word(),
@@ -652,9 +686,9 @@ fn sweep_cmd(
     kinds.sort_unstable();
     kinds.dedup();
     if !kinds.is_empty() {
-        println!("\n  findings among the samples (the limited ones: the guard acted):");
+        say!("\n  findings among the samples (the limited ones: the guard acted):");
         for k in kinds {
-            println!(
+            say!(
                 "  {k:<26} {} samples",
                 results.iter().filter(|r| r.findings.contains(&k)).count()
             );
@@ -663,7 +697,8 @@ fn sweep_cmd(
     if let Some(p) = json {
         write_file(p, "JSON results", |p| {
             let v = serde_json::json!({
-                "scenario": { "name": s.name, "file": s.file.display().to_string() },
+                "schema": coilward_sim::report::json::REPORT_SCHEMA,
+                "scenario": coilward_sim::report::json::scenario(&s.name, &s.file, "low-side"),
                 "samples": samples, "seed": seed, "shard": format!("{}/{}", shard.k, shard.n),
                 "verdict": worst.word(),
                 "passed": passed, "limited": limited, "failed": failed,
@@ -746,12 +781,12 @@ fn fit_cmd(
             .transpose()?,
     };
     let fitted = coilward_sim::fit::fit(&capture, &fo);
-    print!("{}", report::fit::summary(&capture, &fo, &fitted));
+    say_part!("{}", report::fit::summary(&capture, &fo, &fitted));
     if let Some(p) = svg {
         write_file(p, "plot", |p| {
             report::fit::svg(&capture, &fitted, p).map_err(|e| e.to_string())
         })?;
-        println!("  plot: {}", p.display());
+        say!("  plot: {}", p.display());
     }
     Ok(
         if fitted.problems.is_empty() && (fitted.rise.is_some() || fitted.fall.is_some()) {

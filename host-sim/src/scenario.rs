@@ -39,7 +39,9 @@ type Text = Option<Spanned<String>>;
 struct Raw {
     name: Option<String>,
     /// `low-side` (the default); a `full-bridge` file is read by [`crate::bridge::scenario`].
-    topology: Text,
+    /// Checked before the rest by [`Cx::topology_known`]; here so that the schema knows it.
+    #[serde(rename = "topology")]
+    _topology: Text,
     description: Option<String>,
     supply: RawSupply,
     coil: RawCoil,
@@ -714,8 +716,101 @@ pub struct Scenario {
     pub supply_reading: f64,
     /// Defaults the file left to the simulator, as `key = value` notes.
     pub assumed: Vec<String>,
+    /// Settings accepted that are probably not what was meant, each naming its key.
+    pub warnings: Vec<String>,
     spans: HashMap<String, Range<usize>>,
     source: String,
+}
+
+/// A warning for each drive step at or after the end of the run (it never applies).
+pub(crate) fn late_steps(at: impl Iterator<Item = f64>, duration: f64) -> Vec<String> {
+    at.enumerate()
+        .filter(|&(_, t)| t >= duration)
+        .map(|(n, t)| {
+            format!(
+                "drive[{n}].at ({}) is at or after the end of the run (run.duration = {}): it never applies",
+                crate::report::si(t, "s", 4),
+                crate::report::si(duration, "s", 4)
+            )
+        })
+        .collect()
+}
+
+/// A warning when the current's full scale is below the trip current.
+pub(crate) fn full_scale_below_trip(full_scale: f64, trip: f64) -> Option<String> {
+    (full_scale < trip).then(|| {
+        format!(
+            "control.current_full_scale ({}) is below guard.trip_current ({}): the estimate's \
+             error contract is quoted in parts of full scale; pick the coil's rating or trip level",
+            crate::report::si(full_scale, "A", 4),
+            crate::report::si(trip, "A", 4)
+        )
+    })
+}
+
+/// A library refusal as the scenario's message: what is wrong, without the library's own name
+/// for the field (the scenario key is named beside it, and may be spelt differently).
+pub(crate) fn library_words(e: &ConfigError) -> String {
+    let text = e.to_string();
+    let what = text
+        .strip_prefix(e.field.name())
+        .and_then(|t| t.strip_prefix(": "))
+        .unwrap_or(&text);
+    format!("refused by the library: {what}")
+}
+
+/// The topologies a scenario file may name.
+pub(crate) const TOPOLOGIES: [&str; 2] = ["low-side", "full-bridge"];
+
+/// A TOML reader's message in the user's words: no Rust type names, a hint for a bare number.
+pub(crate) fn plain_words(message: &str) -> String {
+    let found = message
+        .strip_prefix("invalid type: ")
+        .and_then(|m| m.split_once(", expected "));
+    let Some((what, expected)) = found else {
+        return message.to_string();
+    };
+    let value = what.split_once(' ').map_or(what, |(_, v)| v);
+    let value = value.strip_prefix("point ").unwrap_or(value);
+    match expected {
+        "a string" if what.starts_with("floating point") || what.starts_with("integer") => {
+            format!(
+                "{value} is a bare number: write it in quotes with its unit, e.g. \"40 mH\" or \"24 V\""
+            )
+        }
+        "a string" => format!("expected a value in quotes, e.g. \"40 mH\", found {value}"),
+        e if e.starts_with('u') || e.starts_with('i') => {
+            format!("expected a whole number without quotes or unit, e.g. 3200, found {value}")
+        }
+        "a boolean" => format!("expected true or false, found {value}"),
+        _ => format!("expected {expected}, found {value}"),
+    }
+}
+
+/// The `table.key` (or `key`, or `table[n].key`) written on line `line` (1-based), when that
+/// line assigns a key.
+pub(crate) fn key_at_line(text: &str, line: usize) -> Option<String> {
+    let lines: Vec<&str> = text.lines().collect();
+    let this = lines.get(line.checked_sub(1)?)?;
+    let (name, _) = this.split_once('=')?;
+    let name = name.trim();
+    if name.is_empty() || name.starts_with('#') || name.starts_with('[') {
+        return None;
+    }
+    let mut counts: HashMap<&str, usize> = HashMap::new();
+    let mut table: Option<String> = None;
+    for l in lines.iter().take(line) {
+        let t = l.trim();
+        if let Some(h) = t.strip_prefix("[[").and_then(|h| h.split(']').next()) {
+            let h = h.trim();
+            let n = counts.entry(h).or_insert(0);
+            table = Some(format!("{h}[{n}]"));
+            *n += 1;
+        } else if let Some(h) = t.strip_prefix('[').and_then(|h| h.split(']').next()) {
+            table = Some(h.trim().to_string());
+        }
+    }
+    Some(table.map_or_else(|| name.to_string(), |t| format!("{t}.{name}")))
 }
 
 /// Parsing context: file, text, spans.
@@ -730,17 +825,38 @@ impl Cx<'_> {
     pub(crate) fn document<T: serde::de::DeserializeOwned>(&self) -> Result<T, ScenarioError> {
         toml::from_str(self.text).map_err(|e| {
             let at = e.span().map(|s| self.position(s.start));
-            let mut message = e.message().trim().to_string();
-            if let Some(line) = at.and_then(|(l, _)| self.text.lines().nth(l - 1)) {
+            let mut message = plain_words(e.message().trim());
+            let line = at.and_then(|(l, _)| self.text.lines().nth(l - 1));
+            let key = at.and_then(|(l, _)| key_at_line(self.text, l));
+            if let (Some(line), None) = (line, &key) {
                 message.push_str(&format!(" (in `{}`)", line.trim()));
             }
             ScenarioError {
                 file: self.file.to_path_buf(),
                 at,
-                key: None,
+                key,
                 message,
             }
         })
+    }
+
+    /// A `topology` that names none of [`TOPOLOGIES`] is refused before anything else (the
+    /// rest of the file would be read against the wrong schema and blame another key).
+    pub(crate) fn topology_known(&self) -> Result<(), ScenarioError> {
+        #[derive(Deserialize)]
+        struct Peek {
+            topology: Option<Spanned<String>>,
+        }
+        match toml::from_str::<Peek>(self.text) {
+            Ok(Peek { topology: Some(t) }) if !TOPOLOGIES.contains(&t.get_ref().as_str()) => {
+                Err(self.error(
+                    "topology",
+                    Some(t.span()),
+                    format!("`{}` is not one of {}", t.get_ref(), TOPOLOGIES.join(", ")),
+                ))
+            }
+            _ => Ok(()),
+        }
     }
 
     pub(crate) fn position(&self, offset: usize) -> (usize, usize) {
@@ -956,8 +1072,8 @@ impl Scenario {
             text,
             spans: HashMap::new(),
         };
+        cx.topology_known()?;
         let raw: Raw = cx.document()?;
-        cx.word("topology", &raw.topology, &["low-side"])?;
         let s = &raw.supply;
         let voltage = cx.required("supply.voltage", &s.voltage, Unit::Volt)?;
         let supply_min = cx.value("supply.min", &s.min, Unit::Volt)?;
@@ -1215,6 +1331,11 @@ impl Scenario {
         // [control]
         let ct = &raw.control;
         let period = cx.required("control.period", &ct.period, Unit::Second)?;
+        cx.check(
+            "control.period",
+            period > 0.0 && period <= 1.0,
+            "must be above 0 s and at most 1 s",
+        )?;
         let duty_resolution =
             match cx.count("control.duty_resolution", &ct.duty_resolution, 1..65_536)? {
                 Some(n) => u32::try_from(n).unwrap_or(1000),
@@ -1524,6 +1645,8 @@ impl Scenario {
         }
         plant.supply_min = plant.supply_min.min(plant.voltage);
         limits.tolerance = declared(&beliefs, &tolerance, supply_reading);
+        let mut warnings = late_steps(drive.iter().map(|d| d.at), duration);
+        warnings.extend(full_scale_below_trip(current_full_scale, trip));
         let scenario = Scenario {
             file: path.to_path_buf(),
             name: raw.name.clone().unwrap_or_else(|| {
@@ -1548,6 +1671,7 @@ impl Scenario {
             tolerance,
             supply_reading,
             assumed,
+            warnings,
             spans: cx.spans,
             source: text.to_string(),
         };
@@ -1614,7 +1738,7 @@ impl Scenario {
             text: &self.source,
             spans: self.spans.clone(),
         };
-        cx.error(&key, None, format!("refused by the library: {e}"))
+        cx.error(&key, None, crate::scenario::library_words(e))
     }
 
     /// The first control period at or after a step's time (a step at 10 ms with a 50 µs period

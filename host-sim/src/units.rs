@@ -97,7 +97,7 @@ impl Unit {
     fn spellings(self) -> &'static [&'static str] {
         match self {
             Unit::Henry => &["H"],
-            Unit::Ohm => &["Ω", "Ω", "ohm", "ohms", "Ohm"],
+            Unit::Ohm => &["\u{3a9}", "\u{2126}", "ohm", "ohms", "Ohm"],
             Unit::Second => &["s"],
             Unit::Farad => &["F"],
             Unit::Volt => &["V"],

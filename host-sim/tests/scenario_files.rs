@@ -276,6 +276,26 @@ fn reports_keep_their_contract() {
     );
     let svg = std::fs::read_to_string(&s).unwrap();
     assert!(svg.starts_with("<svg") && svg.contains("estimate") && svg.contains("verdict: pass"));
+    // Both topologies' JSON share one frame: the layout's version, the scenario as an object
+    // with its topology, the verdict word and the estimate's error.
+    let b = dir.path().join("b.json");
+    let out = sim()
+        .arg("run")
+        .arg(demo("reversing-gear-motor.toml"))
+        .arg("--json")
+        .arg(&b)
+        .output()
+        .unwrap();
+    assert!(out.status.code().is_some_and(|c| c != 2));
+    let w: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&b).unwrap()).unwrap();
+    for (doc, topology) in [(&v, "low-side"), (&w, "full-bridge")] {
+        assert_eq!(doc["schema"], 1);
+        assert_eq!(doc["scenario"]["topology"], topology);
+        assert!(doc["scenario"]["name"].is_string() && doc["scenario"]["file"].is_string());
+        assert!(["pass", "limited", "fail"].contains(&doc["verdict"].as_str().unwrap()));
+        assert!(doc["estimate"]["max_abs_error_a"].is_f64(), "{topology}");
+        assert!(doc["warnings"].is_array() && doc["findings"].is_array());
+    }
 }
 
 #[test]
@@ -318,5 +338,103 @@ fn sweep_samples_never_stop_the_plant() {
             x.index,
             x.findings
         );
+    }
+}
+
+#[test]
+fn each_bad_input_blames_the_key_the_user_must_change() {
+    // (what, the demo valve edited, exit status of `check`, where the words must appear, words).
+    // Status 2 is bad input (stderr names file, line and key); 0 with a warning line naming the
+    // key on stdout is a setting accepted that is probably not what was meant.
+    let cases: [(&str, String, i32, &str, &[&str]); 9] = [
+        (
+            "a zero period",
+            valve_text().replace("period = \"50 us\"", "period = \"0 s\""),
+            2,
+            "stderr",
+            &["control.period", "above 0 s"],
+        ),
+        (
+            "a mistyped topology",
+            format!("topology = \"fullbridge\"\n{}", valve_text()),
+            2,
+            "stderr",
+            &["topology", "low-side, full-bridge"],
+        ),
+        (
+            "a bare number",
+            valve_text().replace("inductance = \"40 mH\"", "inductance = 0.04"),
+            2,
+            "stderr",
+            &["coil.inductance", "bare number", "\"40 mH\""],
+        ),
+        (
+            "a count in quotes",
+            valve_text().replace("duty_resolution = 3200", "duty_resolution = \"3200\""),
+            2,
+            "stderr",
+            &["control.duty_resolution", "whole number"],
+        ),
+        (
+            "a winding temperature beyond the library's range",
+            valve_text().replace("\ntemperature = \"20 °C\"", "\ntemperature = \"400 °C\""),
+            2,
+            "stderr",
+            &["coil.temperature", "-100 °C ..= 300 °C"],
+        ),
+        (
+            "an on-resistance beyond the library's range",
+            valve_text().replace("on_resistance = \"0.1 Ω\"", "on_resistance = \"2 kΩ\""),
+            2,
+            "stderr",
+            &["switch.on_resistance", "1000 Ω"],
+        ),
+        (
+            "the ohm sign U+2126",
+            valve_text().replace("resistance = \"18 Ω\"", "resistance = \"18 \u{2126}\""),
+            0,
+            "stdout",
+            &["valid"],
+        ),
+        (
+            "a full scale below the trip current",
+            valve_text().replace(
+                "current_full_scale = \"2 A\"",
+                "current_full_scale = \"0.5 A\"",
+            ),
+            0,
+            "stdout",
+            &["warning: control.current_full_scale", "guard.trip_current"],
+        ),
+        (
+            "a drive step after the end of the run",
+            valve_text().replace("at = \"180 ms\"", "at = \"250 ms\""),
+            0,
+            "stdout",
+            &["warning: drive[5].at", "run.duration"],
+        ),
+    ];
+    let dir = tempfile::tempdir().unwrap();
+    for (what, text, status, stream, words) in cases {
+        assert_ne!(text, valve_text(), "{what}: the edit must change the demo");
+        let file = dir.path().join("case.toml");
+        std::fs::write(&file, &text).unwrap();
+        let out = sim().arg("check").arg(&file).output().unwrap();
+        let shown = String::from_utf8_lossy(if stream == "stderr" {
+            &out.stderr
+        } else {
+            &out.stdout
+        })
+        .into_owned();
+        assert_eq!(out.status.code(), Some(status), "{what}: {shown}");
+        for w in words {
+            assert!(shown.contains(w), "{what}: `{w}` not in {shown}");
+        }
+        if status == 2 {
+            assert!(
+                !shown.contains("expected i64") && !shown.contains("invalid type"),
+                "{what}: {shown}"
+            );
+        }
     }
 }

@@ -61,13 +61,14 @@ pub fn csv(rows: &[BridgeRow], out: impl Write) -> Result<(), ::csv::Error> {
 /// The JSON report.
 pub fn json(s: &BridgeScenario, r: &BridgeRun) -> serde_json::Value {
     json!({
-        "scenario": s.name,
-        "file": s.file.display().to_string(),
-        "topology": "full-bridge",
+        "schema": crate::report::json::REPORT_SCHEMA,
+        "scenario": crate::report::json::scenario(&s.name, &s.file, "full-bridge"),
         "verdict": r.verdict().word(),
         "assumed": s.assumed,
+        "warnings": s.warnings,
         "peak_current_a": r.peak_current_a,
-        "max_estimate_error_a": r.max_estimate_error_a,
+        "estimate": { "max_abs_error_a": r.max_estimate_error_a },
+        "period_s": s.period,
         "returned_energy_j": r.returned_energy_j,
         "estimated_returned_energy_j": r.estimated_returned_energy_j,
         "peak_bus_v": r.peak_bus_v,
@@ -91,6 +92,9 @@ pub fn summary(s: &BridgeScenario, r: &BridgeRun) -> String {
     );
     for a in &s.assumed {
         let _ = writeln!(o, "  assumed: {a}");
+    }
+    for w in &s.warnings {
+        let _ = writeln!(o, "  warning: {w}");
     }
     let _ = writeln!(
         o,

@@ -230,6 +230,8 @@ pub struct BridgeScenario {
     pub start: BridgeState,
     /// Defaults the file left to the simulator.
     pub assumed: Vec<String>,
+    /// Settings accepted that are probably not what was meant, each naming its key.
+    pub warnings: Vec<String>,
     spans: HashMap<String, std::ops::Range<usize>>,
     source: String,
 }
@@ -428,6 +430,11 @@ impl BridgeScenario {
 
         let c = &raw.control;
         let period = cx.required("control.period", &c.period, Unit::Second)?;
+        cx.check(
+            "control.period",
+            period > 0.0 && period <= 1.0,
+            "must be above 0 s and at most 1 s",
+        )?;
         let resolution = cx
             .count("control.duty_resolution", &c.duty_resolution, 1..65_536)?
             .unwrap_or_else(|| {
@@ -525,6 +532,8 @@ impl BridgeScenario {
         if let Some(b) = bus {
             params = params.with_bus(BusParams::new(b.capacitance as f32, b.sink_current as f32));
         }
+        let mut warnings = crate::scenario::late_steps(drive.iter().map(|d| d.at), duration);
+        warnings.extend(crate::scenario::full_scale_below_trip(full_scale, trip));
         let scenario = Self {
             file: path.to_path_buf(),
             name: raw.name.clone().unwrap_or_else(|| {
@@ -554,6 +563,7 @@ impl BridgeScenario {
             reading_offset: 0.0,
             start: BridgeState::default(),
             assumed,
+            warnings,
             spans: cx.spans,
             source: text.to_string(),
         };
@@ -578,7 +588,7 @@ impl BridgeScenario {
             text: &self.source,
             spans: self.spans.clone(),
         };
-        cx.error(&key, None, format!("refused by the library: {e}"))
+        cx.error(&key, None, crate::scenario::library_words(e))
     }
 
     /// Requested signed duty (−1 ..= 1) in control period `k`.

@@ -1,4 +1,5 @@
-//! The JSON report. Keys kept stable for scripts: `verdict`, `peak_current_a`,
+//! The JSON report, the same frame for both topologies (see [`REPORT_SCHEMA`]). Keys kept
+//! stable for scripts: `schema`, `scenario {name, file, topology}`, `verdict`, `peak_current_a`,
 //! `peak_drain_voltage_v`, `turn_offs[] {t_s, current_a, decay_time_s, clamp_energy_j,
 //! peak_drain_voltage_v}`, `events[] {t_s, condition, detail}`, `estimate {max_abs_error_a,
 //! rms_error_a}`; everything else is additional.
@@ -7,10 +8,20 @@ use crate::cosim::Run;
 use crate::scenario::Scenario;
 use serde_json::{Value, json};
 
+/// The version of the JSON reports' layout (run, sweep and fault reports, both topologies):
+/// raised when a key is renamed or removed, not when one is added.
+pub const REPORT_SCHEMA: u32 = 1;
+
+/// The `scenario` object every JSON report starts with.
+pub fn scenario(name: &str, file: &std::path::Path, topology: &str) -> Value {
+    json!({ "name": name, "file": file.display().to_string(), "topology": topology })
+}
+
 /// The report as a JSON value.
 pub fn report(s: &Scenario, r: &Run) -> Value {
     json!({
-        "scenario": { "name": s.name, "file": s.file.display().to_string() },
+        "schema": REPORT_SCHEMA,
+        "scenario": scenario(&s.name, &s.file, "low-side"),
         "verdict": r.verdict().word(),
         "findings": r.findings,
         "peak_current_a": r.peak_current_a,
@@ -29,5 +40,6 @@ pub fn report(s: &Scenario, r: &Run) -> Value {
         "missed_ticks": r.missed_ticks,
         "late_ticks": r.late_ticks,
         "assumed": s.assumed,
+        "warnings": s.warnings,
     })
 }

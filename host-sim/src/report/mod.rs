@@ -166,6 +166,9 @@ fn heading(s: &Scenario, r: &Run) -> String {
     for a in &s.assumed {
         let _ = writeln!(o, "  assumed: {a}");
     }
+    for w in &s.warnings {
+        let _ = writeln!(o, "  warning: {w}");
+    }
     if !s.overridden.is_empty() {
         let names: Vec<String> = s
             .overridden
