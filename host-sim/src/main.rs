@@ -99,6 +99,20 @@ enum Command {
         #[arg(long, value_name = "PATH")]
         json: Option<PathBuf>,
     },
+    /// Write a complete, commented scenario to start from (low side unless --bridge).
+    #[command(
+        after_help = "Examples:\n  coilward-sim new my-valve.toml\n  coilward-sim new --bridge my-motor.toml\n  coilward-sim new > first.toml\n\nAn existing file is never overwritten (exit status 2)."
+    )]
+    New {
+        /// A full-bridge scenario (a motor driven both ways) instead of a low-side one.
+        #[arg(long, conflicts_with = "low_side")]
+        bridge: bool,
+        /// A low-side scenario (the default): one switch and a clamp path.
+        #[arg(long)]
+        low_side: bool,
+        /// Where to write it (standard output without one).
+        file: Option<PathBuf>,
+    },
     /// Fit a coil's inductance and resistance to a captured current trace (CSV).
     #[command(
         after_help = "Examples:\n  coilward-sim fit examples/captures/valve-pull-in.csv --supply \"24 V\" --on-resistance \"0.1 Ω\"\n  coilward-sim fit scope.csv --supply \"12 V\" --column t=Time,i=CH2 --units t=s,i=V --shunt \"0.1 Ω\" --svg fit.svg\n\nThe capture must start before the switch-on (or switch-off) edge. Exit status: 0 a trustworthy\nfit, 1 the capture cannot give one (the message says why), 2 bad input."
@@ -809,6 +823,49 @@ fn fmt_param(key: &str, v: f64) -> String {
     }
 }
 
+/// The scenario `new` writes.
+const LOW_SIDE_TEMPLATE: &str = include_str!("../templates/low-side.toml");
+/// The scenario `new --bridge` writes.
+const BRIDGE_TEMPLATE: &str = include_str!("../templates/full-bridge.toml");
+
+fn new_cmd(bridge: bool, file: Option<&Path>) -> Result<ExitCode, ExitCode> {
+    let text = if bridge {
+        BRIDGE_TEMPLATE
+    } else {
+        LOW_SIDE_TEMPLATE
+    };
+    let Some(p) = file else {
+        say_part!("{text}");
+        return Ok(ExitCode::SUCCESS);
+    };
+    let written = std::fs::OpenOptions::new()
+        .write(true)
+        .create_new(true)
+        .open(p)
+        .and_then(|mut f| std::io::Write::write_all(&mut f, text.as_bytes()));
+    match written {
+        Ok(()) => {
+            say!(
+                "wrote {}; next: coilward-sim check {}",
+                p.display(),
+                p.display()
+            );
+            Ok(ExitCode::SUCCESS)
+        }
+        Err(e) if e.kind() == std::io::ErrorKind::AlreadyExists => {
+            eprintln!(
+                "error: {}: already exists; choose another name",
+                p.display()
+            );
+            Err(ExitCode::from(2))
+        }
+        Err(e) => {
+            eprintln!("error: {}: cannot write the scenario ({e})", p.display());
+            Err(ExitCode::from(2))
+        }
+    }
+}
+
 fn main() -> ExitCode {
     let cli = Cli::parse();
     let r = match &cli.command {
@@ -846,6 +903,7 @@ fn main() -> ExitCode {
             json,
         } => sweep_cmd(file, *samples, *seed, shard.as_deref(), json.as_deref()),
         Command::Faults { file, json } => faults_cmd(file, json.as_deref()),
+        Command::New { bridge, file, .. } => new_cmd(*bridge, file.as_deref()),
         Command::Fit {
             file,
             supply,

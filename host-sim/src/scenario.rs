@@ -827,7 +827,9 @@ impl Cx<'_> {
             let at = e.span().map(|s| self.position(s.start));
             let mut message = plain_words(e.message().trim());
             let line = at.and_then(|(l, _)| self.text.lines().nth(l - 1));
-            let key = at.and_then(|(l, _)| key_at_line(self.text, l));
+            let key = at
+                .filter(|_| !message.starts_with("missing field"))
+                .and_then(|(l, _)| key_at_line(self.text, l));
             if let (Some(line), None) = (line, &key) {
                 message.push_str(&format!(" (in `{}`)", line.trim()));
             }
@@ -837,6 +839,36 @@ impl Cx<'_> {
                 key,
                 message,
             }
+        })
+    }
+
+    /// Every section of `required` the file leaves out, reported at once (the TOML reader would
+    /// name only the first). A file that is not TOML passes here: the full parse says why.
+    pub(crate) fn sections_present(&self, required: &[&str]) -> Result<(), ScenarioError> {
+        let Ok(table) = self.text.parse::<toml::Table>() else {
+            return Ok(());
+        };
+        let missing: Vec<String> = required
+            .iter()
+            .filter(|k| !table.contains_key(**k))
+            .map(|k| format!("[{k}]"))
+            .collect();
+        if missing.is_empty() {
+            return Ok(());
+        }
+        Err(ScenarioError {
+            file: self.file.to_path_buf(),
+            at: None,
+            key: None,
+            message: format!(
+                "missing {} {}; `coilward-sim new` writes a complete scenario to start from",
+                if missing.len() == 1 {
+                    "section"
+                } else {
+                    "sections"
+                },
+                missing.join(", ")
+            ),
         })
     }
 
@@ -1073,6 +1105,9 @@ impl Scenario {
             spans: HashMap::new(),
         };
         cx.topology_known()?;
+        cx.sections_present(&[
+            "supply", "coil", "switch", "clamp", "control", "guard", "run",
+        ])?;
         let raw: Raw = cx.document()?;
         let s = &raw.supply;
         let voltage = cx.required("supply.voltage", &s.voltage, Unit::Volt)?;

@@ -438,3 +438,35 @@ fn each_bad_input_blames_the_key_the_user_must_change() {
         }
     }
 }
+
+#[test]
+fn new_writes_scenarios_that_run_at_the_first_try() {
+    // The two templates check and run as written (the low side passes; the bridge is limited:
+    // the guard holds the reversal while the rotor still turns), and an existing file is never
+    // overwritten.
+    let dir = tempfile::tempdir().unwrap();
+    for (flag, status) in [("--low-side", 0), ("--bridge", 3)] {
+        let file = dir.path().join(format!("{flag}.toml"));
+        let out = sim().args(["new", flag]).arg(&file).output().unwrap();
+        assert_eq!(out.status.code(), Some(0), "{flag}");
+        let check = sim().arg("check").arg(&file).output().unwrap();
+        assert_eq!(
+            check.status.code(),
+            Some(0),
+            "{flag}: {}",
+            String::from_utf8_lossy(&check.stderr)
+        );
+        let run = sim().arg("run").arg(&file).output().unwrap();
+        assert_eq!(
+            run.status.code(),
+            Some(status),
+            "{flag}: {}",
+            String::from_utf8_lossy(&run.stdout)
+        );
+        let again = sim().args(["new", flag]).arg(&file).output().unwrap();
+        assert_eq!(again.status.code(), Some(2));
+        assert!(String::from_utf8_lossy(&again.stderr).contains("already exists"));
+    }
+    let printed = sim().arg("new").output().unwrap();
+    assert!(String::from_utf8_lossy(&printed.stdout).contains("[[drive]]"));
+}

@@ -319,6 +319,16 @@ impl BridgeScenario {
             text,
             spans: HashMap::new(),
         };
+        cx.sections_present(&[
+            "supply",
+            "coil",
+            "switch",
+            "body_diode",
+            "decay",
+            "control",
+            "guard",
+            "run",
+        ])?;
         let raw: Raw = cx.document()?;
         let topology = Some(raw.topology.clone());
         cx.word("topology", &topology, &["full-bridge"])?;
