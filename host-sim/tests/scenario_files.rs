@@ -470,3 +470,12 @@ fn new_writes_scenarios_that_run_at_the_first_try() {
     let printed = sim().arg("new").output().unwrap();
     assert!(String::from_utf8_lossy(&printed.stdout).contains("[[drive]]"));
 }
+
+#[test]
+fn every_missing_section_is_named_at_once() {
+    let e = refuse("name = \"first try\"\n[supply]\nvoltage = \"24 V\"\n").to_string();
+    for section in ["[coil]", "[switch]", "[clamp]", "[control]", "[guard]", "[run]"] {
+        assert!(e.contains(section), "{section} in {e}");
+    }
+    assert!(!e.contains("[supply]") && e.contains("coilward-sim new"), "{e}");
+}
