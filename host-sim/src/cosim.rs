@@ -49,6 +49,13 @@ pub struct Row {
     pub supply_read_v: f64,
     /// Energy taken by the clamp path and the switch in avalanche in the period, J.
     pub clamp_energy_j: f64,
+    /// The guard's bound of the current at the start of the period (at or above the true current
+    /// for every circuit inside the declared tolerance), A.
+    pub bound_a: f64,
+    /// The guard was called at the start of this period (always, unless it is called on
+    /// events; between calls the guard's figures are those of its last call).
+    #[serde(skip)]
+    pub called: bool,
 }
 
 /// One turn-off: a drive step to duty 0, or the guard forcing the output off.
@@ -503,14 +510,20 @@ fn row(
     (on, off): (&Tally, &Tally),
     pulse: f64,
 ) -> Row {
-    let (est, est_peak, conditions) = match o {
+    let (est, est_peak, conditions, bound) = match o {
         Some(o) => (
             f64::from(model.amps(o.estimate.end)),
             f64::from(model.amps(o.predicted_peak)),
             o.active,
+            f64::from(model.amps(o.bound)),
         ),
-        None => last.map_or((0.0, 0.0, Conditions::NONE), |r| {
-            (r.estimated_current_a, r.estimated_peak_a, r.conditions)
+        None => last.map_or((0.0, 0.0, Conditions::NONE, 0.0), |r| {
+            (
+                r.estimated_current_a,
+                r.estimated_peak_a,
+                r.conditions,
+                r.bound_a,
+            )
         }),
     };
     Row {
@@ -527,6 +540,8 @@ fn row(
         conditions,
         supply_read_v: read,
         clamp_energy_j: pulse,
+        bound_a: bound,
+        called: o.is_some(),
     }
 }
 

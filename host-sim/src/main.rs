@@ -46,11 +46,17 @@ struct Cli {
 enum Command {
     /// Simulate the scenario and print a summary; optionally write JSON, CSV and SVG reports.
     #[command(
-        after_help = "Examples:\n  coilward-sim run valve.toml\n  coilward-sim run valve.toml --json out.json --csv out.csv --svg out.svg"
+        after_help = "Examples:\n  coilward-sim run valve.toml\n  coilward-sim run valve.toml --json out.json --csv out.csv --svg out.svg\n  coilward-sim run valve.toml --svg pull-in.svg --from \"0 ms\" --to \"20 ms\""
     )]
     Run {
         /// Scenario file (TOML).
         file: PathBuf,
+        /// The plot starts here (a time with its unit, e.g. "40 ms"; with --svg).
+        #[arg(long, value_name = "TIME", requires = "svg")]
+        from: Option<String>,
+        /// The plot ends here (a time with its unit; with --svg).
+        #[arg(long, value_name = "TIME", requires = "svg")]
+        to: Option<String>,
         /// Write the JSON report here.
         #[arg(long, value_name = "PATH")]
         json: Option<PathBuf>,
@@ -160,6 +166,28 @@ struct Outputs<'a> {
     json: Option<&'a Path>,
     csv: Option<&'a Path>,
     svg: Option<&'a Path>,
+    /// The plot's window, s (`--from`, `--to`).
+    window: Option<(f64, f64)>,
+}
+
+/// The plot's window from `--from` and `--to` (either may be left out).
+fn window(from: Option<&str>, to: Option<&str>) -> Result<Option<(f64, f64)>, ExitCode> {
+    if from.is_none() && to.is_none() {
+        return Ok(None);
+    }
+    let time = |text: Option<&str>, option: &str, default: f64| match text {
+        None => Ok(default),
+        Some(t) => quantity(t, coilward_sim::units::Unit::Second, option),
+    };
+    let a = time(from, "--from", 0.0)?;
+    let b = time(to, "--to", f64::INFINITY)?;
+    if a < 0.0 || b <= a {
+        eprintln!(
+            "error: --from and --to: the window must start at or after 0 s and end after it starts"
+        );
+        return Err(ExitCode::from(2));
+    }
+    Ok(Some((a, b)))
 }
 
 impl Outputs<'_> {
@@ -233,7 +261,7 @@ fn run_bridge(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
     out.write(
         || bridge::report::json(&s, &r),
         |w| bridge::report::csv(&r.rows, w),
-        |p| bridge::report::svg(&s, &r, p),
+        |p| bridge::report::svg_window(&s, &r, p, out.window),
     )?;
     Ok(verdict(r.verdict()))
 }
@@ -412,7 +440,7 @@ fn run(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
     out.write(
         || report::json::report(&s, &r),
         |w| report::csv::write(&r.rows, w),
-        |p| report::svg::write(&s, &r, p),
+        |p| report::svg::write_window(&s, &r, p, out.window),
     )?;
     Ok(verdict(r.verdict()))
 }
@@ -874,18 +902,21 @@ fn main() -> ExitCode {
             json,
             csv,
             svg,
-        } => {
+            from,
+            to,
+        } => window(from.as_deref(), to.as_deref()).and_then(|window| {
             let out = Outputs {
                 json: json.as_deref(),
                 csv: csv.as_deref(),
                 svg: svg.as_deref(),
+                window,
             };
             if is_bridge(file) {
                 run_bridge(file, &out)
             } else {
                 run(file, &out)
             }
-        }
+        }),
         Command::Check { file } if is_bridge(file) => check_bridge(file),
         Command::Check { file } => check(file),
         Command::Sweep { file, .. } if is_bridge(file) => {

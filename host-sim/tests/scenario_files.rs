@@ -474,8 +474,82 @@ fn new_writes_scenarios_that_run_at_the_first_try() {
 #[test]
 fn every_missing_section_is_named_at_once() {
     let e = refuse("name = \"first try\"\n[supply]\nvoltage = \"24 V\"\n").to_string();
-    for section in ["[coil]", "[switch]", "[clamp]", "[control]", "[guard]", "[run]"] {
+    for section in [
+        "[coil]",
+        "[switch]",
+        "[clamp]",
+        "[control]",
+        "[guard]",
+        "[run]",
+    ] {
         assert!(e.contains(section), "{section} in {e}");
     }
-    assert!(!e.contains("[supply]") && e.contains("coilward-sim new"), "{e}");
+    assert!(
+        !e.contains("[supply]") && e.contains("coilward-sim new"),
+        "{e}"
+    );
+}
+
+#[test]
+fn plots_show_what_the_guard_did() {
+    // The panels and levels a designer reads the run by (each quantity on its own axis), the
+    // time axis in the unit that fits a zoomed window, and the bridge's holds and speed panel.
+    let dir = tempfile::tempdir().unwrap();
+    let low = dir.path().join("low.svg");
+    let out = sim()
+        .arg("run")
+        .arg(demo("valve-at-ceiling.toml"))
+        .arg("--svg")
+        .arg(&low)
+        .args(["--from", "0.5 ms", "--to", "1.5 ms"])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(3));
+    let svg = std::fs::read_to_string(&low).unwrap();
+    for words in [
+        "time (µs)",
+        "coil current (A)",
+        "s error (",
+        "s margin (",
+        "ceiling applied",
+        "release 50.0 mA",
+        "switch node (V)",
+        "duty (%)",
+    ] {
+        assert!(
+            svg.contains(words) || svg.contains(&words.replace("&apos;", "'")),
+            "{words}"
+        );
+    }
+    let bridge = dir.path().join("bridge.svg");
+    let out = sim()
+        .arg("run")
+        .arg(demo("reversing-gear-motor.toml"))
+        .arg("--svg")
+        .arg(&bridge)
+        .output()
+        .unwrap();
+    assert!(out.status.code().is_some_and(|c| c != 2));
+    let svg = std::fs::read_to_string(&bridge).unwrap();
+    for words in [
+        "time (ms)",
+        "speed (rad/s)",
+        "reversal-hold",
+        "held ",
+        "± ceiling",
+        "bus (V)",
+        "supply max",
+    ] {
+        assert!(svg.contains(words), "{words}");
+    }
+    // A window with no period in it is bad input, said before the plot.
+    let out = sim()
+        .arg("run")
+        .arg(demo("valve-at-ceiling.toml"))
+        .arg("--svg")
+        .arg(dir.path().join("none.svg"))
+        .args(["--from", "2 ms", "--to", "1 ms"])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
 }

@@ -38,6 +38,8 @@ pub struct BridgeRow {
     pub bus_peak_v: f64,
     /// The guard recirculated in the off part (supply-pump).
     pub recirculated: bool,
+    /// The guard's bound of the current's magnitude at the start of the period, A.
+    pub bound_a: f64,
     /// Active conditions.
     #[serde(skip)]
     pub conditions: Conditions,
@@ -445,6 +447,7 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
                 speed_rad_s: plant.state.speed,
                 bus_peak_v: bus_v,
                 recirculated: out.decay == AppliedDecay::Slow,
+                bound_a: f64::from(m.amps(out.bound)),
                 conditions: out.active,
             });
         }

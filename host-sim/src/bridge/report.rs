@@ -8,6 +8,7 @@
 
 use crate::bridge::cosim::{BridgeRow, BridgeRun};
 use crate::bridge::scenario::BridgeScenario;
+use crate::report::plot::{self, Key, Pick, TimeAxis};
 use crate::report::si;
 use coilward::Condition;
 use plotters::prelude::*;
@@ -17,7 +18,7 @@ use std::io::Write;
 use std::path::Path;
 
 /// The CSV columns, in order (a contract: columns may be added, none renamed or removed).
-pub const COLUMNS: [&str; 11] = [
+pub const COLUMNS: [&str; 12] = [
     "t_s",
     "duty_requested",
     "duty_applied",
@@ -29,6 +30,7 @@ pub const COLUMNS: [&str; 11] = [
     "bus_peak_v",
     "recirculated",
     "conditions",
+    "bound_a",
 ];
 
 /// Writes the rows as CSV.
@@ -52,6 +54,7 @@ pub fn csv(rows: &[BridgeRow], out: impl Write) -> Result<(), ::csv::Error> {
             r.bus_peak_v.to_string(),
             r.recirculated.to_string(),
             names.join(" "),
+            r.bound_a.to_string(),
         ])?;
     }
     w.flush()?;
@@ -175,23 +178,10 @@ const LIMIT: RGBColor = RGBColor(170, 30, 30);
 const RELEASE: RGBColor = RGBColor(40, 120, 70);
 const HOLD: RGBColor = RGBColor(255, 214, 102);
 const REQUESTED: RGBColor = RGBColor(140, 140, 140);
+const BOUND: RGBColor = RGBColor(130, 50, 160);
+const CEILING: RGBColor = RGBColor(235, 110, 30);
 
-/// The `reversal-hold` intervals, in ms.
-fn holds(rows: &[BridgeRow], period: f64) -> Vec<(f64, f64)> {
-    let mut out: Vec<(f64, f64)> = Vec::new();
-    for r in rows {
-        if r.conditions.contains(Condition::ReversalHold) {
-            let (a, b) = (r.t_s * 1e3, (r.t_s + period) * 1e3);
-            match out.last_mut() {
-                Some(last) if (last.1 - a).abs() < 1e-9 => last.1 = b,
-                _ => out.push((a, b)),
-            }
-        }
-    }
-    out
-}
-
-/// Writes the plot.
+/// Writes the plot of the whole run.
 ///
 /// # Errors
 /// No rows, or the drawing's error.
@@ -200,30 +190,40 @@ pub fn svg(
     r: &BridgeRun,
     path: &Path,
 ) -> Result<(), Box<dyn std::error::Error>> {
-    let rows = &r.rows;
+    svg_window(s, r, path, None)
+}
+
+fn at(x: &BridgeRow) -> f64 {
+    x.t_s
+}
+
+/// Writes the plot of the window `from ..= to` (s; the whole run without one): the current
+/// with its levels and the interlock's holds shaded (each with its length), the estimate's error
+/// and the bound's margin, the signed duty, the rotor's speed, and the bus against its maximum
+/// when there is one; each quantity on its own axis, each legend beside its panel.
+///
+/// # Errors
+/// No rows in the window, or the drawing's error.
+pub fn svg_window(
+    s: &BridgeScenario,
+    r: &BridgeRun,
+    path: &Path,
+    window: Option<(f64, f64)>,
+) -> Result<(), Box<dyn std::error::Error>> {
+    let end = r.rows.last().map_or(0.0, |x| x.t_s) + s.period;
+    let (from, to) = window.unwrap_or((0.0, end));
+    let t = TimeAxis::new(from, to.min(end));
+    let rows: Vec<BridgeRow> = r
+        .rows
+        .iter()
+        .filter(|x| x.t_s + s.period > t.from_s && x.t_s <= t.to_s)
+        .copied()
+        .collect();
     if rows.is_empty() {
-        return Err("no rows to plot".into());
+        return Err("no control period in the window to plot".into());
     }
-    let ms = |t: f64| t * 1e3;
-    let t_end = ms(rows.last().map_or(0.0, |x| x.t_s) + s.period);
-    let bucket = rows.len().div_ceil(2400).max(1);
-    let pick = |f: &dyn Fn(&BridgeRow) -> f64| -> Vec<(f64, f64)> {
-        rows.chunks(bucket)
-            .map(|c| (ms(c[0].t_s), f(&c[0])))
-            .collect()
-    };
-    let hi = |f: &dyn Fn(&BridgeRow) -> f64| -> Vec<(f64, f64)> {
-        rows.chunks(bucket)
-            .map(|c| (ms(c[0].t_s), c.iter().map(f).fold(f64::MIN, f64::max)))
-            .collect()
-    };
-    let lo = |f: &dyn Fn(&BridgeRow) -> f64| -> Vec<(f64, f64)> {
-        rows.chunks(bucket)
-            .map(|c| (ms(c[0].t_s), c.iter().map(f).fold(f64::MAX, f64::min)))
-            .collect()
-    };
-    let held = holds(rows, s.period);
-    let root = SVGBackend::new(path, (1200, 960)).into_drawing_area();
+    let n_panels = if s.circuit.bus.is_some() { 6 } else { 5 };
+    let root = SVGBackend::new(path, (plot::WIDTH, 40 + 220 * n_panels)).into_drawing_area();
     root.fill(&WHITE)?;
     let (title, body) = root.split_vertically(40);
     title.draw(&Text::new(
@@ -236,170 +236,212 @@ pub fn svg(
         (20, 12),
         ("sans-serif", 20).into_font(),
     ))?;
-    let panels = body.split_evenly((3, 1));
+    let panels = body.split_evenly((n_panels as usize, 1));
+    let held = plot::spans(&rows, s.period, at, |x| {
+        x.conditions.contains(Condition::ReversalHold)
+    });
+    current_panel(&panels[0], s, &rows, &t, &held)?;
+    error_panels(&panels[1], &panels[2], &rows, &t)?;
+    duty_panel(&panels[3], &rows, &t, &held)?;
+    speed_panel(&panels[4], &rows, &t)?;
+    if s.circuit.bus.is_some() {
+        bus_panel(&panels[5], s, &rows, &t)?;
+    }
+    root.present()?;
+    Ok(())
+}
 
-    // Current.
+/// The current with its levels (both signs) and the holds.
+fn current_panel(
+    area: &plot::Area,
+    s: &BridgeScenario,
+    rows: &[BridgeRow],
+    t: &TimeAxis,
+    held: &[(f64, f64)],
+) -> Result<(), Box<dyn std::error::Error>> {
     let trip = f64::from(s.limits.trip_current);
     let ceiling = f64::from(s.limits.current_ceiling);
     let release = f64::from(s.limits.release_current);
-    let i_lim = r.peak_current_a.max(trip) * 1.15;
-    let mut c = ChartBuilder::on(&panels[0])
-        .margin(12)
-        .x_label_area_size(36)
-        .y_label_area_size(64)
-        .build_cartesian_2d(0.0..t_end, -i_lim..i_lim)?;
-    c.configure_mesh()
-        .y_desc("current (A)")
-        .x_desc("time (ms)")
-        .light_line_style(WHITE.mix(0.0))
-        .draw()?;
-    let shade = |c: &mut ChartContext<_, Cartesian2d<_, _>>, lo_y: f64, hi_y: f64| {
-        c.draw_series(
-            held.iter()
-                .map(|&(a, b)| Rectangle::new([(a, lo_y), (b, hi_y)], HOLD.mix(0.45).filled())),
-        )
-        .map(|_| ())
-    };
-    shade(&mut c, -i_lim, i_lim)?;
+    let top = rows
+        .iter()
+        .map(|x| {
+            x.peak_current_a
+                .abs()
+                .max(x.least_current_a.abs())
+                .max(x.bound_a)
+        })
+        .fold(trip, f64::max)
+        * 1.1;
+    let y = -top..top;
+    let legend = [
+        (Key::Line(TRUE, 2), "true, at each period start".to_string()),
+        (Key::Line(SPAN, 1), "true, extremes in the period".into()),
+        (Key::Dashed(ESTIMATE), "guard's estimate".into()),
+        (
+            Key::Line(BOUND, 1),
+            "± guard's bound (its tolerance)".into(),
+        ),
+        (Key::Dashed(LIMIT), format!("± trip {}", si(trip, "A", 3))),
+        (
+            Key::Dashed(CEILING),
+            format!("± ceiling {}", si(ceiling, "A", 3)),
+        ),
+        (
+            Key::Dashed(RELEASE),
+            format!("± release {}", si(release, "A", 3)),
+        ),
+        (Key::Band(HOLD), "reversal-hold (output held off)".into()),
+    ];
+    let mut c = plot::panel(area, t, y.clone(), "coil current (A)", &legend)?;
+    plot::shade(&mut c, t, held, y.clone(), HOLD)?;
     // Each hold's length, written beside it.
     c.draw_series(held.iter().map(|&(a, b)| {
         Text::new(
-            format!("held {}", si((b - a) * 1e-3, "s", 3)),
-            (b + t_end * 0.004, i_lim * 0.78),
+            format!("held {}", si(b - a, "s", 3)),
+            (t.x(b), top * 0.8),
             ("sans-serif", 12).into_font().color(&RGBColor(150, 100, 0)),
         )
     }))?;
-    c.draw_series(std::iter::once(Rectangle::new(
-        [(0.0, 0.0), (0.0, 0.0)],
-        HOLD.mix(0.45).filled(),
-    )))?
-    .label("reversal-hold (interlock holding the output off)")
-    .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], HOLD.mix(0.45).filled()));
+    for (level, colour) in [(trip, LIMIT), (ceiling, CEILING), (release, RELEASE)] {
+        plot::level(&mut c, t, level, colour)?;
+        plot::level(&mut c, t, -level, colour)?;
+    }
     c.draw_series(LineSeries::new(
-        hi(&|x| x.peak_current_a),
-        SPAN.stroke_width(1),
-    ))?
-    .label("true, period extremes")
-    .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], SPAN));
-    c.draw_series(LineSeries::new(
-        lo(&|x| x.least_current_a),
+        plot::series(rows, t, at, |x| x.peak_current_a, Pick::High),
         SPAN.stroke_width(1),
     ))?;
     c.draw_series(LineSeries::new(
-        pick(&|x| x.current_a),
+        plot::series(rows, t, at, |x| x.least_current_a, Pick::Low),
+        SPAN.stroke_width(1),
+    ))?;
+    for sign in [1.0, -1.0] {
+        c.draw_series(LineSeries::new(
+            plot::series(rows, t, at, |x| sign * x.bound_a, Pick::First),
+            BOUND.stroke_width(1),
+        ))?;
+    }
+    c.draw_series(LineSeries::new(
+        plot::series(rows, t, at, |x| x.current_a, Pick::First),
         TRUE.stroke_width(2),
-    ))?
-    .label("true, period start")
-    .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], TRUE));
+    ))?;
     c.draw_series(DashedLineSeries::new(
-        pick(&|x| x.estimated_current_a),
+        plot::series(rows, t, at, |x| x.estimated_current_a, Pick::First),
         6,
         4,
         ESTIMATE.stroke_width(2),
-    ))?
-    .label("guard's estimate")
-    .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], ESTIMATE));
-    for (level, colour, name) in [
-        (trip, LIMIT, "± trip"),
-        (ceiling, RGBColor(210, 120, 120), "± ceiling"),
-        (release, RELEASE, "± release"),
-    ] {
-        for sign in [1.0, -1.0] {
-            c.draw_series(DashedLineSeries::new(
-                [(0.0, sign * level), (t_end, sign * level)],
-                3,
-                3,
-                colour.stroke_width(1),
-            ))?;
-        }
-        c.draw_series(std::iter::once(Text::new(
-            name,
-            (t_end * 0.005, level),
-            ("sans-serif", 12).into_font().color(&colour),
-        )))?;
-    }
-    c.configure_series_labels()
-        .background_style(WHITE.mix(0.85))
-        .border_style(BLACK.mix(0.3))
-        .position(SeriesLabelPosition::LowerRight)
-        .draw()?;
+    ))?;
+    Ok(())
+}
 
-    // Duty.
-    let mut c = ChartBuilder::on(&panels[1])
-        .margin(12)
-        .x_label_area_size(36)
-        .y_label_area_size(64)
-        .build_cartesian_2d(0.0..t_end, -110.0..110.0)?;
-    c.configure_mesh()
-        .y_desc("duty (%), + is A to B")
-        .x_desc("time (ms)")
-        .light_line_style(WHITE.mix(0.0))
-        .draw()?;
-    shade(&mut c, -110.0, 110.0)?;
+/// The estimate's error, and the bound's margin over the true magnitude, each in the unit that
+/// fits.
+fn error_panels(
+    error: &plot::Area,
+    margin: &plot::Area,
+    rows: &[BridgeRow],
+    t: &TimeAxis,
+) -> Result<(), Box<dyn std::error::Error>> {
+    let largest =
+        |f: &dyn Fn(&BridgeRow) -> f64| rows.iter().map(|x| f(x).abs()).fold(0.0, f64::max);
+    let (ke, ue) = plot::current_unit(largest(&|x| x.estimated_current_a - x.current_a));
+    let (km, um) = plot::current_unit(largest(&|x| x.bound_a - x.current_a.abs()));
+    let err = |x: &BridgeRow| (x.estimated_current_a - x.current_a) * ke;
+    let gap = |x: &BridgeRow| (x.bound_a - x.current_a.abs()) * km;
+    let zero = (Key::Dashed(REQUESTED), "zero".to_string());
+    let legend = [
+        (Key::Line(ESTIMATE, 2), "estimate − true".to_string()),
+        zero.clone(),
+    ];
+    let y = plot::span_of(rows.iter().map(err), &[0.0]);
+    let mut c = plot::panel(error, t, y, &format!("estimate's error ({ue})"), &legend)?;
+    plot::level(&mut c, t, 0.0, REQUESTED)?;
     c.draw_series(LineSeries::new(
-        pick(&|x| x.duty_requested * 100.0),
+        plot::series(rows, t, at, err, Pick::First),
+        ESTIMATE.stroke_width(2),
+    ))?;
+    let legend = [
+        (
+            Key::Line(BOUND, 1),
+            "bound − |true| (least per point)".to_string(),
+        ),
+        zero,
+    ];
+    let y = plot::span_of(rows.iter().map(gap), &[0.0]);
+    let mut c = plot::panel(margin, t, y, &format!("bound's margin ({um})"), &legend)?;
+    plot::level(&mut c, t, 0.0, REQUESTED)?;
+    c.draw_series(LineSeries::new(
+        plot::series(rows, t, at, gap, Pick::Low),
+        BOUND.stroke_width(1),
+    ))?;
+    Ok(())
+}
+
+/// The signed duty, requested and applied, with the holds.
+fn duty_panel(
+    area: &plot::Area,
+    rows: &[BridgeRow],
+    t: &TimeAxis,
+    held: &[(f64, f64)],
+) -> Result<(), Box<dyn std::error::Error>> {
+    let legend = [
+        (Key::Line(REQUESTED, 2), "requested".to_string()),
+        (Key::Line(TRUE, 1), "applied by the guard".into()),
+        (Key::Band(HOLD), "reversal-hold".into()),
+    ];
+    let y = -105.0..105.0;
+    let mut c = plot::panel(area, t, y.clone(), "duty (%), + is A to B", &legend)?;
+    plot::shade(&mut c, t, held, y, HOLD)?;
+    c.draw_series(LineSeries::new(
+        plot::series(rows, t, at, |x| x.duty_requested * 100.0, Pick::First),
         REQUESTED.stroke_width(2),
-    ))?
-    .label("requested")
-    .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], REQUESTED));
+    ))?;
     c.draw_series(LineSeries::new(
-        pick(&|x| x.duty_applied * 100.0),
+        plot::series(rows, t, at, |x| x.duty_applied * 100.0, Pick::First),
         TRUE.stroke_width(1),
-    ))?
-    .label("applied by the guard")
-    .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], TRUE));
-    c.configure_series_labels()
-        .background_style(WHITE.mix(0.85))
-        .border_style(BLACK.mix(0.3))
-        .position(SeriesLabelPosition::LowerRight)
-        .draw()?;
+    ))?;
+    Ok(())
+}
 
-    // Speed and bus.
-    let w_max = rows.iter().map(|x| x.speed_rad_s.abs()).fold(1.0, f64::max) * 1.15;
-    let mut c = ChartBuilder::on(&panels[2])
-        .margin(12)
-        .x_label_area_size(36)
-        .y_label_area_size(64)
-        .right_y_label_area_size(64)
-        .build_cartesian_2d(0.0..t_end, -w_max..w_max)?
-        .set_secondary_coord(
-            0.0..t_end,
-            0.0..(r.peak_bus_v.max(f64::from(s.params.supply.max)) * 1.1),
-        );
-    c.configure_mesh()
-        .y_desc("speed (rad/s)")
-        .x_desc("time (ms)")
-        .light_line_style(WHITE.mix(0.0))
-        .draw()?;
+/// The rotor's speed.
+fn speed_panel(
+    area: &plot::Area,
+    rows: &[BridgeRow],
+    t: &TimeAxis,
+) -> Result<(), Box<dyn std::error::Error>> {
+    let y = plot::span_of(rows.iter().map(|x| x.speed_rad_s), &[0.0]);
+    let legend = [(Key::Line(TRUE, 2), "rotor speed".to_string())];
+    let mut c = plot::panel(area, t, y, "speed (rad/s)", &legend)?;
     c.draw_series(LineSeries::new(
-        pick(&|x| x.speed_rad_s),
+        plot::series(rows, t, at, |x| x.speed_rad_s, Pick::First),
         TRUE.stroke_width(2),
-    ))?
-    .label("rotor speed")
-    .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], TRUE));
-    if s.circuit.bus.is_some() {
-        c.configure_secondary_axes().y_desc("bus (V)").draw()?;
-        c.draw_secondary_series(LineSeries::new(
-            hi(&|x| x.bus_peak_v),
-            RELEASE.stroke_width(1),
-        ))?
-        .label("bus peak")
-        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], RELEASE));
-        let v_max = f64::from(s.params.supply.max);
-        c.draw_secondary_series(DashedLineSeries::new(
-            [(0.0, v_max), (t_end, v_max)],
-            3,
-            3,
-            LIMIT.stroke_width(1),
-        ))?
-        .label("supply max")
-        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], LIMIT));
-    }
-    c.configure_series_labels()
-        .background_style(WHITE.mix(0.85))
-        .border_style(BLACK.mix(0.3))
-        .position(SeriesLabelPosition::LowerRight)
-        .draw()?;
-    root.present()?;
+    ))?;
+    Ok(())
+}
+
+/// The bus's highest voltage in each period against the supply's maximum.
+fn bus_panel(
+    area: &plot::Area,
+    s: &BridgeScenario,
+    rows: &[BridgeRow],
+    t: &TimeAxis,
+) -> Result<(), Box<dyn std::error::Error>> {
+    let v_max = f64::from(s.params.supply.max);
+    let y = plot::span_of(rows.iter().map(|x| x.bus_peak_v), &[v_max]);
+    let legend = [
+        (
+            Key::Line(RELEASE, 1),
+            "bus, highest in each period".to_string(),
+        ),
+        (
+            Key::Dashed(LIMIT),
+            format!("supply max {}", si(v_max, "V", 3)),
+        ),
+    ];
+    let mut c = plot::panel(area, t, y, "bus (V)", &legend)?;
+    plot::level(&mut c, t, v_max, LIMIT)?;
+    c.draw_series(LineSeries::new(
+        plot::series(rows, t, at, |x| x.bus_peak_v, Pick::High),
+        RELEASE.stroke_width(1),
+    ))?;
     Ok(())
 }

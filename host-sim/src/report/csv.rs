@@ -1,13 +1,13 @@
 //! The CSV report: one row per control period, a header row, and the columns `t_s,
 //! duty_requested, duty_applied, supply_v, current_a, mean_current_a, peak_current_a,
 //! estimated_current_a, estimated_peak_a, drain_peak_v, conditions` (the active condition names
-//! separated by spaces), then `supply_read_v, clamp_energy_j`.
+//! separated by spaces), then `supply_read_v, clamp_energy_j, bound_a`.
 
 use crate::cosim::Row;
 use std::io::Write;
 
 /// The header, in column order.
-pub const COLUMNS: [&str; 13] = [
+pub const COLUMNS: [&str; 14] = [
     "t_s",
     "duty_requested",
     "duty_applied",
@@ -21,6 +21,7 @@ pub const COLUMNS: [&str; 13] = [
     "conditions",
     "supply_read_v",
     "clamp_energy_j",
+    "bound_a",
 ];
 
 /// Writes the rows.
@@ -43,6 +44,7 @@ pub fn write(rows: &[Row], out: impl Write) -> Result<(), ::csv::Error> {
             names.join(" "),
             r.supply_read_v.to_string(),
             r.clamp_energy_j.to_string(),
+            r.bound_a.to_string(),
         ])?;
     }
     w.flush()?;

@@ -178,70 +178,65 @@ pub fn svg(c: &Capture, f: &Fitted, path: &Path) -> Result<(), Box<dyn std::erro
         }
         None
     };
-    let ms = |t: f64| t * 1e3;
+    use crate::report::plot::{self, Key, TimeAxis};
+    let t = TimeAxis::new(c.t[0], c.t[c.t.len() - 1]);
     let step = c.t.len().div_ceil(3000).max(1);
     let pts: Vec<(f64, f64)> =
         c.t.iter()
             .zip(&c.i)
             .step_by(step)
-            .map(|(&t, &i)| (ms(t), i))
+            .map(|(&x, &i)| (t.x(x), i))
             .collect();
     let fitted: Vec<(f64, f64)> =
         c.t.iter()
             .step_by(step)
-            .filter_map(|&t| model(t).map(|v| (ms(t), v)))
+            .filter_map(|&x| model(x).map(|v| (t.x(x), v)))
             .collect();
     let resid: Vec<(f64, f64)> =
         c.t.iter()
             .zip(&c.i)
             .step_by(step)
-            .filter_map(|(&t, &i)| model(t).map(|v| (ms(t), i - v)))
+            .filter_map(|(&x, &i)| model(x).map(|v| (t.x(x), (i - v) * 1e3)))
             .collect();
-    let (t0, t1) = (ms(c.t[0]), ms(c.t[c.t.len() - 1]));
-    let (lo, hi) =
-        c.i.iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
-                (a.min(v), b.max(v))
-            });
-    let pad = 0.05 * (hi - lo).max(1e-12);
-    let r_max = resid.iter().map(|p| p.1.abs()).fold(1e-12, f64::max) * 1.2;
-    let root = SVGBackend::new(path, (1100, 760)).into_drawing_area();
-    root.fill(&WHITE)?;
-    let (top, bottom) = root.split_vertically(520);
-    let mut ch = ChartBuilder::on(&top)
-        .caption(format!("capture {}", c.file.display()), ("sans-serif", 18))
-        .margin(12)
-        .x_label_area_size(40)
-        .y_label_area_size(64)
-        .build_cartesian_2d(t0..t1, (lo - pad)..(hi + pad))?;
-    ch.configure_mesh()
-        .x_desc("time (ms)")
-        .y_desc("current (A)")
-        .light_line_style(WHITE.mix(0.0))
-        .draw()?;
     let grey = RGBColor(120, 120, 120);
     let fit_col = RGBColor(200, 60, 20);
-    ch.draw_series(pts.iter().map(|&p| Circle::new(p, 1, grey.filled())))?
-        .label("capture")
-        .legend(move |(x, y)| Circle::new((x + 9, y), 3, grey.filled()));
-    ch.draw_series(LineSeries::new(fitted, fit_col.stroke_width(2)))?
-        .label("fit")
-        .legend(move |(x, y)| PathElement::new([(x, y), (x + 18, y)], fit_col));
-    ch.configure_series_labels()
-        .border_style(BLACK.mix(0.3))
-        .background_style(WHITE.mix(0.9))
-        .position(SeriesLabelPosition::MiddleRight)
-        .draw()?;
-    let mut rc = ChartBuilder::on(&bottom)
-        .margin(12)
-        .x_label_area_size(40)
-        .y_label_area_size(64)
-        .build_cartesian_2d(t0..t1, -r_max..r_max)?;
-    rc.configure_mesh()
-        .x_desc("time (ms)")
-        .y_desc("residual (A)")
-        .light_line_style(WHITE.mix(0.0))
-        .draw()?;
+    // The fit's figures beside the traces.
+    let mut legend = vec![
+        (Key::Dot(grey), "capture".to_string()),
+        (Key::Line(fit_col, 2), "fit".into()),
+    ];
+    if let Some(r) = &f.rise {
+        legend.push((Key::Note, format!("L = {}", pm(r.inductance, "H"))));
+        legend.push((Key::Note, format!("R = {}", pm(r.resistance, "Ω"))));
+        legend.push((Key::Note, format!("τ = {}", pm(r.tau, "s"))));
+        legend.push((
+            Key::Note,
+            format!("rise residual {:.2} mA rms", r.residual * 1e3),
+        ));
+    }
+    if let Some(d) = &f.fall {
+        legend.push((Key::Note, format!("τ off = {}", pm(d.tau, "s"))));
+        legend.push((
+            Key::Note,
+            format!("fall residual {:.2} mA rms", d.residual * 1e3),
+        ));
+    }
+    let root = SVGBackend::new(path, (plot::WIDTH, 800)).into_drawing_area();
+    root.fill(&WHITE)?;
+    let (title, body) = root.split_vertically(40);
+    title.draw(&Text::new(
+        format!("capture {}", c.file.display()),
+        (20, 12),
+        ("sans-serif", 20).into_font(),
+    ))?;
+    let (top, bottom) = body.split_vertically(500);
+    let y = plot::span_of(c.i.iter().copied(), &[]);
+    let mut ch = plot::panel(&top, &t, y, "current (A)", &legend)?;
+    ch.draw_series(pts.iter().map(|&p| Circle::new(p, 1, grey.filled())))?;
+    ch.draw_series(LineSeries::new(fitted, fit_col.stroke_width(2)))?;
+    let r_max = resid.iter().map(|p| p.1.abs()).fold(1e-9, f64::max) * 1.2;
+    let legend = [(Key::Dot(grey), "capture − fit".to_string())];
+    let mut rc = plot::panel(&bottom, &t, -r_max..r_max, "residual (mA)", &legend)?;
     rc.draw_series(resid.iter().map(|&p| Circle::new(p, 1, grey.filled())))?;
     root.present()?;
     Ok(())

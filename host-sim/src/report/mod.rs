@@ -5,6 +5,7 @@
 pub mod csv;
 pub mod fit;
 pub mod json;
+pub mod plot;
 pub mod svg;
 
 use crate::cosim::Run;

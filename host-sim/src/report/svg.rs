@@ -1,23 +1,35 @@
-//! The SVG plot: three panels sharing the time axis — coil current (true at each period start,
-//! true period peak, the guard's estimate, the trip and ceiling levels, and a mark for every
-//! condition the guard raised), the switch-node peak per period with the breakdown, and the
-//! requested and applied duty.
+//! The low side's plot, panels sharing the time axis (its unit fits the window; `run --from/--to`
+//! zooms), each quantity against its own axis and each legend in a column beside its panel:
+//! - coil current: true (at each period start and its peak in the period), the guard's estimate
+//!   and bound, the trip, the ceiling the guard applies (and the configured one when the clamp's
+//!   rating lowers it), the release level with the end of each decay marked on it, the
+//!   release holds shaded, and a mark for every condition the guard raised;
+//! - the estimate's error against the true current (the two overlap in the first panel), and
+//!   the bound's margin over it, each on its own axis in the unit that fits;
+//! - the switch node's highest voltage in each period (the envelope of the PWM wave) against the
+//!   breakdown;
+//! - the supply and the guard's reading of it, when the supply moves;
+//! - the requested and the applied duty.
 
-use crate::cosim::Run;
+use super::plot::{self, Key, Pick, TimeAxis};
+use crate::cosim::{Row, Run};
 use crate::scenario::Scenario;
 use coilward::Condition;
 use plotters::prelude::*;
 use std::path::Path;
 
-/// Most points drawn per line; longer runs are reduced by buckets (peaks keep their maximum).
-const MAX_POINTS: usize = 2400;
-
 const TRUE: RGBColor = RGBColor(20, 60, 140);
 const PEAK: RGBColor = RGBColor(150, 175, 220);
 const ESTIMATE: RGBColor = RGBColor(220, 110, 20);
+const BOUND: RGBColor = RGBColor(130, 50, 160);
 const LIMIT: RGBColor = RGBColor(170, 30, 30);
+const CEILING: RGBColor = RGBColor(235, 110, 30);
+const CONFIGURED: RGBColor = RGBColor(230, 170, 150);
+const RELEASE: RGBColor = RGBColor(40, 140, 60);
 const NODE: RGBColor = RGBColor(40, 120, 70);
 const REQUESTED: RGBColor = RGBColor(140, 140, 140);
+const HOLD: RGBColor = RGBColor(120, 150, 230);
+const READING: RGBColor = RGBColor(220, 110, 20);
 
 fn marker_colour(c: &str) -> RGBColor {
     match c {
@@ -31,35 +43,41 @@ fn marker_colour(c: &str) -> RGBColor {
     }
 }
 
-/// Writes the plot to `path`.
+/// Writes the plot of the whole run to `path`.
+///
+/// # Errors
+/// No rows, or the drawing's error.
 pub fn write(s: &Scenario, r: &Run, path: &Path) -> Result<(), Box<dyn std::error::Error>> {
-    let rows = &r.rows;
-    if rows.is_empty() {
-        return Err("no rows to plot".into());
-    }
-    let bucket = rows.len().div_ceil(MAX_POINTS).max(1);
-    let ms = |t: f64| t * 1e3;
-    let t_end = ms(rows.last().map_or(0.0, |x| x.t_s) + s.period);
-    let reduce = |f: &dyn Fn(&crate::cosim::Row) -> f64, peak: bool| -> Vec<(f64, f64)> {
-        rows.chunks(bucket)
-            .map(|c| {
-                let v = if peak {
-                    c.iter().map(f).fold(f64::MIN, f64::max)
-                } else {
-                    f(&c[0])
-                };
-                (ms(c[0].t_s), v)
-            })
-            .collect()
-    };
-    let i_true = reduce(&|x| x.current_a, false);
-    let i_peak = reduce(&|x| x.peak_current_a, true);
-    let i_est = reduce(&|x| x.estimated_current_a, false);
-    let v_node = reduce(&|x| x.drain_peak_v, true);
-    let d_req = reduce(&|x| x.duty_requested * 100.0, false);
-    let d_app = reduce(&|x| x.duty_applied * 100.0, false);
+    write_window(s, r, path, None)
+}
 
-    let root = SVGBackend::new(path, (1200, 960)).into_drawing_area();
+/// Writes the plot of the window `from ..= to` (s; the whole run without one) to `path`.
+///
+/// # Errors
+/// No rows in the window, or the drawing's error.
+pub fn write_window(
+    s: &Scenario,
+    r: &Run,
+    path: &Path,
+    window: Option<(f64, f64)>,
+) -> Result<(), Box<dyn std::error::Error>> {
+    let end = r.rows.last().map_or(0.0, |x| x.t_s) + s.period;
+    let (from, to) = window.unwrap_or((0.0, end));
+    let t = TimeAxis::new(from, to.min(end));
+    let rows: Vec<Row> = r
+        .rows
+        .iter()
+        .filter(|x| x.t_s + s.period > t.from_s && x.t_s <= t.to_s)
+        .copied()
+        .collect();
+    if rows.is_empty() {
+        return Err("no control period in the window to plot".into());
+    }
+    let supply_moves = rows
+        .iter()
+        .any(|x| (x.supply_v - rows[0].supply_v).abs() > 1e-3 * rows[0].supply_v.abs());
+    let n_panels = if supply_moves { 6 } else { 5 };
+    let root = SVGBackend::new(path, (plot::WIDTH, 40 + 220 * n_panels)).into_drawing_area();
     root.fill(&WHITE)?;
     let (title, body) = root.split_vertically(40);
     title.draw(&Text::new(
@@ -67,154 +85,291 @@ pub fn write(s: &Scenario, r: &Run, path: &Path) -> Result<(), Box<dyn std::erro
         (20, 12),
         ("sans-serif", 20).into_font(),
     ))?;
-    let panels = body.split_evenly((3, 1));
-
-    // Current.
-    let trip = f64::from(s.limits.trip_current);
-    let i_max = r.peak_current_a.max(trip) * 1.12;
-    let i_min = rows.iter().map(|x| x.current_a).fold(0.0, f64::min);
-    let mut c = ChartBuilder::on(&panels[0])
-        .margin(12)
-        .x_label_area_size(40)
-        .y_label_area_size(64)
-        .build_cartesian_2d(0.0..t_end, i_min..i_max)?;
-    c.configure_mesh()
-        .y_desc("current (A)")
-        .x_desc("time (ms)")
-        .light_line_style(WHITE.mix(0.0))
-        .draw()?;
-    c.draw_series(LineSeries::new(i_peak, PEAK.stroke_width(1)))?
-        .label("true, period peak")
-        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], PEAK));
-    c.draw_series(LineSeries::new(i_true, TRUE.stroke_width(2)))?
-        .label("true, period start")
-        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], TRUE));
-    c.draw_series(DashedLineSeries::new(i_est, 6, 4, ESTIMATE.stroke_width(2)))?
-        .label(match s.calls {
-            crate::scenario::Calls::EveryPeriod => "guard's estimate",
-            // Between calls the guard knows nothing new: the line holds its last figure.
-            crate::scenario::Calls::OnEvents { .. } => "guard's estimate, at its calls",
-        })
-        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], ESTIMATE));
-    for (level, name) in [
-        (trip, "trip"),
-        (f64::from(s.limits.current_ceiling), "ceiling"),
-    ] {
-        c.draw_series(DashedLineSeries::new(
-            [(0.0, level), (t_end, level)],
-            3,
-            3,
-            LIMIT.stroke_width(1),
-        ))?;
-        c.draw_series(std::iter::once(Text::new(
-            name,
-            (t_end * 0.005, level),
-            ("sans-serif", 12).into_font().color(&LIMIT),
-        )))?;
+    let panels = body.split_evenly((n_panels as usize, 1));
+    current_panel(&panels[0], s, r, &rows, &t)?;
+    error_panel(&panels[1], &rows, &t)?;
+    margin_panel(&panels[2], &rows, &t)?;
+    node_panel(&panels[3], s, &rows, &t)?;
+    if supply_moves {
+        supply_panel(&panels[4], s, &rows, &t)?;
     }
-    let mut shown: Vec<&str> = Vec::new();
-    for cond in Condition::ALL {
-        let name = cond.name();
-        let marks: Vec<(f64, f64)> = r
-            .events
-            .iter()
-            .filter(|e| e.condition == name && e.detail != "cleared")
-            .map(|e| (ms(e.t_s), i_max * 0.97))
-            .collect();
-        if marks.is_empty() {
-            continue;
-        }
-        let col = marker_colour(name);
-        c.draw_series(
-            marks
-                .into_iter()
-                .map(|p| TriangleMarker::new(p, 6, col.filled())),
-        )?
-        .label(format!("raised: {name}"))
-        .legend(move |(x, y)| TriangleMarker::new((x + 9, y), 5, col.filled()));
-        shown.push(name);
-    }
-    c.configure_series_labels()
-        .border_style(BLACK.mix(0.3))
-        .background_style(WHITE.mix(0.9))
-        .position(SeriesLabelPosition::UpperRight)
-        .draw()?;
-
-    node_panel(&panels[1], s, r, v_node, t_end)?;
-    duty_panel(&panels[2], d_req, d_app, t_end)?;
+    duty_panel(&panels[n_panels as usize - 1], &rows, &t)?;
     root.present()?;
     Ok(())
 }
 
-type Area<'a> = DrawingArea<SVGBackend<'a>, plotters::coord::Shift>;
+fn at(x: &Row) -> f64 {
+    x.t_s
+}
 
-/// The switch node's peak per period against the breakdown.
-fn node_panel(
-    area: &Area,
+/// The current, its levels, holds, decay ends and the conditions raised.
+fn current_panel(
+    area: &plot::Area,
     s: &Scenario,
     r: &Run,
-    v_node: Vec<(f64, f64)>,
-    t_end: f64,
+    rows: &[Row],
+    t: &TimeAxis,
 ) -> Result<(), Box<dyn std::error::Error>> {
-    let v_max = r.peak_drain_voltage_v.max(s.plant.breakdown) * 1.1;
-    let mut c = ChartBuilder::on(area)
-        .margin(12)
-        .x_label_area_size(40)
-        .y_label_area_size(64)
-        .build_cartesian_2d(0.0..t_end, 0.0..v_max)?;
-    c.configure_mesh()
-        .y_desc("switch node, period peak (V)")
-        .x_desc("time (ms)")
-        .light_line_style(WHITE.mix(0.0))
-        .draw()?;
-    c.draw_series(LineSeries::new(v_node, NODE.stroke_width(1)))?
-        .label("switch-node peak")
-        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], NODE));
-    let bd = s.plant.breakdown;
+    let trip = f64::from(s.limits.trip_current);
+    let configured = f64::from(s.limits.current_ceiling);
+    let ceiling = s
+        .guard()
+        .map_or(configured, |g| f64::from(g.model().amps(g.ceiling())));
+    let release = f64::from(s.limits.release_current);
+    let y = plot::span_of(
+        rows.iter()
+            .flat_map(|x| [x.current_a, x.peak_current_a, x.bound_a]),
+        &[0.0, trip],
+    );
+    let holds = plot::spans(rows, s.period, at, |x| {
+        x.conditions.contains(Condition::ReleaseHold)
+    });
+    let decay_ends: Vec<f64> = r
+        .turn_offs
+        .iter()
+        .filter_map(|o| o.decay_time_s.map(|d| o.t_s + d))
+        .filter(|&e| t.shows(e))
+        .collect();
+    let raised: Vec<(&str, Vec<f64>)> = Condition::ALL
+        .iter()
+        .map(|c| {
+            let times = r
+                .events
+                .iter()
+                .filter(|e| e.condition == c.name() && e.detail != "cleared" && t.shows(e.t_s))
+                .map(|e| e.t_s)
+                .collect::<Vec<_>>();
+            (c.name(), times)
+        })
+        .filter(|(_, v)| !v.is_empty())
+        .collect();
+    let mut legend = vec![
+        (Key::Line(TRUE, 2), "true, at each period start".to_string()),
+        (Key::Line(PEAK, 1), "true, highest in the period".into()),
+        (Key::Dashed(ESTIMATE), "guard's estimate".into()),
+        (Key::Line(BOUND, 1), "guard's bound (its tolerance)".into()),
+        (
+            Key::Dashed(LIMIT),
+            format!("trip {}", super::si(trip, "A", 3)),
+        ),
+        (
+            Key::Dashed(CEILING),
+            format!("ceiling applied {}", super::si(ceiling, "A", 3)),
+        ),
+    ];
+    if (ceiling - configured).abs() > 1e-6 * configured {
+        legend.push((
+            Key::Dashed(CONFIGURED),
+            format!("ceiling configured {}", super::si(configured, "A", 3)),
+        ));
+    }
+    legend.push((
+        Key::Dashed(RELEASE),
+        format!("release {}; ● decay ends", super::si(release, "A", 3)),
+    ));
+    if !holds.is_empty() {
+        legend.push((Key::Band(HOLD), "release-hold".into()));
+    }
+    for (name, _) in &raised {
+        legend.push((Key::Marker(marker_colour(name)), format!("raised: {name}")));
+    }
+    let mut c = plot::panel(area, t, y.clone(), "coil current (A)", &legend)?;
+    plot::shade(&mut c, t, &holds, y.clone(), HOLD)?;
+    plot::level(&mut c, t, trip, LIMIT)?;
+    plot::level(&mut c, t, ceiling, CEILING)?;
+    if (ceiling - configured).abs() > 1e-6 * configured {
+        plot::level(&mut c, t, configured, CONFIGURED)?;
+    }
+    plot::level(&mut c, t, release, RELEASE)?;
+    c.draw_series(LineSeries::new(
+        plot::series(rows, t, at, |x| x.peak_current_a, Pick::High),
+        PEAK.stroke_width(1),
+    ))?;
+    c.draw_series(LineSeries::new(
+        plot::series(rows, t, at, |x| x.current_a, Pick::First),
+        TRUE.stroke_width(2),
+    ))?;
     c.draw_series(DashedLineSeries::new(
-        [(0.0, bd), (t_end, bd)],
-        3,
-        3,
-        LIMIT.stroke_width(1),
-    ))?
-    .label("switch breakdown")
-    .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], LIMIT));
-    c.configure_series_labels()
-        .border_style(BLACK.mix(0.3))
-        .background_style(WHITE.mix(0.9))
-        .position(SeriesLabelPosition::UpperRight)
-        .draw()?;
+        plot::series(rows, t, at, |x| x.estimated_current_a, Pick::First),
+        6,
+        4,
+        ESTIMATE.stroke_width(2),
+    ))?;
+    c.draw_series(LineSeries::new(
+        plot::series(rows, t, at, |x| x.bound_a, Pick::High),
+        BOUND.stroke_width(1),
+    ))?;
+    c.draw_series(
+        decay_ends
+            .iter()
+            .map(|&e| Circle::new((t.x(e), release), 4, RELEASE.filled())),
+    )?;
+    let top = y.end - (y.end - y.start) * 0.03;
+    for (name, times) in raised {
+        let col = marker_colour(name);
+        c.draw_series(
+            times
+                .into_iter()
+                .map(|e| TriangleMarker::new((t.x(e), top), 6, col.filled())),
+        )?;
+    }
+    Ok(())
+}
 
+/// The estimate's error against the true current, in the unit that fits.
+fn error_panel(
+    area: &plot::Area,
+    rows: &[Row],
+    t: &TimeAxis,
+) -> Result<(), Box<dyn std::error::Error>> {
+    // Between event-mode calls the guard's figures are those of its last call: only the
+    // periods it was called at compare like with like.
+    let rows: Vec<Row> = rows.iter().filter(|x| x.called).copied().collect();
+    let rows = &rows[..];
+    let largest = rows
+        .iter()
+        .map(|x| (x.estimated_current_a - x.current_a).abs())
+        .fold(0.0, f64::max);
+    let (k, unit) = plot::current_unit(largest);
+    let err = |x: &Row| (x.estimated_current_a - x.current_a) * k;
+    let y = plot::span_of(rows.iter().map(err), &[0.0]);
+    let legend = [
+        (Key::Line(ESTIMATE, 2), "estimate − true".to_string()),
+        (Key::Dashed(REQUESTED), "zero".into()),
+    ];
+    let mut c = plot::panel(area, t, y, &format!("estimate's error ({unit})"), &legend)?;
+    plot::level(&mut c, t, 0.0, REQUESTED)?;
+    let points = plot::series(rows, t, at, err, Pick::First);
+    if points.len() <= 400 {
+        // Few calls (event mode): each one marked.
+        c.draw_series(points.iter().map(|&p| Circle::new(p, 3, ESTIMATE.filled())))?;
+    }
+    c.draw_series(LineSeries::new(points, ESTIMATE.stroke_width(2)))?;
+    Ok(())
+}
+
+/// The bound's margin over the true current, in the unit that fits (never below zero inside
+/// the declared tolerance).
+fn margin_panel(
+    area: &plot::Area,
+    rows: &[Row],
+    t: &TimeAxis,
+) -> Result<(), Box<dyn std::error::Error>> {
+    let rows: Vec<Row> = rows.iter().filter(|x| x.called).copied().collect();
+    let rows = &rows[..];
+    let largest = rows
+        .iter()
+        .map(|x| (x.bound_a - x.current_a).abs())
+        .fold(0.0, f64::max);
+    let (k, unit) = plot::current_unit(largest);
+    let margin = |x: &Row| (x.bound_a - x.current_a) * k;
+    let y = plot::span_of(rows.iter().map(margin), &[0.0]);
+    let legend = [
+        (
+            Key::Line(BOUND, 1),
+            "bound − true (least per point)".to_string(),
+        ),
+        (Key::Dashed(REQUESTED), "zero".into()),
+    ];
+    let mut c = plot::panel(area, t, y, &format!("bound's margin ({unit})"), &legend)?;
+    plot::level(&mut c, t, 0.0, REQUESTED)?;
+    let points = plot::series(rows, t, at, margin, Pick::Low);
+    if points.len() <= 400 {
+        c.draw_series(points.iter().map(|&p| Circle::new(p, 3, BOUND.filled())))?;
+    }
+    c.draw_series(LineSeries::new(points, BOUND.stroke_width(1)))?;
+    Ok(())
+}
+
+/// The switch node's highest voltage in each period against the breakdown.
+fn node_panel(
+    area: &plot::Area,
+    s: &Scenario,
+    rows: &[Row],
+    t: &TimeAxis,
+) -> Result<(), Box<dyn std::error::Error>> {
+    let bd = s.plant.breakdown;
+    let y = plot::span_of(rows.iter().map(|x| x.drain_peak_v), &[0.0, bd]);
+    let legend = [
+        (
+            Key::Line(NODE, 1),
+            "highest in each period (envelope)".to_string(),
+        ),
+        (
+            Key::Dashed(LIMIT),
+            format!("switch breakdown {}", super::si(bd, "V", 3)),
+        ),
+    ];
+    let mut c = plot::panel(area, t, y, "switch node (V)", &legend)?;
+    plot::level(&mut c, t, bd, LIMIT)?;
+    c.draw_series(LineSeries::new(
+        plot::series(rows, t, at, |x| x.drain_peak_v, Pick::High),
+        NODE.stroke_width(1),
+    ))?;
+    Ok(())
+}
+
+/// The supply at each period start and the guard's reading of it, with the window.
+fn supply_panel(
+    area: &plot::Area,
+    s: &Scenario,
+    rows: &[Row],
+    t: &TimeAxis,
+) -> Result<(), Box<dyn std::error::Error>> {
+    let (lo, hi) = (s.plant.supply_min, s.plant.supply_max);
+    let y = plot::span_of(
+        rows.iter().flat_map(|x| [x.supply_v, x.supply_read_v]),
+        &[lo, hi],
+    );
+    let legend = [
+        (
+            Key::Line(TRUE, 2),
+            "supply at each period start".to_string(),
+        ),
+        (Key::Dashed(READING), "the guard's reading".into()),
+        (
+            Key::Dashed(LIMIT),
+            format!(
+                "window {} ..= {}",
+                super::si(lo, "V", 3),
+                super::si(hi, "V", 3)
+            ),
+        ),
+    ];
+    let mut c = plot::panel(area, t, y, "supply (V)", &legend)?;
+    plot::level(&mut c, t, lo, LIMIT)?;
+    plot::level(&mut c, t, hi, LIMIT)?;
+    c.draw_series(LineSeries::new(
+        plot::series(rows, t, at, |x| x.supply_v, Pick::First),
+        TRUE.stroke_width(2),
+    ))?;
+    c.draw_series(DashedLineSeries::new(
+        plot::series(rows, t, at, |x| x.supply_read_v, Pick::First),
+        6,
+        4,
+        READING.stroke_width(1),
+    ))?;
     Ok(())
 }
 
 /// The requested and the applied duty.
 fn duty_panel(
-    area: &Area,
-    d_req: Vec<(f64, f64)>,
-    d_app: Vec<(f64, f64)>,
-    t_end: f64,
+    area: &plot::Area,
+    rows: &[Row],
+    t: &TimeAxis,
 ) -> Result<(), Box<dyn std::error::Error>> {
-    let mut c = ChartBuilder::on(area)
-        .margin(12)
-        .x_label_area_size(40)
-        .y_label_area_size(64)
-        .build_cartesian_2d(0.0..t_end, 0.0..110.0)?;
-    c.configure_mesh()
-        .y_desc("duty (%)")
-        .x_desc("time (ms)")
-        .light_line_style(WHITE.mix(0.0))
-        .draw()?;
-    c.draw_series(LineSeries::new(d_req, REQUESTED.stroke_width(3)))?
-        .label("requested")
-        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], REQUESTED));
-    c.draw_series(LineSeries::new(d_app, TRUE.stroke_width(1)))?
-        .label("applied by the guard")
-        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], TRUE));
-    c.configure_series_labels()
-        .border_style(BLACK.mix(0.3))
-        .background_style(WHITE.mix(0.9))
-        .position(SeriesLabelPosition::UpperRight)
-        .draw()?;
+    let legend = [
+        (Key::Line(REQUESTED, 3), "requested".to_string()),
+        (Key::Line(TRUE, 1), "applied by the guard".into()),
+    ];
+    let mut c = plot::panel(area, t, -2.0..105.0, "duty (%)", &legend)?;
+    c.draw_series(LineSeries::new(
+        plot::series(rows, t, at, |x| x.duty_requested * 100.0, Pick::First),
+        REQUESTED.stroke_width(3),
+    ))?;
+    c.draw_series(LineSeries::new(
+        plot::series(rows, t, at, |x| x.duty_applied * 100.0, Pick::First),
+        TRUE.stroke_width(1),
+    ))?;
     Ok(())
 }
