@@ -154,6 +154,8 @@ pub struct Run {
     pub missed_ticks: u64,
     /// Periods whose tick came too late for the timer (`[ticks] late`).
     pub late_ticks: u64,
+    /// The plant sampled over [`Options::wave`]'s window.
+    pub wave: Vec<WavePoint>,
 }
 
 impl Run {
@@ -231,6 +233,25 @@ impl Verdict {
 pub struct Options {
     /// Keep one [`Row`] per period.
     pub rows: bool,
+    /// Sample the plant's current and switch node [`WAVE_SAMPLES`] times a period over this
+    /// window (s) into [`Run::wave`], for a zoomed plot. The plant runs in the same exact
+    /// segments cut at the samples, so its figures may differ from an unsampled run's in the
+    /// last bits: take the reports from a run without it.
+    pub wave: Option<(f64, f64)>,
+}
+
+/// Samples per control period of [`Options::wave`].
+pub const WAVE_SAMPLES: u32 = 64;
+
+/// The plant at one instant of a sampled window.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct WavePoint {
+    /// Time, s.
+    pub t_s: f64,
+    /// Coil current, A.
+    pub current_a: f64,
+    /// Switch-node voltage, V.
+    pub node_v: f64,
 }
 
 /// The supply ADC.
@@ -263,16 +284,28 @@ impl Adc {
 /// time the switch opened).
 fn run_step(
     plant: &mut Plant,
-    on_time: f64,
-    len: f64,
-    tk: f64,
+    (on_time, len, tk): (f64, f64, f64),
     release: f64,
+    mut wave: Option<&mut Vec<WavePoint>>,
 ) -> Result<(f64, f64, Tally, Tally, f64), PlantError> {
     let i_start = plant.state.current;
     let mut on = Tally::starting(plant.state);
     on.time_offset = tk;
+    if let Some(w) = wave.as_deref_mut() {
+        w.push(WavePoint {
+            t_s: tk,
+            current_a: plant.state.current,
+            node_v: plant.state.node,
+        });
+    }
     if on_time > 0.0 {
-        plant.run(true, on_time, &mut on)?;
+        run_part(
+            plant,
+            true,
+            (tk, on_time, len),
+            &mut on,
+            wave.as_deref_mut(),
+        )?;
     }
     let t_open = tk + on_time;
     let i_open = plant.state.current;
@@ -283,9 +316,41 @@ fn run_step(
         off.below_at = Some(t_open);
     }
     if on_time < len {
-        plant.run(false, len - on_time, &mut off)?;
+        run_part(plant, false, (t_open, len - on_time, len), &mut off, wave)?;
     }
     Ok((i_start, i_open, on, off, t_open))
+}
+
+/// One part of a period (`span` s from `t0` in a period of `len` s), whole, or cut into pieces of
+/// `len / WAVE_SAMPLES` with the plant recorded after each.
+fn run_part(
+    plant: &mut Plant,
+    on: bool,
+    (t0, span, len): (f64, f64, f64),
+    tally: &mut Tally,
+    wave: Option<&mut Vec<WavePoint>>,
+) -> Result<(), PlantError> {
+    let Some(w) = wave else {
+        return plant.run(on, span, tally);
+    };
+    let pieces = (span / len * f64::from(WAVE_SAMPLES)).ceil().max(1.0);
+    let piece = span / pieces;
+    let mut done = 0.0;
+    for k in 1..=pieces as u32 {
+        let upto = if f64::from(k) >= pieces {
+            span
+        } else {
+            piece * f64::from(k)
+        };
+        plant.run(on, upto - done, tally)?;
+        done = upto;
+        w.push(WavePoint {
+            t_s: t0 + done,
+            current_a: plant.state.current,
+            node_v: plant.state.node,
+        });
+    }
+    Ok(())
 }
 
 /// Records the first pulse above the rating.
@@ -630,8 +695,13 @@ fn simulate(
         walk.switch(out, &lim, &plant, tk, applied, counts);
         let len = pace.advance(s);
         let on_time = f64::from(applied) / lim.res * len;
-        let (i_start, i_open, on, off, t_open) =
-            run_step(&mut plant, on_time, len, tk, lim.release)?;
+        let sampled = opts.wave.is_some_and(|(a, b)| tk + len > a && tk < b);
+        let (i_start, i_open, on, off, t_open) = run_step(
+            &mut plant,
+            (on_time, len, tk),
+            lim.release,
+            sampled.then_some(&mut out.wave),
+        )?;
         let pulse = walk.account(out, &lim, applied, (&on, &off), t_open, i_open);
         if opts.rows {
             let r = row(

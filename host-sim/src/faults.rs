@@ -285,7 +285,13 @@ fn outside(base: &Scenario) -> Vec<Case> {
 /// Runs one case.
 pub fn run(case: &Case) -> (Outcome, Run) {
     let s = &case.scenario;
-    let r = cosim::run(s, Options { rows: true });
+    let r = cosim::run(
+        s,
+        Options {
+            rows: true,
+            wave: None,
+        },
+    );
     let ceiling = s.guard().map_or(f64::from(s.limits.current_ceiling), |g| {
         f64::from(g.model().amps(g.ceiling()))
     });

@@ -435,12 +435,33 @@ fn faults_cmd(file: &Path, json: Option<&Path>) -> Result<ExitCode, ExitCode> {
 fn run(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
     let s = load(file)?;
     out.check()?;
-    let r = cosim::run(&s, Options { rows: out.rows() });
+    let r = cosim::run(
+        &s,
+        Options {
+            rows: out.rows(),
+            wave: None,
+        },
+    );
     say_part!("{}", report::summary(&s, &r));
     out.write(
         || report::json::report(&s, &r),
         |w| report::csv::write(&r.rows, w),
-        |p| report::svg::write_window(&s, &r, p, out.window),
+        |p| {
+            // A window of at most 200 periods shows the plant's full wave, from a second run
+            // sampled inside it (the reports above come from the unsampled run).
+            let wave = out
+                .window
+                .filter(|(a, b)| (b - a) <= 200.0 * s.period)
+                .map(|w| {
+                    let opts = Options {
+                        rows: false,
+                        wave: Some(w),
+                    };
+                    cosim::run(&s, opts).wave
+                })
+                .unwrap_or_default();
+            report::svg::write_window(&s, &r, p, out.window, &wave)
+        },
     )?;
     Ok(verdict(r.verdict()))
 }
@@ -567,7 +588,13 @@ fn print_tolerance_and_clamp_power(s: &Scenario) {
             t.saturated_inductance * 100.0
         );
     }
-    let run = cosim::run(s, Options { rows: true });
+    let run = cosim::run(
+        s,
+        Options {
+            rows: true,
+            wave: None,
+        },
+    );
     let p = s
         .limits
         .clamp_power

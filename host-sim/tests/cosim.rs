@@ -132,7 +132,13 @@ fn a_guard_started_as_after_reset_holds_the_output() {
     // After a reset the guard assumes the worst current and waits for its decay before the
     // first turn-on, even though the coil is really at rest.
     let t = text("relay-zener.toml") + "\n[start]\nguard = \"reset\"\n";
-    let r = cosim::run(&scenario(&t), Options { rows: true });
+    let r = cosim::run(
+        &scenario(&t),
+        Options {
+            rows: true,
+            wave: None,
+        },
+    );
     assert!(r.rows[0].duty_applied == 0.0 && r.rows[0].duty_requested == 1.0);
     assert!(
         r.events
@@ -147,7 +153,13 @@ fn a_guard_started_as_after_reset_holds_the_output() {
 fn a_coil_still_carrying_current_at_start() {
     // The plant starts with 0.12 A and the guard is told so: the turn-on waits for the decay.
     let t = text("relay-zener.toml") + "\n[start]\ncurrent = \"120 mA\"\n";
-    let r = cosim::run(&scenario(&t), Options { rows: true });
+    let r = cosim::run(
+        &scenario(&t),
+        Options {
+            rows: true,
+            wave: None,
+        },
+    );
     assert!(r.rows[0].current_a > 0.1, "{}", r.rows[0].current_a);
     assert_eq!(r.rows[0].duty_applied, 0.0);
     assert!(!r.findings.iter().any(|f| f.kind == "on-before-release"));
@@ -161,9 +173,27 @@ fn adc_noise_is_seeded_and_quantisation_shows_in_the_readings() {
                 "\n[adc]\nbits = 10\nfull_scale = \"33 V\"\nnoise = \"50 mV\"\nseed = {seed}\n"
             )
     };
-    let a = cosim::run(&scenario(&with(3)), Options { rows: true });
-    let b = cosim::run(&scenario(&with(3)), Options { rows: true });
-    let c = cosim::run(&scenario(&with(4)), Options { rows: true });
+    let a = cosim::run(
+        &scenario(&with(3)),
+        Options {
+            rows: true,
+            wave: None,
+        },
+    );
+    let b = cosim::run(
+        &scenario(&with(3)),
+        Options {
+            rows: true,
+            wave: None,
+        },
+    );
+    let c = cosim::run(
+        &scenario(&with(4)),
+        Options {
+            rows: true,
+            wave: None,
+        },
+    );
     let reads = |r: &cosim::Run| {
         r.rows
             .iter()
@@ -191,7 +221,13 @@ fn supply_steps_and_ripple_reach_the_plant_and_the_guard() {
         "source_resistance = \"0.2 Ω\"",
         "ripple = \"0.5 V\"\nripple_frequency = \"100 Hz\"",
     ) + "\n[[supply_change]]\nat = \"60 ms\"\nvoltage = \"18 V\"\n\n[[supply_change]]\nat = \"90 ms\"\nvoltage = \"24 V\"\n";
-    let r = cosim::run(&scenario(&t), Options { rows: true });
+    let r = cosim::run(
+        &scenario(&t),
+        Options {
+            rows: true,
+            wave: None,
+        },
+    );
     let at = |t_s: f64| r.rows.iter().find(|x| x.t_s >= t_s - 1e-9).unwrap();
     for (t_s, want) in [(0.0525, 24.0), (0.0725, 18.0), (0.1025, 24.0)] {
         // 100 Hz ripple: at t = 52.5 ms, 72.5 ms and 102.5 ms it is at its crest (+0.5 V).

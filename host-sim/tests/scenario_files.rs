@@ -521,6 +521,20 @@ fn plots_show_what_the_guard_did() {
             "{words}"
         );
     }
+    // Zoomed into the PWM hold, the switch node is its full wave (a second run sampled inside
+    // the window), not the per-period envelope.
+    let zoom = dir.path().join("zoom.svg");
+    let out = sim()
+        .arg("run")
+        .arg(demo("valve-at-ceiling.toml"))
+        .arg("--svg")
+        .arg(&zoom)
+        .args(["--from", "30 ms", "--to", "30.3 ms"])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(3));
+    let svg = std::fs::read_to_string(&zoom).unwrap();
+    assert!(svg.contains("full wave, 64 samples a period") && svg.contains("time (µs)"));
     let bridge = dir.path().join("bridge.svg");
     let out = sim()
         .arg("run")

@@ -249,7 +249,13 @@ fn at_low_duty_the_bound_covers_the_node_charge() {
     let naive = (0.04 * 24.0 - 0.96 * 0.7) / 60.0;
     assert!(m["imean"] > 1.2 * naive, "{} vs {naive}", m["imean"]);
 
-    let r = cosim::run(&s, Options { rows: true });
+    let r = cosim::run(
+        &s,
+        Options {
+            rows: true,
+            wave: None,
+        },
+    );
     let last = r.rows.last().unwrap();
     eprintln!(
         "CHECK low duty, 1 nF: true {:.4e} A, nominal estimate {:.4e} A, bound margin at worst \
@@ -350,7 +356,13 @@ fn a_ring_under_the_breakdown_is_waited_out() {
     assert!(last_above - t_off > 0.5e-3); // the ring outlasts an avalanche's 31 µs by far
     // The guard: the request to switch on again comes one period after the turn-off.
     let s = scenario(RINGING);
-    let r = cosim::run(&s, Options { rows: true });
+    let r = cosim::run(
+        &s,
+        Options {
+            rows: true,
+            wave: None,
+        },
+    );
     let on_again = r
         .rows
         .iter()
@@ -392,7 +404,13 @@ fn a_ring_under_the_breakdown_is_waited_out() {
 
 /// Mean true current over `from ..= to` (s) of a run.
 fn mean_current(s: &Scenario, from: f64, to: f64) -> f64 {
-    let r = cosim::run(s, Options { rows: true });
+    let r = cosim::run(
+        s,
+        Options {
+            rows: true,
+            wave: None,
+        },
+    );
     let rows: Vec<_> = r
         .rows
         .iter()

@@ -12,7 +12,7 @@
 //! - the requested and the applied duty.
 
 use super::plot::{self, Key, Pick, TimeAxis};
-use crate::cosim::{Row, Run};
+use crate::cosim::{Row, Run, WavePoint};
 use crate::scenario::Scenario;
 use coilward::Condition;
 use plotters::prelude::*;
@@ -48,10 +48,12 @@ fn marker_colour(c: &str) -> RGBColor {
 /// # Errors
 /// No rows, or the drawing's error.
 pub fn write(s: &Scenario, r: &Run, path: &Path) -> Result<(), Box<dyn std::error::Error>> {
-    write_window(s, r, path, None)
+    write_window(s, r, path, None, &[])
 }
 
-/// Writes the plot of the window `from ..= to` (s; the whole run without one) to `path`.
+/// Writes the plot of the window `from ..= to` (s; the whole run without one) to `path`, with
+/// the plant's full wave when `wave` holds it (a run sampled over the window, see
+/// [`crate::cosim::Options::wave`]).
 ///
 /// # Errors
 /// No rows in the window, or the drawing's error.
@@ -60,6 +62,7 @@ pub fn write_window(
     r: &Run,
     path: &Path,
     window: Option<(f64, f64)>,
+    wave: &[WavePoint],
 ) -> Result<(), Box<dyn std::error::Error>> {
     let end = r.rows.last().map_or(0.0, |x| x.t_s) + s.period;
     let (from, to) = window.unwrap_or((0.0, end));
@@ -86,10 +89,11 @@ pub fn write_window(
         ("sans-serif", 20).into_font(),
     ))?;
     let panels = body.split_evenly((n_panels as usize, 1));
-    current_panel(&panels[0], s, r, &rows, &t)?;
+    let wave: Vec<WavePoint> = wave.iter().filter(|w| t.shows(w.t_s)).copied().collect();
+    current_panel(&panels[0], s, r, (&rows, &wave), &t)?;
     error_panel(&panels[1], &rows, &t)?;
     margin_panel(&panels[2], &rows, &t)?;
-    node_panel(&panels[3], s, &rows, &t)?;
+    node_panel(&panels[3], s, (&rows, &wave), &t)?;
     if supply_moves {
         supply_panel(&panels[4], s, &rows, &t)?;
     }
@@ -107,7 +111,7 @@ fn current_panel(
     area: &plot::Area,
     s: &Scenario,
     r: &Run,
-    rows: &[Row],
+    (rows, wave): (&[Row], &[WavePoint]),
     t: &TimeAxis,
 ) -> Result<(), Box<dyn std::error::Error>> {
     let trip = f64::from(s.limits.trip_current);
@@ -116,10 +120,14 @@ fn current_panel(
         .guard()
         .map_or(configured, |g| f64::from(g.model().amps(g.ceiling())));
     let release = f64::from(s.limits.release_current);
+    // Zoomed to a full wave, the axis fits the traces (the ripple shows); else it spans zero to
+    // the trip.
+    let whole = [0.0, trip];
     let y = plot::span_of(
         rows.iter()
-            .flat_map(|x| [x.current_a, x.peak_current_a, x.bound_a]),
-        &[0.0, trip],
+            .flat_map(|x| [x.current_a, x.peak_current_a, x.bound_a])
+            .chain(wave.iter().map(|w| w.current_a)),
+        if wave.is_empty() { &whole } else { &[] },
     );
     let holds = plot::spans(rows, s.period, at, |x| {
         x.conditions.contains(Condition::ReleaseHold)
@@ -145,7 +153,11 @@ fn current_panel(
         .collect();
     let mut legend = vec![
         (Key::Line(TRUE, 2), "true, at each period start".to_string()),
-        (Key::Line(PEAK, 1), "true, highest in the period".into()),
+        if wave.is_empty() {
+            (Key::Line(PEAK, 1), "true, highest in the period".into())
+        } else {
+            (Key::Line(PEAK, 1), "true, full wave".into())
+        },
         (Key::Dashed(ESTIMATE), "guard's estimate".into()),
         (Key::Line(BOUND, 1), "guard's bound (its tolerance)".into()),
         (
@@ -181,10 +193,17 @@ fn current_panel(
         plot::level(&mut c, t, configured, CONFIGURED)?;
     }
     plot::level(&mut c, t, release, RELEASE)?;
-    c.draw_series(LineSeries::new(
-        plot::series(rows, t, at, |x| x.peak_current_a, Pick::High),
-        PEAK.stroke_width(1),
-    ))?;
+    if wave.is_empty() {
+        c.draw_series(LineSeries::new(
+            plot::series(rows, t, at, |x| x.peak_current_a, Pick::High),
+            PEAK.stroke_width(1),
+        ))?;
+    } else {
+        c.draw_series(LineSeries::new(
+            wave.iter().map(|w| (t.x(w.t_s), w.current_a)),
+            PEAK.stroke_width(1),
+        ))?;
+    }
     c.draw_series(LineSeries::new(
         plot::series(rows, t, at, |x| x.current_a, Pick::First),
         TRUE.stroke_width(2),
@@ -285,15 +304,24 @@ fn margin_panel(
 fn node_panel(
     area: &plot::Area,
     s: &Scenario,
-    rows: &[Row],
+    (rows, wave): (&[Row], &[WavePoint]),
     t: &TimeAxis,
 ) -> Result<(), Box<dyn std::error::Error>> {
     let bd = s.plant.breakdown;
-    let y = plot::span_of(rows.iter().map(|x| x.drain_peak_v), &[0.0, bd]);
+    let y = plot::span_of(
+        rows.iter()
+            .map(|x| x.drain_peak_v)
+            .chain(wave.iter().map(|w| w.node_v)),
+        &[0.0, bd],
+    );
     let legend = [
         (
             Key::Line(NODE, 1),
-            "highest in each period (envelope)".to_string(),
+            if wave.is_empty() {
+                "highest in each period (envelope)".to_string()
+            } else {
+                format!("full wave, {} samples a period", crate::cosim::WAVE_SAMPLES)
+            },
         ),
         (
             Key::Dashed(LIMIT),
@@ -302,10 +330,17 @@ fn node_panel(
     ];
     let mut c = plot::panel(area, t, y, "switch node (V)", &legend)?;
     plot::level(&mut c, t, bd, LIMIT)?;
-    c.draw_series(LineSeries::new(
-        plot::series(rows, t, at, |x| x.drain_peak_v, Pick::High),
-        NODE.stroke_width(1),
-    ))?;
+    if wave.is_empty() {
+        c.draw_series(LineSeries::new(
+            plot::series(rows, t, at, |x| x.drain_peak_v, Pick::High),
+            NODE.stroke_width(1),
+        ))?;
+    } else {
+        c.draw_series(LineSeries::new(
+            wave.iter().map(|w| (t.x(w.t_s), w.node_v)),
+            NODE.stroke_width(1),
+        ))?;
+    }
     Ok(())
 }
 
