@@ -288,6 +288,12 @@ fn reports_keep_their_contract() {
         .unwrap();
     assert!(out.status.code().is_some_and(|c| c != 2));
     let w: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&b).unwrap()).unwrap();
+    // The bridge's ends of drive, as the low side's turn-offs (and in its summary).
+    let stop = &w["stops"][0];
+    for key in ["t_s", "current_a", "decay_time_s", "returned_energy_j"] {
+        assert!(stop.get(key).is_some(), "stops[].{key}");
+    }
+    assert!(String::from_utf8_lossy(&out.stdout).contains("drive ends"));
     for (doc, topology) in [(&v, "low-side"), (&w, "full-bridge")] {
         assert_eq!(doc["schema"], 1);
         assert_eq!(doc["scenario"]["topology"], topology);

@@ -45,6 +45,21 @@ pub struct BridgeRow {
     pub conditions: Conditions,
 }
 
+/// One end of a drive (the applied duty to zero or to the other direction), as the low side's
+/// turn-off table has it.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Stop {
+    /// When the drive ended, s.
+    pub t_s: f64,
+    /// The true current's magnitude then, A.
+    pub current_a: f64,
+    /// Until the true current's magnitude was at the release level, s (`None`: driven again,
+    /// or the run ended, first).
+    pub decay_time_s: Option<f64>,
+    /// Energy returned to the supply meanwhile, J.
+    pub returned_energy_j: f64,
+}
+
 /// One change of direction, from the request to the first drive the other way.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct Reversal {
@@ -68,6 +83,8 @@ pub struct BridgeRun {
     pub events: Vec<EventRecord>,
     /// Changes of direction.
     pub reversals: Vec<Reversal>,
+    /// Each end of a drive: to zero or to the other direction.
+    pub stops: Vec<Stop>,
     /// Limits exceeded and actions taken; empty means pass.
     pub findings: Vec<Finding>,
     /// True peak current magnitude, A.
@@ -354,6 +371,10 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
     let mut direction = 0i32; // of the last drive
     let mut pending: Option<Reversal> = None;
     let mut prev_active = Conditions::NONE;
+    // The drive applied in the period before, and the stop whose decay is being watched (with
+    // the returned energy when it began).
+    let mut last_duty = 0i32;
+    let mut open: Option<(Stop, f64)> = None;
     for k in 0..periods {
         let t = k as f64 * s.period;
         let want = s.duty_in_period(k);
@@ -435,6 +456,38 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
         }
         let bus_v = r.judge(s, &out, &tally, prev_active, t);
         prev_active = out.active;
+        let ended = last_duty != 0 && out.duty.signum() != last_duty.signum();
+        if ended || (out.duty != 0 && open.is_some()) {
+            // Driven again (or ended again) before the release: the open stop never decayed.
+            if let Some((stop, _)) = open.take() {
+                r.stops.push(stop);
+            }
+        }
+        if ended {
+            let stop = Stop {
+                t_s: t,
+                current_a: i_true.abs(),
+                decay_time_s: None,
+                returned_energy_j: 0.0,
+            };
+            open = Some((stop, r.returned_energy_j - tally.returned_energy));
+        }
+        last_duty = out.duty;
+        if let Some((stop, from)) = open.as_mut() {
+            let released = if i_true.abs() <= release {
+                Some(t)
+            } else if plant.state.current.abs() <= release {
+                tally.below_at.or(Some(t + s.period))
+            } else {
+                None
+            };
+            if let Some(at) = released {
+                stop.decay_time_s = Some(at - stop.t_s);
+                stop.returned_energy_j = r.returned_energy_j - *from;
+                r.stops.push(*stop);
+                open = None;
+            }
+        }
         if rows {
             r.rows.push(BridgeRow {
                 t_s: t,
@@ -454,6 +507,10 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
     }
     if let Some(p) = pending {
         r.reversals.push(p);
+    }
+    if let Some((mut stop, from)) = open {
+        stop.returned_energy_j = r.returned_energy_j - from;
+        r.stops.push(stop);
     }
     r
 }

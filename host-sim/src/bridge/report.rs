@@ -77,6 +77,7 @@ pub fn json(s: &BridgeScenario, r: &BridgeRun) -> serde_json::Value {
         "peak_bus_v": r.peak_bus_v,
         "held_periods": r.held_periods,
         "reversals": r.reversals,
+        "stops": r.stops,
         "events": r.events,
         "findings": r.findings,
     })
@@ -143,6 +144,7 @@ pub fn summary(s: &BridgeScenario, r: &BridgeRun) -> String {
             }
         );
     }
+    stop_table(&mut o, s, r);
     let _ = writeln!(o, "{}", crate::report::verdict_line(r.verdict()));
     if r.acted_periods > 0 {
         let _ = writeln!(
@@ -158,6 +160,35 @@ pub fn summary(s: &BridgeScenario, r: &BridgeRun) -> String {
         }
     }
     o
+}
+
+/// The ends of drive, one line each (the low side's turn-off table, with the energy returned to
+/// the supply in place of the clamp's).
+fn stop_table(o: &mut String, s: &BridgeScenario, r: &BridgeRun) {
+    if r.stops.is_empty() {
+        return;
+    }
+    let _ = writeln!(o);
+    let _ = writeln!(
+        o,
+        "  drive ends  {:>9}  {:>9}  {:>16}  {:>11}",
+        "at",
+        "current",
+        format!("to {}", si(f64::from(s.limits.release_current), "A", 3)),
+        "returned"
+    );
+    for t in &r.stops {
+        let _ = writeln!(
+            o,
+            "              {:>9}  {:>9}  {:>16}  {:>11}",
+            si(t.t_s, "s", 5),
+            si(t.current_a, "A", 4),
+            t.decay_time_s
+                .map_or("not reached".to_string(), |d| si(d, "s", 4)),
+            si(t.returned_energy_j, "J", 3),
+        );
+    }
+    let _ = writeln!(o);
 }
 
 fn decay_name(s: &BridgeScenario) -> String {
