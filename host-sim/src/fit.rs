@@ -494,6 +494,16 @@ fn smooth(y: &[f64], w: usize) -> Vec<f64> {
         .collect()
 }
 
+/// The switch-off's resistance (winding and path) below the rise's (winding alone) by more than
+/// three standard uncertainties, when both were fitted.
+fn disagreement(f: &Fitted) -> Option<Problem> {
+    let rise = f.rise.as_ref()?.resistance;
+    let off = f.fall.as_ref()?.off_resistance?;
+    let sigma = rise.sigma.hypot(off.sigma);
+    (rise.value > 0.0 && off.value + 3.0 * sigma < rise.value)
+        .then_some(Problem::Disagree { rise, off })
+}
+
 /// Fits what the capture shows.
 pub fn fit(c: &Capture, o: &FitOptions) -> Fitted {
     let (t, y) = (&c.t, &c.i);
@@ -601,13 +611,7 @@ pub fn fit(c: &Capture, o: &FitOptions) -> Fitted {
             resistance: r.resistance.value,
         });
     }
-    if let (Some(r), Some(off)) = (&out.rise, out.fall.as_ref().and_then(|f| f.off_resistance)) {
-        let rise = r.resistance;
-        let sigma = rise.sigma.hypot(off.sigma);
-        if rise.value > 0.0 && off.value + 3.0 * sigma < rise.value {
-            out.problems.push(Problem::Disagree { rise, off });
-        }
-    }
+    out.problems.extend(disagreement(&out));
     if let Some(r) = &out.rise {
         let (lr, rr) = (r.inductance.relative(), r.resistance.relative());
         if lr > 0.05 || rr > 0.05 {

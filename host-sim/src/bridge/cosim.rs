@@ -371,10 +371,7 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
     let mut direction = 0i32; // of the last drive
     let mut pending: Option<Reversal> = None;
     let mut prev_active = Conditions::NONE;
-    // The drive applied in the period before, and the stop whose decay is being watched (with
-    // the returned energy when it began).
-    let mut last_duty = 0i32;
-    let mut open: Option<(Stop, f64)> = None;
+    let mut stops = Stops::default();
     for k in 0..periods {
         let t = k as f64 * s.period;
         let want = s.duty_in_period(k);
@@ -456,38 +453,19 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
         }
         let bus_v = r.judge(s, &out, &tally, prev_active, t);
         prev_active = out.active;
-        let ended = last_duty != 0 && out.duty.signum() != last_duty.signum();
-        if ended || (out.duty != 0 && open.is_some()) {
-            // Driven again (or ended again) before the release: the open stop never decayed.
-            if let Some((stop, _)) = open.take() {
-                r.stops.push(stop);
-            }
-        }
-        if ended {
-            let stop = Stop {
-                t_s: t,
-                current_a: i_true.abs(),
-                decay_time_s: None,
-                returned_energy_j: 0.0,
-            };
-            open = Some((stop, r.returned_energy_j - tally.returned_energy));
-        }
-        last_duty = out.duty;
-        if let Some((stop, from)) = open.as_mut() {
-            let released = if i_true.abs() <= release {
-                Some(t)
-            } else if plant.state.current.abs() <= release {
-                tally.below_at.or(Some(t + s.period))
-            } else {
-                None
-            };
-            if let Some(at) = released {
-                stop.decay_time_s = Some(at - stop.t_s);
-                stop.returned_energy_j = r.returned_energy_j - *from;
-                r.stops.push(*stop);
-                open = None;
-            }
-        }
+        let released = if i_true.abs() <= release {
+            Some(t)
+        } else if plant.state.current.abs() <= release {
+            tally.below_at.or(Some(t + s.period))
+        } else {
+            None
+        };
+        stops.period(
+            &mut r,
+            (out.duty, t, i_true),
+            tally.returned_energy,
+            released,
+        );
         if rows {
             r.rows.push(BridgeRow {
                 t_s: t,
@@ -508,9 +486,67 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
     if let Some(p) = pending {
         r.reversals.push(p);
     }
-    if let Some((mut stop, from)) = open {
-        stop.returned_energy_j = r.returned_energy_j - from;
-        r.stops.push(stop);
-    }
+    stops.finish(&mut r);
     r
+}
+
+/// Watches each end of a drive until its current is at the release level.
+#[derive(Default)]
+struct Stops {
+    /// The drive applied in the period before.
+    last_duty: i32,
+    /// The stop being watched, with the returned energy before its period.
+    open: Option<(Stop, f64)>,
+}
+
+impl Stops {
+    /// After a period whose applied duty, start and true current at the start are given, which
+    /// returned `returned` J, and in which the current was first at the release level at
+    /// `released` (if it was).
+    fn period(
+        &mut self,
+        r: &mut BridgeRun,
+        (duty, t, i_true): (i32, f64, f64),
+        returned: f64,
+        released: Option<f64>,
+    ) {
+        let ended = self.last_duty != 0 && duty.signum() != self.last_duty.signum();
+        if ended || duty != 0 {
+            // Driven again (or ended again) before the release: the open stop never decayed.
+            if let Some((stop, from)) = self.open.take() {
+                r.stops.push(Stop {
+                    returned_energy_j: r.returned_energy_j - returned - from,
+                    ..stop
+                });
+            }
+        }
+        if ended {
+            let stop = Stop {
+                t_s: t,
+                current_a: i_true.abs(),
+                decay_time_s: None,
+                returned_energy_j: 0.0,
+            };
+            self.open = Some((stop, r.returned_energy_j - returned));
+        }
+        self.last_duty = duty;
+        if let (Some((stop, from)), Some(at)) = (self.open, released) {
+            r.stops.push(Stop {
+                decay_time_s: Some(at - stop.t_s),
+                returned_energy_j: r.returned_energy_j - from,
+                ..stop
+            });
+            self.open = None;
+        }
+    }
+
+    /// At the end of the run: a stop still watched is listed as not released.
+    fn finish(self, r: &mut BridgeRun) {
+        if let Some((stop, from)) = self.open {
+            r.stops.push(Stop {
+                returned_energy_j: r.returned_energy_j - from,
+                ..stop
+            });
+        }
+    }
 }

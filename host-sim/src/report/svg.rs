@@ -151,40 +151,12 @@ fn current_panel(
         })
         .filter(|(_, v)| !v.is_empty())
         .collect();
-    let mut legend = vec![
-        (Key::Line(TRUE, 2), "true, at each period start".to_string()),
-        if wave.is_empty() {
-            (Key::Line(PEAK, 1), "true, highest in the period".into())
-        } else {
-            (Key::Line(PEAK, 1), "true, full wave".into())
-        },
-        (Key::Dashed(ESTIMATE), "guard's estimate".into()),
-        (Key::Line(BOUND, 1), "guard's bound (its tolerance)".into()),
-        (
-            Key::Dashed(LIMIT),
-            format!("trip {}", super::si(trip, "A", 3)),
-        ),
-        (
-            Key::Dashed(CEILING),
-            format!("ceiling applied {}", super::si(ceiling, "A", 3)),
-        ),
-    ];
-    if (ceiling - configured).abs() > 1e-6 * configured {
-        legend.push((
-            Key::Dashed(CONFIGURED),
-            format!("ceiling configured {}", super::si(configured, "A", 3)),
-        ));
-    }
-    legend.push((
-        Key::Dashed(RELEASE),
-        format!("release {}; ● decay ends", super::si(release, "A", 3)),
-    ));
-    if !holds.is_empty() {
-        legend.push((Key::Band(HOLD), "release-hold".into()));
-    }
-    for (name, _) in &raised {
-        legend.push((Key::Marker(marker_colour(name)), format!("raised: {name}")));
-    }
+    let legend = current_legend(
+        wave.is_empty(),
+        (trip, ceiling, configured, release),
+        !holds.is_empty(),
+        &raised,
+    );
     let mut c = plot::panel(area, t, y.clone(), "coil current (A)", &legend)?;
     plot::shade(&mut c, t, &holds, y.clone(), HOLD)?;
     plot::level(&mut c, t, trip, LIMIT)?;
@@ -233,6 +205,51 @@ fn current_panel(
         )?;
     }
     Ok(())
+}
+
+/// The current panel's legend: the traces, the levels (the configured ceiling when the clamp's
+/// rating lowers it), the holds when there are any, and each condition raised.
+fn current_legend(
+    envelope: bool,
+    (trip, ceiling, configured, release): (f64, f64, f64, f64),
+    holds: bool,
+    raised: &[(&str, Vec<f64>)],
+) -> Vec<(Key, String)> {
+    let mut legend = vec![
+        (Key::Line(TRUE, 2), "true, at each period start".to_string()),
+        if envelope {
+            (Key::Line(PEAK, 1), "true, highest in the period".into())
+        } else {
+            (Key::Line(PEAK, 1), "true, full wave".into())
+        },
+        (Key::Dashed(ESTIMATE), "guard's estimate".into()),
+        (Key::Line(BOUND, 1), "guard's bound (its tolerance)".into()),
+        (
+            Key::Dashed(LIMIT),
+            format!("trip {}", super::si(trip, "A", 3)),
+        ),
+        (
+            Key::Dashed(CEILING),
+            format!("ceiling applied {}", super::si(ceiling, "A", 3)),
+        ),
+    ];
+    if (ceiling - configured).abs() > 1e-6 * configured {
+        legend.push((
+            Key::Dashed(CONFIGURED),
+            format!("ceiling configured {}", super::si(configured, "A", 3)),
+        ));
+    }
+    legend.push((
+        Key::Dashed(RELEASE),
+        format!("release {}; ● decay ends", super::si(release, "A", 3)),
+    ));
+    if holds {
+        legend.push((Key::Band(HOLD), "release-hold".into()));
+    }
+    for (name, _) in raised {
+        legend.push((Key::Marker(marker_colour(name)), format!("raised: {name}")));
+    }
+    legend
 }
 
 /// The estimate's error against the true current, in the unit that fits.
