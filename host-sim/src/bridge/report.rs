@@ -372,39 +372,25 @@ fn error_panels(
     rows: &[BridgeRow],
     t: &TimeAxis,
 ) -> Result<(), Box<dyn std::error::Error>> {
-    let largest =
-        |f: &dyn Fn(&BridgeRow) -> f64| rows.iter().map(|x| f(x).abs()).fold(0.0, f64::max);
-    let (ke, ue) = plot::current_unit(largest(&|x| x.estimated_current_a - x.current_a));
-    let (km, um) = plot::current_unit(largest(&|x| x.bound_a - x.current_a.abs()));
-    let err = |x: &BridgeRow| (x.estimated_current_a - x.current_a) * ke;
-    let gap = |x: &BridgeRow| (x.bound_a - x.current_a.abs()) * km;
-    let zero = (Key::Dashed(REQUESTED), "zero".to_string());
-    let legend = [
-        (Key::Line(ESTIMATE, 2), "estimate − true".to_string()),
-        zero.clone(),
-    ];
-    let y = plot::span_of(rows.iter().map(err), &[0.0]);
-    let mut c = plot::panel(error, t, y, &format!("estimate's error ({ue})"), &legend)?;
-    plot::level(&mut c, t, 0.0, REQUESTED)?;
-    c.draw_series(LineSeries::new(
-        plot::series(rows, t, at, err, Pick::First),
-        ESTIMATE.stroke_width(2),
-    ))?;
-    let legend = [
+    plot::difference_panel(
+        error,
+        t,
+        (rows, at),
+        |x| x.estimated_current_a - x.current_a,
+        ("estimate's error", "estimate − true", ESTIMATE, Pick::First),
+    )?;
+    plot::difference_panel(
+        margin,
+        t,
+        (rows, at),
+        |x| x.bound_a - x.current_a.abs(),
         (
-            Key::Line(BOUND, 1),
-            "bound − |true| (least per point)".to_string(),
+            "bound's margin",
+            "bound − |true| (least per point)",
+            BOUND,
+            Pick::Low,
         ),
-        zero,
-    ];
-    let y = plot::span_of(rows.iter().map(gap), &[0.0]);
-    let mut c = plot::panel(margin, t, y, &format!("bound's margin ({um})"), &legend)?;
-    plot::level(&mut c, t, 0.0, REQUESTED)?;
-    c.draw_series(LineSeries::new(
-        plot::series(rows, t, at, gap, Pick::Low),
-        BOUND.stroke_width(1),
-    ))?;
-    Ok(())
+    )
 }
 
 /// The signed duty, requested and applied, with the holds.

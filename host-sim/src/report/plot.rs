@@ -253,6 +253,36 @@ pub enum Pick {
     Low,
 }
 
+/// A panel of one current difference against zero (the estimate's error, the bound's margin),
+/// in the unit that fits its largest magnitude: `diff` in A, drawn as `what` (its title, the
+/// legend's words, colour, and which value of a bucket is kept). With few points (event mode)
+/// each is marked.
+pub fn difference_panel<R>(
+    area: &Area,
+    t: &TimeAxis,
+    (rows, t_of): (&[R], impl Fn(&R) -> f64),
+    diff: impl Fn(&R) -> f64,
+    (title, label, colour, pick): (&str, &str, RGBColor, Pick),
+) -> Result<(), Box<dyn std::error::Error>> {
+    let largest = rows.iter().map(|x| diff(x).abs()).fold(0.0, f64::max);
+    let (k, unit) = current_unit(largest);
+    let scaled = |x: &R| diff(x) * k;
+    let y = span_of(rows.iter().map(scaled), &[0.0]);
+    let zero = RGBColor(140, 140, 140);
+    let legend = [
+        (Key::Line(colour, 2), label.to_string()),
+        (Key::Dashed(zero), "zero".into()),
+    ];
+    let mut c = panel(area, t, y, &format!("{title} ({unit})"), &legend)?;
+    level(&mut c, t, 0.0, zero)?;
+    let points = series(rows, t, t_of, scaled, pick);
+    if points.len() <= 400 {
+        c.draw_series(points.iter().map(|&p| Circle::new(p, 3, colour.filled())))?;
+    }
+    c.draw_series(LineSeries::new(points, colour.stroke_width(2)))?;
+    Ok(())
+}
+
 /// The scale and unit in which currents whose largest magnitude is `max_a` (A) read as
 /// numbers from 1 to 1000: `(1e3, "mA")` for 0.25 A.
 pub fn current_unit(max_a: f64) -> (f64, &'static str) {

@@ -91,8 +91,7 @@ pub fn write_window(
     let panels = body.split_evenly((n_panels as usize, 1));
     let wave: Vec<WavePoint> = wave.iter().filter(|w| t.shows(w.t_s)).copied().collect();
     current_panel(&panels[0], s, r, (&rows, &wave), &t)?;
-    error_panel(&panels[1], &rows, &t)?;
-    margin_panel(&panels[2], &rows, &t)?;
+    error_panels(&panels[1], &panels[2], &rows, &t)?;
     node_panel(&panels[3], s, (&rows, &wave), &t)?;
     if supply_moves {
         supply_panel(&panels[4], s, &rows, &t)?;
@@ -252,69 +251,36 @@ fn current_legend(
     legend
 }
 
-/// The estimate's error against the true current, in the unit that fits.
-fn error_panel(
-    area: &plot::Area,
-    rows: &[Row],
-    t: &TimeAxis,
-) -> Result<(), Box<dyn std::error::Error>> {
-    // Between event-mode calls the guard's figures are those of its last call: only the
-    // periods it was called at compare like with like.
-    let rows: Vec<Row> = rows.iter().filter(|x| x.called).copied().collect();
-    let rows = &rows[..];
-    let largest = rows
-        .iter()
-        .map(|x| (x.estimated_current_a - x.current_a).abs())
-        .fold(0.0, f64::max);
-    let (k, unit) = plot::current_unit(largest);
-    let err = |x: &Row| (x.estimated_current_a - x.current_a) * k;
-    let y = plot::span_of(rows.iter().map(err), &[0.0]);
-    let legend = [
-        (Key::Line(ESTIMATE, 2), "estimate − true".to_string()),
-        (Key::Dashed(REQUESTED), "zero".into()),
-    ];
-    let mut c = plot::panel(area, t, y, &format!("estimate's error ({unit})"), &legend)?;
-    plot::level(&mut c, t, 0.0, REQUESTED)?;
-    let points = plot::series(rows, t, at, err, Pick::First);
-    if points.len() <= 400 {
-        // Few calls (event mode): each one marked.
-        c.draw_series(points.iter().map(|&p| Circle::new(p, 3, ESTIMATE.filled())))?;
-    }
-    c.draw_series(LineSeries::new(points, ESTIMATE.stroke_width(2)))?;
-    Ok(())
-}
-
-/// The bound's margin over the true current, in the unit that fits (never below zero inside
-/// the declared tolerance).
-fn margin_panel(
-    area: &plot::Area,
+/// The estimate's error against the true current, and the bound's margin over it (never below
+/// zero inside the declared tolerance), each on its own axis in the unit that fits. Between
+/// event-mode calls the guard's figures are those of its last call: only the periods it was
+/// called at compare like with like.
+fn error_panels(
+    error: &plot::Area,
+    margin: &plot::Area,
     rows: &[Row],
     t: &TimeAxis,
 ) -> Result<(), Box<dyn std::error::Error>> {
     let rows: Vec<Row> = rows.iter().filter(|x| x.called).copied().collect();
-    let rows = &rows[..];
-    let largest = rows
-        .iter()
-        .map(|x| (x.bound_a - x.current_a).abs())
-        .fold(0.0, f64::max);
-    let (k, unit) = plot::current_unit(largest);
-    let margin = |x: &Row| (x.bound_a - x.current_a) * k;
-    let y = plot::span_of(rows.iter().map(margin), &[0.0]);
-    let legend = [
+    plot::difference_panel(
+        error,
+        t,
+        (&rows, at),
+        |x| x.estimated_current_a - x.current_a,
+        ("estimate's error", "estimate − true", ESTIMATE, Pick::First),
+    )?;
+    plot::difference_panel(
+        margin,
+        t,
+        (&rows, at),
+        |x| x.bound_a - x.current_a,
         (
-            Key::Line(BOUND, 1),
-            "bound − true (least per point)".to_string(),
+            "bound's margin",
+            "bound − true (least per point)",
+            BOUND,
+            Pick::Low,
         ),
-        (Key::Dashed(REQUESTED), "zero".into()),
-    ];
-    let mut c = plot::panel(area, t, y, &format!("bound's margin ({unit})"), &legend)?;
-    plot::level(&mut c, t, 0.0, REQUESTED)?;
-    let points = plot::series(rows, t, at, margin, Pick::Low);
-    if points.len() <= 400 {
-        c.draw_series(points.iter().map(|&p| Circle::new(p, 3, BOUND.filled())))?;
-    }
-    c.draw_series(LineSeries::new(points, BOUND.stroke_width(1)))?;
-    Ok(())
+    )
 }
 
 /// The switch node's highest voltage in each period against the breakdown.
