@@ -202,9 +202,8 @@ fn decay_name(s: &BridgeScenario) -> String {
     }
 }
 
-const TRUE: RGBColor = RGBColor(20, 60, 140);
+use crate::report::plot::{ESTIMATE, TRUE};
 const SPAN: RGBColor = RGBColor(150, 175, 220);
-const ESTIMATE: RGBColor = RGBColor(220, 110, 20);
 const LIMIT: RGBColor = RGBColor(170, 30, 30);
 const RELEASE: RGBColor = RGBColor(40, 120, 70);
 const HOLD: RGBColor = RGBColor(255, 214, 102);
@@ -241,33 +240,15 @@ pub fn svg_window(
     path: &Path,
     window: Option<(f64, f64)>,
 ) -> Result<(), Box<dyn std::error::Error>> {
-    let end = r.rows.last().map_or(0.0, |x| x.t_s) + s.period;
-    let (from, to) = window.unwrap_or((0.0, end));
-    let t = TimeAxis::new(from, to.min(end));
-    let rows: Vec<BridgeRow> = r
-        .rows
-        .iter()
-        .filter(|x| x.t_s + s.period > t.from_s && x.t_s <= t.to_s)
-        .copied()
-        .collect();
-    if rows.is_empty() {
-        return Err("no control period in the window to plot".into());
-    }
+    let (t, rows) = plot::window(&r.rows, at, s.period, window)?;
     let n_panels = if s.circuit.bus.is_some() { 6 } else { 5 };
-    let root = SVGBackend::new(path, (plot::WIDTH, 40 + 220 * n_panels)).into_drawing_area();
-    root.fill(&WHITE)?;
-    let (title, body) = root.split_vertically(40);
-    title.draw(&Text::new(
-        format!(
-            "{} — full bridge, {} decay — verdict: {}",
-            s.name,
-            decay_name(s),
-            r.verdict().word()
-        ),
-        (20, 12),
-        ("sans-serif", 20).into_font(),
-    ))?;
-    let panels = body.split_evenly((n_panels as usize, 1));
+    let title = format!(
+        "{} — full bridge, {} decay — verdict: {}",
+        s.name,
+        decay_name(s),
+        r.verdict().word()
+    );
+    let (root, panels) = plot::page(path, n_panels, &title)?;
     let held = plot::spans(&rows, s.period, at, |x| {
         x.conditions.contains(Condition::ReversalHold)
     });
@@ -351,17 +332,13 @@ fn current_panel(
             BOUND.stroke_width(1),
         ))?;
     }
-    c.draw_series(LineSeries::new(
-        plot::series(rows, t, at, |x| x.current_a, Pick::First),
-        TRUE.stroke_width(2),
-    ))?;
-    c.draw_series(DashedLineSeries::new(
-        plot::series(rows, t, at, |x| x.estimated_current_a, Pick::First),
-        6,
-        4,
-        ESTIMATE.stroke_width(2),
-    ))?;
-    Ok(())
+    plot::true_and_estimate(
+        &mut c,
+        t,
+        (rows, at),
+        |x| x.current_a,
+        |x| x.estimated_current_a,
+    )
 }
 
 /// The estimate's error, and the bound's margin over the true magnitude, each in the unit that

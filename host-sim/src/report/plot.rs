@@ -14,6 +14,11 @@ const LEGEND_WIDTH: u32 = 250;
 /// Width of the whole plot, px.
 pub const WIDTH: u32 = 1400;
 
+/// The true current's colour, in every plot.
+pub const TRUE: RGBColor = RGBColor(20, 60, 140);
+/// The guard's estimate's colour.
+pub const ESTIMATE: RGBColor = RGBColor(220, 110, 20);
+
 /// A drawing area of the SVG backend.
 pub type Area<'a> = DrawingArea<SVGBackend<'a>, Shift>;
 /// A panel's chart: time across, one quantity up.
@@ -70,6 +75,77 @@ impl TimeAxis {
     pub fn title(&self) -> String {
         format!("time ({})", self.unit)
     }
+}
+
+/// The window `window` (s; the whole run without one) of a run's `rows` of `period` s each:
+/// its time axis and the rows that overlap it.
+///
+/// # Errors
+/// No row in the window.
+pub fn window<R: Copy>(
+    rows: &[R],
+    t_of: impl Fn(&R) -> f64,
+    period: f64,
+    window: Option<(f64, f64)>,
+) -> Result<(TimeAxis, Vec<R>), Box<dyn std::error::Error>> {
+    let end = rows.last().map_or(0.0, &t_of) + period;
+    let (from, to) = window.unwrap_or((0.0, end));
+    let t = TimeAxis::new(from, to.min(end));
+    let shown: Vec<R> = rows
+        .iter()
+        .filter(|x| t_of(x) + period > t.from_s && t_of(x) <= t.to_s)
+        .copied()
+        .collect();
+    if shown.is_empty() {
+        return Err("no control period in the window to plot".into());
+    }
+    Ok((t, shown))
+}
+
+/// A page of `n` panels of equal height under `title`: the root (to present when drawn) and
+/// the panels.
+///
+/// # Errors
+/// The drawing's error.
+pub fn page<'a>(
+    path: &'a std::path::Path,
+    n: u32,
+    title: &str,
+) -> Result<(Area<'a>, Vec<Area<'a>>), Box<dyn std::error::Error>> {
+    let root = SVGBackend::new(path, (WIDTH, 40 + 220 * n)).into_drawing_area();
+    root.fill(&WHITE)?;
+    let (head, body) = root.split_vertically(40);
+    head.draw(&Text::new(
+        title.to_string(),
+        (20, 12),
+        ("sans-serif", 20).into_font(),
+    ))?;
+    let panels = body.split_evenly((n as usize, 1));
+    Ok((root, panels))
+}
+
+/// The true current at each period start (solid) and the guard's estimate (dashed).
+///
+/// # Errors
+/// The drawing's error.
+pub fn true_and_estimate<R>(
+    c: &mut Chart,
+    t: &TimeAxis,
+    (rows, t_of): (&[R], impl Fn(&R) -> f64 + Copy),
+    current: impl Fn(&R) -> f64,
+    estimate: impl Fn(&R) -> f64,
+) -> Result<(), Box<dyn std::error::Error>> {
+    c.draw_series(LineSeries::new(
+        series(rows, t, t_of, current, Pick::First),
+        TRUE.stroke_width(2),
+    ))?;
+    c.draw_series(DashedLineSeries::new(
+        series(rows, t, t_of, estimate, Pick::First),
+        6,
+        4,
+        ESTIMATE.stroke_width(2),
+    ))?;
+    Ok(())
 }
 
 /// How a legend entry is drawn.

@@ -18,9 +18,8 @@ use coilward::Condition;
 use plotters::prelude::*;
 use std::path::Path;
 
-const TRUE: RGBColor = RGBColor(20, 60, 140);
+use plot::{ESTIMATE, TRUE};
 const PEAK: RGBColor = RGBColor(150, 175, 220);
-const ESTIMATE: RGBColor = RGBColor(220, 110, 20);
 const BOUND: RGBColor = RGBColor(130, 50, 160);
 const LIMIT: RGBColor = RGBColor(170, 30, 30);
 const CEILING: RGBColor = RGBColor(235, 110, 30);
@@ -64,31 +63,13 @@ pub fn write_window(
     window: Option<(f64, f64)>,
     wave: &[WavePoint],
 ) -> Result<(), Box<dyn std::error::Error>> {
-    let end = r.rows.last().map_or(0.0, |x| x.t_s) + s.period;
-    let (from, to) = window.unwrap_or((0.0, end));
-    let t = TimeAxis::new(from, to.min(end));
-    let rows: Vec<Row> = r
-        .rows
-        .iter()
-        .filter(|x| x.t_s + s.period > t.from_s && x.t_s <= t.to_s)
-        .copied()
-        .collect();
-    if rows.is_empty() {
-        return Err("no control period in the window to plot".into());
-    }
+    let (t, rows) = plot::window(&r.rows, at, s.period, window)?;
     let supply_moves = rows
         .iter()
         .any(|x| (x.supply_v - rows[0].supply_v).abs() > 1e-3 * rows[0].supply_v.abs());
     let n_panels = if supply_moves { 6 } else { 5 };
-    let root = SVGBackend::new(path, (plot::WIDTH, 40 + 220 * n_panels)).into_drawing_area();
-    root.fill(&WHITE)?;
-    let (title, body) = root.split_vertically(40);
-    title.draw(&Text::new(
-        format!("{} — verdict: {}", s.name, r.verdict().word()),
-        (20, 12),
-        ("sans-serif", 20).into_font(),
-    ))?;
-    let panels = body.split_evenly((n_panels as usize, 1));
+    let title = format!("{} — verdict: {}", s.name, r.verdict().word());
+    let (root, panels) = plot::page(path, n_panels, &title)?;
     let wave: Vec<WavePoint> = wave.iter().filter(|w| t.shows(w.t_s)).copied().collect();
     current_panel(&panels[0], s, r, (&rows, &wave), &t)?;
     error_panels(&panels[1], &panels[2], &rows, &t)?;
@@ -175,16 +156,13 @@ fn current_panel(
             PEAK.stroke_width(1),
         ))?;
     }
-    c.draw_series(LineSeries::new(
-        plot::series(rows, t, at, |x| x.current_a, Pick::First),
-        TRUE.stroke_width(2),
-    ))?;
-    c.draw_series(DashedLineSeries::new(
-        plot::series(rows, t, at, |x| x.estimated_current_a, Pick::First),
-        6,
-        4,
-        ESTIMATE.stroke_width(2),
-    ))?;
+    plot::true_and_estimate(
+        &mut c,
+        t,
+        (rows, at),
+        |x| x.current_a,
+        |x| x.estimated_current_a,
+    )?;
     c.draw_series(LineSeries::new(
         plot::series(rows, t, at, |x| x.bound_a, Pick::High),
         BOUND.stroke_width(1),
