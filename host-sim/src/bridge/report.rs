@@ -378,22 +378,20 @@ fn duty_panel(
     held: &[(f64, f64)],
 ) -> Result<(), Box<dyn std::error::Error>> {
     let legend = [
-        (Key::Line(REQUESTED, 2), "requested".to_string()),
+        (Key::Line(REQUESTED, 3), "requested".to_string()),
         (Key::Line(TRUE, 1), "applied by the guard".into()),
         (Key::Band(HOLD), "reversal-hold".into()),
     ];
     let y = -105.0..105.0;
     let mut c = plot::panel(area, t, y.clone(), "duty (%), + is A to B", &legend)?;
     plot::shade(&mut c, t, held, y, HOLD)?;
-    c.draw_series(LineSeries::new(
-        plot::series(rows, t, at, |x| x.duty_requested * 100.0, Pick::First),
-        REQUESTED.stroke_width(2),
-    ))?;
-    c.draw_series(LineSeries::new(
-        plot::series(rows, t, at, |x| x.duty_applied * 100.0, Pick::First),
-        TRUE.stroke_width(1),
-    ))?;
-    Ok(())
+    plot::requested_and_applied(
+        &mut c,
+        t,
+        (rows, at),
+        |x| x.duty_requested,
+        |x| x.duty_applied,
+    )
 }
 
 /// The rotor's speed.

@@ -148,6 +148,28 @@ pub fn true_and_estimate<R>(
     Ok(())
 }
 
+/// The requested duty (wide, grey) and the applied one (thin), in %.
+///
+/// # Errors
+/// The drawing's error.
+pub fn requested_and_applied<R>(
+    c: &mut Chart,
+    t: &TimeAxis,
+    (rows, t_of): (&[R], impl Fn(&R) -> f64 + Copy),
+    requested: impl Fn(&R) -> f64,
+    applied: impl Fn(&R) -> f64,
+) -> Result<(), Box<dyn std::error::Error>> {
+    c.draw_series(LineSeries::new(
+        series(rows, t, t_of, |x| requested(x) * 100.0, Pick::First),
+        RGBColor(140, 140, 140).stroke_width(3),
+    ))?;
+    c.draw_series(LineSeries::new(
+        series(rows, t, t_of, |x| applied(x) * 100.0, Pick::First),
+        TRUE.stroke_width(1),
+    ))?;
+    Ok(())
+}
+
 /// How a legend entry is drawn.
 #[derive(Debug, Clone, Copy)]
 pub enum Key {

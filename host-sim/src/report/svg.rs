@@ -359,13 +359,11 @@ fn duty_panel(
         (Key::Line(TRUE, 1), "applied by the guard".into()),
     ];
     let mut c = plot::panel(area, t, -2.0..105.0, "duty (%)", &legend)?;
-    c.draw_series(LineSeries::new(
-        plot::series(rows, t, at, |x| x.duty_requested * 100.0, Pick::First),
-        REQUESTED.stroke_width(3),
-    ))?;
-    c.draw_series(LineSeries::new(
-        plot::series(rows, t, at, |x| x.duty_applied * 100.0, Pick::First),
-        TRUE.stroke_width(1),
-    ))?;
-    Ok(())
+    plot::requested_and_applied(
+        &mut c,
+        t,
+        (rows, at),
+        |x| x.duty_requested,
+        |x| x.duty_applied,
+    )
 }
