@@ -41,15 +41,34 @@ fn measure<R>(out: &mut hio::HostStream, name: &str, f: impl FnOnce() -> R) -> R
 #[entry]
 fn main() -> ! {
     let mut out = coilward_firmware::host_stdout();
+    measure(&mut out, "empty", || ());
     let p = black_box(trace::params());
     let l = black_box(trace::limits());
-    measure(&mut out, "empty", || ());
     let Ok(guard) = measure(&mut out, "configure", || Guard::new(&p, &l)) else {
         coilward_firmware::finish(false)
     };
+    typical(&mut out, &guard, &l);
+    worst(&mut out, &guard);
+    bridge(&mut out);
+    let _ = writeln!(
+        out,
+        "bridge-state-bytes {}",
+        core::mem::size_of::<coilward::bridge::BridgeState>()
+    );
+
+    let _ = writeln!(
+        out,
+        "state-bytes {}",
+        core::mem::size_of::<coilward::GuardState>()
+    );
+    let _ = writeln!(out, "bench done");
+    coilward_firmware::finish(true)
+}
+
+/// The estimator step and the low-side ticks a steady drive takes.
+fn typical(out: &mut hio::HostStream, guard: &Guard, l: &coilward::GuardLimits) {
     let m = guard.model();
     let vs = Volts::from_num(24);
-
     // Estimator step in steady PWM at 65 % (about 0.85 A, continuous conduction; low enough
     // that the guard's bound over the trace's declared tolerance stays under the 1.1 A ceiling,
     // so "tick" is a tick that does not limit).
@@ -58,7 +77,7 @@ fn main() -> ! {
     for _ in 0..2000 {
         m.step(&mut coil, typical, vs);
     }
-    measure(&mut out, "step", || {
+    measure(out, "step", || {
         m.step(black_box(&mut coil), black_box(typical), black_box(vs))
     });
 
@@ -67,7 +86,7 @@ fn main() -> ! {
     // declared tolerance), every replica running, nothing raised. The same duty as the period before.
     let held = 1760;
     let fp = black_box(trace::freewheel_params());
-    let Ok(hold) = Guard::new(&fp, &l) else {
+    let Ok(hold) = Guard::new(&fp, l) else {
         coilward_firmware::finish(false)
     };
     let mut s = hold.start_idle();
@@ -79,7 +98,7 @@ fn main() -> ! {
         let _ = writeln!(out, "the held tick is not a plain drive: {check:?}");
         coilward_firmware::finish(false)
     }
-    measure(&mut out, "tick", || {
+    measure(out, "tick", || {
         hold.tick(
             black_box(&mut s),
             Input::new(black_box(held), black_box(vs)),
@@ -87,7 +106,7 @@ fn main() -> ! {
     });
 
     // A new duty (the request moved by one count): the tables are read afresh.
-    measure(&mut out, "tick-new-duty", || {
+    measure(out, "tick-new-duty", || {
         hold.tick(
             black_box(&mut s),
             Input::new(black_box(held + 1), black_box(vs)),
@@ -100,7 +119,7 @@ fn main() -> ! {
     for _ in 0..2000 {
         guard.tick(&mut d, Input::new(typical, vs));
     }
-    measure(&mut out, "tick-tripped", || {
+    measure(out, "tick-tripped", || {
         guard.tick(
             black_box(&mut d),
             Input::new(black_box(typical), black_box(vs)),
@@ -122,10 +141,15 @@ fn main() -> ! {
         );
         coilward_firmware::finish(false)
     }
-    measure(&mut out, "tick-dcm", || {
+    measure(out, "tick-dcm", || {
         guard.tick(black_box(&mut d), Input::new(black_box(640), black_box(vs)))
     });
+}
 
+/// The low-side paths that can be the longest, and event mode.
+fn worst(out: &mut hio::HostStream, guard: &Guard) {
+    let m = guard.model();
+    let vs = Volts::from_num(24);
     // Paths that can be the longest: the ceiling's bisection ...
     let mut s = guard.start_idle();
     let mut limited = s;
@@ -136,7 +160,7 @@ fn main() -> ! {
             limited = before;
         }
     }
-    measure(&mut out, "tick-limit", || {
+    measure(out, "tick-limit", || {
         guard.tick(
             black_box(&mut limited),
             Input::new(black_box(3200), black_box(vs)),
@@ -145,13 +169,13 @@ fn main() -> ! {
 
     // ... a commanded turn-off checked against the clamp's pulse rating ...
     let mut off = s;
-    measure(&mut out, "tick-turnoff", || {
+    measure(out, "tick-turnoff", || {
         guard.tick(black_box(&mut off), Input::new(black_box(0), black_box(vs)))
     });
 
     // ... the release interval with its closed-form remaining time ...
     let mut held = off;
-    measure(&mut out, "tick-release", || {
+    measure(out, "tick-release", || {
         guard.tick(
             black_box(&mut held),
             Input::new(black_box(3200), black_box(vs)),
@@ -160,14 +184,14 @@ fn main() -> ! {
 
     // ... and an off-segment that reaches zero (exact turn-off energy).
     let mut dcm = guard.start_with_current(m.current_from_amps(0.004).unwrap_or(Current::ZERO));
-    measure(&mut out, "tick-zero", || {
+    measure(out, "tick-zero", || {
         guard.tick(black_box(&mut dcm), Input::new(black_box(0), black_box(vs)))
     });
 
     // Event mode.
     let mut e = guard.start_idle();
     guard.event(&mut e, true, 0, vs);
-    measure(&mut out, "event", || {
+    measure(out, "event", || {
         guard.event(
             black_box(&mut e),
             black_box(true),
@@ -175,11 +199,14 @@ fn main() -> ! {
             black_box(vs),
         )
     });
+}
 
+/// The full bridge's step and ticks.
+fn bridge(out: &mut hio::HostStream) {
     // The full bridge: the demo motor winding in mixed decay at 60 % with a 4 V back-EMF.
     let bp = black_box(trace::bridge_params());
     let bl = black_box(trace::bridge_limits());
-    let Ok(bridge) = measure(&mut out, "bridge-configure", || {
+    let Ok(bridge) = measure(out, "bridge-configure", || {
         coilward::bridge::BridgeGuard::new(&bp, &bl)
     }) else {
         coilward_firmware::finish(false)
@@ -191,7 +218,7 @@ fn main() -> ! {
     for _ in 0..2000 {
         bm.step(&mut bc, 600, vs12, emf);
     }
-    measure(&mut out, "bridge-step", || {
+    measure(out, "bridge-step", || {
         bm.step(
             black_box(&mut bc),
             black_box(600),
@@ -204,12 +231,12 @@ fn main() -> ! {
     for _ in 0..2000 {
         bridge.tick(&mut bs, input(600));
     }
-    measure(&mut out, "bridge-tick", || {
+    measure(out, "bridge-tick", || {
         bridge.tick(black_box(&mut bs), black_box(input(600)))
     });
     // A reversal request: held, with the decay time.
     let mut held = bs;
-    measure(&mut out, "bridge-tick-hold", || {
+    measure(out, "bridge-tick-hold", || {
         bridge.tick(black_box(&mut held), black_box(input(-600)))
     });
     // Plug braking at the ceiling: the bisection over whole-period predictions.
@@ -219,20 +246,7 @@ fn main() -> ! {
     for _ in 0..200 {
         bridge.tick(&mut plug, against);
     }
-    measure(&mut out, "bridge-tick-limit", || {
+    measure(out, "bridge-tick-limit", || {
         bridge.tick(black_box(&mut plug), black_box(against))
     });
-    let _ = writeln!(
-        out,
-        "bridge-state-bytes {}",
-        core::mem::size_of::<coilward::bridge::BridgeState>()
-    );
-
-    let _ = writeln!(
-        out,
-        "state-bytes {}",
-        core::mem::size_of::<coilward::GuardState>()
-    );
-    let _ = writeln!(out, "bench done");
-    coilward_firmware::finish(true)
 }

@@ -453,18 +453,12 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
         }
         let bus_v = r.judge(s, &out, &tally, prev_active, t);
         prev_active = out.active;
-        let released = if i_true.abs() <= release {
-            Some(t)
-        } else if plant.state.current.abs() <= release {
-            tally.below_at.or(Some(t + s.period))
-        } else {
-            None
-        };
+        let end = plant.state.current;
         stops.period(
             &mut r,
-            (out.duty, t, i_true),
-            tally.returned_energy,
-            released,
+            (out.duty, t, i_true, end),
+            &tally,
+            (release, s.period),
         );
         if rows {
             r.rows.push(BridgeRow {
@@ -500,16 +494,23 @@ struct Stops {
 }
 
 impl Stops {
-    /// After a period whose applied duty, start and true current at the start are given, which
-    /// returned `returned` J, and in which the current was first at the release level at
-    /// `released` (if it was).
+    /// After a period (its applied duty, start, and the true current at its start and end;
+    /// `tally` its plant's tally, watching for `release` A; `period` s long).
     fn period(
         &mut self,
         r: &mut BridgeRun,
-        (duty, t, i_true): (i32, f64, f64),
-        returned: f64,
-        released: Option<f64>,
+        (duty, t, i_true, end): (i32, f64, f64, f64),
+        tally: &BridgeTally,
+        (release, period): (f64, f64),
     ) {
+        let returned = tally.returned_energy;
+        let released = if i_true.abs() <= release {
+            Some(t)
+        } else if end.abs() <= release {
+            tally.below_at.or(Some(t + period))
+        } else {
+            None
+        };
         let ended = self.last_duty != 0 && duty.signum() != self.last_duty.signum();
         if ended || duty != 0 {
             // Driven again (or ended again) before the release: the open stop never decayed.
