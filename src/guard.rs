@@ -308,7 +308,29 @@ pub struct GuardState {
     /// The current is an assumption (after a reset), not an estimate from a known start: it
     /// holds the output off but raises no overcurrent or clamp-pulse until it has decayed.
     assumed: bool,
+}
+
+/// What a channel may keep beside its [`GuardState`] so that a drive that repeats its duty
+/// reads no table: the factors its applied duty reads from the model's and the slices' tables,
+/// marked with the guard whose tables they are (see [`Guard::tick_with`]). The results are the
+/// same bit for bit with or without it; it trades 168 bytes of RAM per channel for about half
+/// the cost of a steady tick (`cargo xtask target-bench`, `tick` against `tick-no-memo`). A
+/// memo carried to another guard (a retune) is re-evaluated, not used.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct TickMemo {
     memo: Memo,
+}
+
+impl Default for TickMemo {
+    fn default() -> Self {
+        Self::EMPTY
+    }
+}
+
+impl TickMemo {
+    /// Nothing kept yet.
+    pub const EMPTY: Self = Self { memo: Memo::NONE };
 }
 
 impl Memo {
@@ -668,7 +690,6 @@ impl Guard {
             dropped: false,
             limit_linger: 0,
             assumed: false,
-            memo: self.recall(&Memo::NONE, 0),
         }
     }
 
@@ -849,15 +870,22 @@ impl Guard {
     /// The requested `duty`, or the largest one below it that holds the bound under the ceiling
     /// (`check` is monotone in the duty), with its memo and the bound's peak in the coming
     /// period; duty 0 when none does.
-    fn limit(&self, state: &GuardState, duty: u32, vh: u32, f: u64) -> (u32, Memo, Option<i64>) {
+    fn limit(
+        &self,
+        state: &GuardState,
+        kept: &Memo,
+        duty: u32,
+        vh: u32,
+        f: u64,
+    ) -> (u32, Memo, Option<i64>) {
         // The probes of the search sit near the ceiling, where the screen fails: the slices.
         let at = |n: u32| {
-            let mut memo = self.recall(&state.memo, n);
+            let mut memo = self.recall(kept, n);
             let peak = self.check(state, &mut memo, vh, f);
             (memo, peak)
         };
         let holds = |n| at(n).1.is_some();
-        let mut memo = self.recall(&state.memo, duty);
+        let mut memo = self.recall(kept, duty);
         if let Some(p) = self
             .screen(state, &mut memo, vh, f)
             .or_else(|| self.check(state, &mut memo, vh, f))
@@ -877,7 +905,7 @@ impl Guard {
         };
         match at(lo) {
             (memo, Some(p)) => (lo, memo, Some(p)),
-            _ => (0, self.recall(&state.memo, 0), None),
+            _ => (0, self.recall(kept, 0), None),
         }
     }
 
@@ -976,19 +1004,43 @@ impl Guard {
     /// # Ok::<(), coilward::ConfigError>(())
     /// ```
     pub fn tick(&self, state: &mut GuardState, input: Input) -> Output {
+        let mut fresh = TickMemo::EMPTY;
+        self.tick_with(state, &mut fresh, input)
+    }
+
+    /// [`Guard::tick`] with the channel's [`TickMemo`]: the same result bit for bit, and a duty
+    /// repeated from the period before reads no table. Keep one memo per channel beside its
+    /// state (a memo from another guard is ignored and replaced).
+    ///
+    /// ```
+    /// # use coilward::{ClampPath, CoilParams, ControlParams, Guard, GuardLimits, Input, Params,
+    /// #                SupplyParams, SwitchParams, TickMemo, Volts};
+    /// # let params = Params::new(SupplyParams::new(24.0, 18.0, 30.0), CoilParams::new(0.04, 18.0),
+    /// #     SwitchParams::new(0.1, 60.0), ClampPath::Freewheel { forward_drop: 0.7, resistance: 0.05 },
+    /// #     ControlParams::new(50e-6, 3200, 2.0));
+    /// let guard = Guard::new(&params, &GuardLimits::new(1.0, 1.2, 0.05))?;
+    /// let (mut state, mut memo) = (guard.start_idle(), TickMemo::EMPTY);
+    /// let mut plain = guard.start_idle();
+    /// for _ in 0..100 {
+    ///     let input = Input::new(1600, Volts::from_num(24));
+    ///     assert_eq!(guard.tick_with(&mut state, &mut memo, input), guard.tick(&mut plain, input));
+    /// }
+    /// # Ok::<(), coilward::ConfigError>(())
+    /// ```
+    pub fn tick_with(&self, state: &mut GuardState, kept: &mut TickMemo, input: Input) -> Output {
         let m = &self.model;
         let vs = m.supply(input.supply);
         let n_full = m.duty_full;
         // 1. The period just ended.
         let was = state.applied.min(n_full);
-        let mut memo = self.recall(&state.memo, was);
+        let mut memo = self.recall(&kept.memo, was);
         let factors = memo.model.unwrap_or_else(|| m.duty_factors(was));
         memo.model = Some(factors);
         let est = m.step_with(&mut state.coil, was, input.supply, factors);
         let vh = self.bound.supply_hi(vs);
         let b_start = state.bound_bits();
         let (b_peak, b_end) = self.advance_period(state, &mut memo, vh);
-        state.memo = memo;
+        kept.memo = memo;
         // 2. Replicas, fed by the bound. Off-segment energy: the whole turn-off when the bound
         // decayed from above its floor to it (a release), else the chord bound (the bound's
         // decay is convex, so the chord from its peak to its end lies above it and above every
@@ -1025,7 +1077,14 @@ impl Guard {
         // Retry cooldown runs in real time.
         state.cooldown_us = state.cooldown_us.saturating_sub(self.period_us);
         let request = input.duty.min(n_full);
-        self.decide(state, est, (vs, vh), request, (energy, b_peak), true)
+        self.decide(
+            state,
+            est,
+            (vs, vh),
+            request,
+            (energy, b_peak),
+            Some(&mut kept.memo),
+        )
     }
 
     /// One on/off event: the output held its previous state for `elapsed_us` µs (pass the
@@ -1094,7 +1153,7 @@ impl Guard {
         }
         state.cooldown_us = state.cooldown_us.saturating_sub(elapsed_us);
         let request = if request_on { m.duty_full } else { 0 };
-        self.decide(state, est, (vs, vh), request, (energy, b_peak), false)
+        self.decide(state, est, (vs, vh), request, (energy, b_peak), None)
     }
 
     /// Time from the present estimate until the on-current would reach the ceiling, µs
@@ -1143,8 +1202,10 @@ impl Guard {
         (vs, vh): (u32, u32),
         request: u32,
         (energy, b_peak): (Energy, i64),
-        pwm: bool,
+        mut memo: Option<&mut Memo>,
     ) -> Output {
+        // PWM (a tick, with the duty's memo) or an event.
+        let pwm = memo.is_some();
         let f = self.stale_factor(state);
         // The bound now (decide changes no slice).
         let i0 = state.bound_bits();
@@ -1288,13 +1349,16 @@ impl Guard {
         let mut predicted = i0;
         if duty > 0 {
             if pwm {
-                let (limited, memo, peak) = self.limit(state, duty, vh, f);
+                let kept = memo.as_deref().unwrap_or(&Memo::NONE);
+                let (limited, chosen, peak) = self.limit(state, kept, duty, vh, f);
                 if limited != duty {
                     duty = limited;
                     active.insert(Condition::CurrentLimit);
                 }
                 predicted = peak.unwrap_or(i0);
-                state.memo = memo;
+                if let Some(m) = memo.as_deref_mut() {
+                    *m = chosen;
+                }
             } else if i_now >= self.ceiling {
                 duty = 0;
                 active.insert(Condition::CurrentLimit);
@@ -1385,14 +1449,6 @@ mod tests {
         },
     ];
 
-    /// The state without its memo, for comparing two channels.
-    fn forgetful(s: &GuardState) -> GuardState {
-        GuardState {
-            memo: Memo::NONE,
-            ..*s
-        }
-    }
-
     proptest::proptest! {
         #![proptest_config(proptest::prelude::ProptestConfig::with_cases(64))]
 
@@ -1407,18 +1463,17 @@ mod tests {
             let a = hard_guard(CLAMPS[clamp % 2], 20.0);
             let b = hard_guard(CLAMPS[clamp % 2], 60.0);
             proptest::prop_assert_ne!(a.fingerprint, b.fingerprint);
-            let mut kept = a.start_idle();
+            let (mut kept, mut memo) = (a.start_idle(), TickMemo::EMPTY);
             let mut forgot = a.start_idle();
             for (k, &(request, hold, supply)) in steps.iter().enumerate() {
                 // The request repeats for a while (the memo's case) and then moves.
                 let duty = request - request % 64 + hold;
                 let g = if k < steps.len() / 2 { &a } else { &b };
                 let input = Input::new(duty, Volts::from_num(supply));
-                forgot.memo = Memo::NONE;
-                let x = g.tick(&mut kept, input);
+                let x = g.tick_with(&mut kept, &mut memo, input);
                 let y = g.tick(&mut forgot, input);
                 proptest::prop_assert_eq!(x, y);
-                proptest::prop_assert_eq!(forgetful(&kept), forgetful(&forgot));
+                proptest::prop_assert_eq!(kept, forgot);
             }
         }
 
@@ -1436,7 +1491,7 @@ mod tests {
                 g.tick(&mut s, Input::new(duty, Volts::from_num(supply)));
                 let vh = g.bound.supply_hi(g.model.supply(Volts::from_num(supply)));
                 let f = g.stale_factor(&s);
-                let mut memo = g.recall(&s.memo, probe);
+                let mut memo = g.recall(&Memo::NONE, probe);
                 if let Some(p) = g.screen(&s, &mut memo, vh, f) {
                     let q = g.check(&s, &mut memo, vh, f);
                     proptest::prop_assert!(q.is_some(), "the screen passed {probe}, the slices did not");

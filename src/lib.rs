@@ -43,7 +43,7 @@ pub use condition::{Action, Condition, Conditions, Edge, Event, EventLog};
 pub use estimate::{CoilState, PeriodEstimate};
 pub use guard::{
     ClampPower, Guard, GuardLimits, GuardState, HeldRequest, Input, LIMIT_LINGER, Output, Policy,
-    Retry,
+    Retry, TickMemo,
 };
 pub use hal::{GuardedPwm, GuardedSwitch};
 pub use hold::{HoldPhase, PullInHold};

@@ -89,26 +89,37 @@ fn typical(out: &mut hio::HostStream, guard: &Guard, l: &coilward::GuardLimits) 
     let Ok(hold) = Guard::new(&fp, l) else {
         coilward_firmware::finish(false)
     };
-    let mut s = hold.start_idle();
+    let (mut s, mut memo) = (hold.start_idle(), coilward::TickMemo::EMPTY);
     for _ in 0..2000 {
-        hold.tick(&mut s, Input::new(held, vs));
+        hold.tick_with(&mut s, &mut memo, Input::new(held, vs));
     }
     let check = hold.tick(&mut s.clone(), Input::new(held, vs));
     if check.duty != held || !check.active.is_empty() {
         let _ = writeln!(out, "the held tick is not a plain drive: {check:?}");
         coilward_firmware::finish(false)
     }
+    // The channel keeps its memo (`tick_with`): the repeated duty reads no table.
+    let mut plain = s;
     measure(out, "tick", || {
-        hold.tick(
+        hold.tick_with(
             black_box(&mut s),
+            black_box(&mut memo),
+            Input::new(black_box(held), black_box(vs)),
+        )
+    });
+    // The same period through `tick`, which keeps nothing between calls.
+    measure(out, "tick-no-memo", || {
+        hold.tick(
+            black_box(&mut plain),
             Input::new(black_box(held), black_box(vs)),
         )
     });
 
     // A new duty (the request moved by one count): the tables are read afresh.
     measure(out, "tick-new-duty", || {
-        hold.tick(
+        hold.tick_with(
             black_box(&mut s),
+            black_box(&mut memo),
             Input::new(black_box(held + 1), black_box(vs)),
         )
     });

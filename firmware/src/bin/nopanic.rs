@@ -55,10 +55,13 @@ fn main() -> ! {
         &black_box(trace::ring_limits()),
     );
     let mut ring_state = ring.as_ref().ok().map(Guard::start_after_reset);
+    let mut memo = coilward::TickMemo::EMPTY;
     loop {
         if let (Ok(g), Some(s)) = (&ring, ring_state.as_mut()) {
             let v = Volts::from_bits(black_box(24 << 16));
             let out = g.tick(s, Input::new(black_box(700), v));
+            black_box(out.bound);
+            let out = g.tick_with(s, &mut memo, Input::new(black_box(701), v));
             black_box(out.bound);
             let out = g.event(s, black_box(false), black_box(4321), v);
             black_box(out.release_in_us);
