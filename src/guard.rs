@@ -1202,7 +1202,7 @@ impl Guard {
         (vs, vh): (u32, u32),
         request: u32,
         (energy, b_peak): (Energy, i64),
-        mut memo: Option<&mut Memo>,
+        memo: Option<&mut Memo>,
     ) -> Output {
         // PWM (a tick, with the duty's memo) or an event.
         let pwm = memo.is_some();
@@ -1356,7 +1356,7 @@ impl Guard {
                     active.insert(Condition::CurrentLimit);
                 }
                 predicted = peak.unwrap_or(i0);
-                if let Some(m) = memo.as_deref_mut() {
+                if let Some(m) = memo {
                     *m = chosen;
                 }
             } else if i_now >= self.ceiling {
