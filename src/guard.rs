@@ -30,8 +30,8 @@
 //!   reported, above by default a trip (the clamp margins are gone).
 //!
 //! # Cost of a tick
-//! A channel keeps the factors its applied duty reads from the tables (see
-//! [`DutyFactors`](crate::tolerance::DutyFactors)): a drive that repeats its duty evaluates no
+//! A channel may keep the factors its applied duty reads from the tables beside its state
+//! ([`TickMemo`] with [`Guard::tick_with`]): a drive that repeats its duty then evaluates no
 //! table, bit for bit the same results. The coming period is first screened with one slice (the
 //! lowest inductance, from the largest start, the off-segment at its highest): far from the
 //! ceiling that settles it, near it every slice decides. An off-segment's node-charge terms

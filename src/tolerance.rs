@@ -300,9 +300,10 @@ pub(crate) struct Bound {
 }
 
 /// The decay factors of one duty for every slice in use (`E` of its on-part and of its off-part,
-/// per slice's τ): all that a period at that duty reads from the slices' tables. A channel keeps
-/// the factors of the duty it applies (with the nominal model's two and the fingerprint of the
-/// guard whose tables they are), so a drive that repeats its duty evaluates no table; any
+/// per slice's τ): all that a period at that duty reads from the slices' tables. A channel may
+/// keep the factors of the duty it applies (with the nominal model's two and the fingerprint of
+/// the guard whose tables they are: [`crate::TickMemo`]), so a drive that repeats its duty
+/// evaluates no table; any
 /// other duty, or a guard with other tables, evaluates afresh. The results are the tables' own,
 /// bit for bit: a factor is only ever used for the table and the length it was evaluated at.
 /// The fingerprint is a 64-bit hash: two guards with different tables share one with a
