@@ -469,16 +469,9 @@ fn amps_to_raw(model: &Model, field: Field, amps: f32) -> Result<i64, ConfigErro
 /// `v_max` stays within the pulse `rating` (the energy grows with current and with supply), by
 /// bisection; configuration only.
 fn pulse_ceiling(fall: &Model, rating: Energy, v_max: Volts) -> i64 {
-    let (mut lo, mut hi) = (0i64, Current::LIMIT.to_bits());
-    while hi - lo > 1 {
-        let mid = lo + (hi - lo) / 2;
-        if fall.turn_off_energy(Current::from_bits(mid), v_max) <= rating {
-            lo = mid;
-        } else {
-            hi = mid;
-        }
-    }
-    lo
+    crate::qmath::bisect(0, Current::LIMIT.to_bits(), |i| {
+        fall.turn_off_energy(Current::from_bits(i), v_max) <= rating
+    })
 }
 
 /// A guard's current limit (A, positive, 10⁻⁶ ..= 2²¹ full scale) as raw current, through the

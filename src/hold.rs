@@ -103,18 +103,11 @@ impl PullInHold {
     /// (bisection over the counts; the full resolution if even 100 % falls short).
     pub fn hold_duty(&self, model: &Model, supply: Volts) -> u32 {
         let full = model.duty_resolution();
-        let (mut lo, mut hi) = (0u32, full);
         if model.steady_state(full, supply).mean < self.hold {
             return full;
         }
-        while hi - lo > 1 {
-            let mid = lo + (hi - lo) / 2;
-            if model.steady_state(mid, supply).mean >= self.hold {
-                hi = mid;
-            } else {
-                lo = mid;
-            }
-        }
-        hi
+        // The largest duty whose mean falls short, and one more.
+        let short = |n| model.steady_state(n, supply).mean < self.hold;
+        crate::qmath::bisect(0, full, short) + 1
     }
 }

@@ -634,12 +634,40 @@ pub(crate) fn largest_count_near(n: u32, guess: u32, fits: impl Fn(u32) -> bool)
     bisect(lo, hi, fits)
 }
 
-/// The largest count in `lo ..< hi` that `fits`, given that `lo` fits (or is 0) and `hi` does
-/// not (or is the end).
-fn bisect(lo: u32, hi: u32, fits: impl Fn(u32) -> bool) -> u32 {
+/// An integer a monotone search runs over (counts, raw currents).
+pub(crate) trait Searched: Copy + PartialOrd {
+    /// The midpoint, rounded toward the lower end.
+    fn mid(lo: Self, hi: Self) -> Self;
+    /// The next value up (saturating).
+    fn next(self) -> Self;
+}
+
+impl Searched for u32 {
+    fn mid(lo: Self, hi: Self) -> Self {
+        u32::midpoint(lo, hi)
+    }
+    fn next(self) -> Self {
+        self.saturating_add(1)
+    }
+}
+
+impl Searched for i64 {
+    fn mid(lo: Self, hi: Self) -> Self {
+        i64::midpoint(lo, hi)
+    }
+    fn next(self) -> Self {
+        self.saturating_add(1)
+    }
+}
+
+/// The largest value in `lo ..< hi` that `fits`, given that `lo` fits (or is the answer when
+/// nothing does) and `hi` does not (or is the end), for a `fits` that holds up to some value and
+/// fails above it: the one bisection of the crate (the duty limit, the hold duty, the pulse
+/// ceiling, the bridge's limits).
+pub(crate) fn bisect<T: Searched>(lo: T, hi: T, fits: impl Fn(T) -> bool) -> T {
     let (mut lo, mut hi) = (lo, hi);
-    while hi.saturating_sub(lo) > 1 {
-        let mid = lo + (hi - lo) / 2;
+    while lo.next() < hi {
+        let mid = T::mid(lo, hi);
         if fits(mid) {
             lo = mid;
         } else {
