@@ -167,6 +167,32 @@ impl BridgeRun {
         }
     }
 
+    /// The estimate's error, the bound's margin over the true magnitude `i_true`, and the
+    /// energy the guard says came back: its charge at the rail it flowed into (the `rail` read
+    /// now, less half the rise that charge made on the bus it believes in, `∫V dq`).
+    fn account(
+        &mut self,
+        s: &BridgeScenario,
+        m: &coilward::bridge::BridgeModel,
+        (state, out): (
+            &coilward::bridge::BridgeState,
+            &coilward::bridge::BridgeOutput,
+        ),
+        i_true: f64,
+        rail: f64,
+    ) {
+        let est = f64::from(m.amps(state.current()));
+        self.max_estimate_error_a = self.max_estimate_error_a.max((est - i_true).abs());
+        let margin = f64::from(m.amps(out.bound)) - i_true.abs();
+        self.min_bound_margin_a = self.min_bound_margin_a.min(margin);
+        let back = m.coulombs(out.estimate.returned);
+        let rise = s
+            .params
+            .bus
+            .map_or(0.0, |b| back / f64::from(b.capacitance));
+        self.estimated_returned_energy_j += back * (rail - rise / 2.0);
+    }
+
     /// The other direction first driven at `t` with the true current `i_true`: checked against
     /// the release level and the dead time since the true release, and recorded.
     fn reversed(
@@ -368,8 +394,7 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
         return r;
     }
     let periods = (s.duration / s.period).round() as u64;
-    let mut direction = 0i32; // of the last drive
-    let mut pending: Option<Reversal> = None;
+    let mut reversals = Reversals::default();
     let mut prev_active = Conditions::NONE;
     let mut stops = Stops::default();
     for k in 0..periods {
@@ -383,40 +408,12 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
         let rail = plant.rail();
         let vs = Volts::saturating_from_num((rail + s.reading_offset).max(0.0));
         let out = guard.tick(&mut state, BridgeInput::new(request, vs).with_back_emf(emf));
-        let est = f64::from(m.amps(state.current()));
-        let err = (est - i_true).abs();
-        r.max_estimate_error_a = r.max_estimate_error_a.max(err);
-        let margin = f64::from(m.amps(out.bound)) - i_true.abs();
-        r.min_bound_margin_a = r.min_bound_margin_a.min(margin);
-        // The charge the guard says came back, at the rail it flowed into: the rail read now,
-        // less half the rise that charge made on the bus it believes in (`∫V dq`).
-        let back = m.coulombs(out.estimate.returned);
-        let rise = s
-            .params
-            .bus
-            .map_or(0.0, |b| back / f64::from(b.capacitance));
-        r.estimated_returned_energy_j += back * (rail - rise / 2.0);
+        r.account(s, m, (&state, &out), i_true, rail);
         r.record(&out, t, (request, want, n_full));
         if out.active.contains(Condition::ReversalHold) {
             r.held_periods += 1;
         }
-        // Reversals: a request against the last drive's direction.
-        let req_dir = request.signum();
-        if req_dir != 0 && direction != 0 && req_dir != direction && pending.is_none() {
-            pending = Some(Reversal {
-                requested_s: t,
-                driven_s: None,
-                current_at_drive_a: 0.0,
-                true_release_s: None,
-            });
-        }
-        if out.duty != 0 {
-            let d = out.duty.signum();
-            if d != direction && direction != 0 {
-                r.reversed(&s.limits, pending.take(), t, i_true);
-            }
-            direction = d;
-        }
+        reversals.asked(&mut r, &s.limits, (request, out.duty), t, i_true);
         // The period on the plant.
         let mut tally = BridgeTally::starting(plant.state);
         tally.time_offset = t;
@@ -432,28 +429,10 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
             r.find("plant-stopped", t, format!("the plant stopped: {e}"));
             break;
         }
-        let peak = tally.peak_current.abs().max(tally.least_current.abs());
-        if let Some(p) = pending.as_mut() {
-            // Settled since the start of the period, since the instant inside it at which the
-            // current came down to the level, or not (still or again above it at the end).
-            let end = plant.state.current.abs();
-            if peak <= release {
-                p.true_release_s.get_or_insert(t);
-            } else if end <= release {
-                // From above: the plant's located crossing. From below and back (above in
-                // between): the end of the period, the latest it can have been.
-                p.true_release_s = if i_true.abs() > release {
-                    tally.below_at
-                } else {
-                    Some(t + s.period)
-                };
-            } else {
-                p.true_release_s = None;
-            }
-        }
+        let end = plant.state.current;
+        reversals.settled(&tally, (t, i_true, end), (release, s.period));
         let bus_v = r.judge(s, &out, &tally, prev_active, t);
         prev_active = out.active;
-        let end = plant.state.current;
         stops.period(
             &mut r,
             (out.duty, t, i_true, end),
@@ -461,27 +440,106 @@ pub fn run(s: &BridgeScenario, rows: bool) -> BridgeRun {
             (release, s.period),
         );
         if rows {
-            r.rows.push(BridgeRow {
-                t_s: t,
-                duty_requested: want,
-                duty_applied: f64::from(out.duty) / f64::from(n_full),
-                current_a: i_true,
-                peak_current_a: tally.peak_current,
-                least_current_a: tally.least_current,
-                estimated_current_a: f64::from(m.amps(out.estimate.end)),
-                speed_rad_s: plant.state.speed,
-                bus_peak_v: bus_v,
-                recirculated: out.decay == AppliedDecay::Slow,
-                bound_a: f64::from(m.amps(out.bound)),
-                conditions: out.active,
-            });
+            let at = (t, want, n_full, i_true, plant.state.speed, bus_v);
+            r.rows.push(row(m, &out, &tally, at));
         }
     }
-    if let Some(p) = pending {
+    if let Some(p) = reversals.pending {
         r.reversals.push(p);
     }
     stops.finish(&mut r);
     r
+}
+
+/// The row of the period starting at `t`: the request `want` (of `n_full` counts), the guard's
+/// output, and the plant's tally, true current at the start, speed and highest bus voltage.
+fn row(
+    m: &coilward::bridge::BridgeModel,
+    out: &coilward::bridge::BridgeOutput,
+    tally: &BridgeTally,
+    (t, want, n_full, i_true, speed, bus_v): (f64, f64, u32, f64, f64, f64),
+) -> BridgeRow {
+    BridgeRow {
+        t_s: t,
+        duty_requested: want,
+        duty_applied: f64::from(out.duty) / f64::from(n_full),
+        current_a: i_true,
+        peak_current_a: tally.peak_current,
+        least_current_a: tally.least_current,
+        estimated_current_a: f64::from(m.amps(out.estimate.end)),
+        speed_rad_s: speed,
+        bus_peak_v: bus_v,
+        recirculated: out.decay == AppliedDecay::Slow,
+        bound_a: f64::from(m.amps(out.bound)),
+        conditions: out.active,
+    }
+}
+
+/// Watches each change of direction from its request until the drive the other way.
+#[derive(Default)]
+struct Reversals {
+    /// The direction of the last drive (0 before any).
+    direction: i32,
+    /// The reversal asked for and not yet driven.
+    pending: Option<Reversal>,
+}
+
+impl Reversals {
+    /// At a tick: a `request` against the last drive's direction opens a reversal; the applied
+    /// `duty` the other way closes it (with the true current `i_true` then).
+    fn asked(
+        &mut self,
+        r: &mut BridgeRun,
+        limits: &coilward::bridge::BridgeLimits,
+        (request, duty): (i32, i32),
+        t: f64,
+        i_true: f64,
+    ) {
+        let asked = request.signum();
+        if asked != 0 && self.direction != 0 && asked != self.direction && self.pending.is_none() {
+            self.pending = Some(Reversal {
+                requested_s: t,
+                driven_s: None,
+                current_at_drive_a: 0.0,
+                true_release_s: None,
+            });
+        }
+        if duty != 0 {
+            let d = duty.signum();
+            if d != self.direction && self.direction != 0 {
+                r.reversed(limits, self.pending.take(), t, i_true);
+            }
+            self.direction = d;
+        }
+    }
+
+    /// After a period starting at `t` with the true current `i_true` and ending at `end`: when the
+    /// current settled at or below the `release` level (since the period's start, since the
+    /// plant's located crossing inside it, or not: still or again above it at the end).
+    fn settled(
+        &mut self,
+        tally: &BridgeTally,
+        (t, i_true, end): (f64, f64, f64),
+        (release, period): (f64, f64),
+    ) {
+        let Some(p) = self.pending.as_mut() else {
+            return;
+        };
+        let peak = tally.peak_current.abs().max(tally.least_current.abs());
+        if peak <= release {
+            p.true_release_s.get_or_insert(t);
+        } else if end.abs() <= release {
+            // From above: the plant's located crossing. From below and back (above in
+            // between): the end of the period, the latest it can have been.
+            p.true_release_s = if i_true.abs() > release {
+                tally.below_at
+            } else {
+                Some(t + period)
+            };
+        } else {
+            p.true_release_s = None;
+        }
+    }
 }
 
 /// Watches each end of a drive until its current is at the release level.
