@@ -691,78 +691,8 @@ fn sweep_cmd(
         .max()
         .unwrap_or(cosim::Verdict::Pass);
     print_failed(&results, failed);
-    let worst_cases: Vec<(&str, Option<&sweep::Sample>, String)> = vec![
-        (
-            "peak current",
-            sweep::worst_by(&results, |x| x.peak_current_a),
-            "A".into(),
-        ),
-        (
-            "switch-node peak",
-            sweep::worst_by(&results, |x| x.peak_drain_voltage_v),
-            "V".into(),
-        ),
-        (
-            "clamp pulse",
-            sweep::worst_by(&results, |x| x.max_pulse_energy_j),
-            "J".into(),
-        ),
-        (
-            "decay time",
-            sweep::worst_by(&results, |x| x.longest_decay_s.unwrap_or(f64::INFINITY)),
-            "s".into(),
-        ),
-        (
-            "estimate error",
-            sweep::worst_by(&results, |x| x.max_estimate_error_a),
-            "A".into(),
-        ),
-    ];
-    say!("\n  worst cases:");
-    let mut worst_json = serde_json::Map::new();
-    for (what, w, unit) in &worst_cases {
-        if let Some(w) = w {
-            let value = match *what {
-                "peak current" => w.peak_current_a,
-                "switch-node peak" => w.peak_drain_voltage_v,
-                "clamp pulse" => w.max_pulse_energy_j,
-                "decay time" => w.longest_decay_s.unwrap_or(f64::INFINITY),
-                _ => w.max_estimate_error_a,
-            };
-            let params: Vec<String> = w
-                .parameters
-                .iter()
-                .map(|(k, v)| format!("{k} {}", fmt_param(k, *v)))
-                .collect();
-            let shown = if value.is_finite() {
-                si(value, unit, 4)
-            } else {
-                "not reached".into()
-            };
-            say!(
-                "  {what:<17} {shown:>11}  sample {} ({}): {}",
-                w.index,
-                w.verdict.word(),
-                params.join(", ")
-            );
-            worst_json.insert(what.replace([' ', '-'], "_"), serde_json::json!({"value": if value.is_finite() { Some(value) } else { None }, "sample": w.index}));
-        }
-    }
-    let mut kinds: Vec<&str> = results
-        .iter()
-        .flat_map(|r| r.findings.iter().copied())
-        .collect();
-    kinds.sort_unstable();
-    kinds.dedup();
-    if !kinds.is_empty() {
-        say!("\n  findings among the samples (the limited ones: the guard acted):");
-        for k in kinds {
-            say!(
-                "  {k:<26} {} samples",
-                results.iter().filter(|r| r.findings.contains(&k)).count()
-            );
-        }
-    }
+    let worst_json = print_worst(&results);
+    print_findings(&results);
     if let Some(p) = json {
         write_file(p, "JSON results", |p| {
             let v = serde_json::json!({
@@ -782,6 +712,74 @@ fn sweep_cmd(
         })?;
     }
     Ok(verdict(worst))
+}
+
+/// One figure of a sweep's sample.
+type Figure = fn(&sweep::Sample) -> f64;
+
+/// The figures a sweep reports its worst sample for: name, unit, and the figure (a decay that
+/// never reached the release level counts as the longest).
+const WORST: [(&str, &str, Figure); 5] = [
+    ("peak current", "A", |x| x.peak_current_a),
+    ("switch-node peak", "V", |x| x.peak_drain_voltage_v),
+    ("clamp pulse", "J", |x| x.max_pulse_energy_j),
+    ("decay time", "s", |x| {
+        x.longest_decay_s.unwrap_or(f64::INFINITY)
+    }),
+    ("estimate error", "A", |x| x.max_estimate_error_a),
+];
+
+/// Prints each figure's worst sample with its drawn parameters; returns them for the JSON.
+fn print_worst(results: &[sweep::Sample]) -> serde_json::Map<String, serde_json::Value> {
+    say!("\n  worst cases:");
+    let mut worst_json = serde_json::Map::new();
+    for (what, unit, figure) in WORST {
+        let Some(w) = sweep::worst_by(results, figure) else {
+            continue;
+        };
+        let value = figure(w);
+        let params: Vec<String> = w
+            .parameters
+            .iter()
+            .map(|(k, v)| format!("{k} {}", fmt_param(k, *v)))
+            .collect();
+        let shown = if value.is_finite() {
+            si(value, unit, 4)
+        } else {
+            "not reached".into()
+        };
+        say!(
+            "  {what:<17} {shown:>11}  sample {} ({}): {}",
+            w.index,
+            w.verdict.word(),
+            params.join(", ")
+        );
+        let value = value.is_finite().then_some(value);
+        worst_json.insert(
+            what.replace([' ', '-'], "_"),
+            serde_json::json!({"value": value, "sample": w.index}),
+        );
+    }
+    worst_json
+}
+
+/// Prints how many samples each kind of finding came up in.
+fn print_findings(results: &[sweep::Sample]) {
+    let mut kinds: Vec<&str> = results
+        .iter()
+        .flat_map(|r| r.findings.iter().copied())
+        .collect();
+    kinds.sort_unstable();
+    kinds.dedup();
+    if !kinds.is_empty() {
+        say!("\n  findings among the samples (the limited ones: the guard acted):");
+        for k in kinds {
+            say!(
+                "  {k:<26} {} samples",
+                results.iter().filter(|r| r.findings.contains(&k)).count()
+            );
+        }
+    }
 }
 
 /// `t=A,i=B` into its two parts.
