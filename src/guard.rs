@@ -686,17 +686,27 @@ impl Guard {
         }
     }
 
-    /// The memo for duty `n` (`n <= duty_full`): the channel's own when it is for `n` and for
-    /// this guard's tables, else an empty one (its factors are evaluated as they are asked for).
+    /// Whether `memo` is for duty `n` and for this guard's tables.
+    fn is_for(&self, memo: &Memo, n: u32) -> bool {
+        memo.fingerprint == self.fingerprint && memo.slices.n == n
+    }
+
+    /// An empty memo for duty `n` (`n <= duty_full`): its factors are evaluated as they are
+    /// asked for.
+    fn fresh(&self, n: u32) -> Memo {
+        Memo {
+            fingerprint: self.fingerprint,
+            model: None,
+            slices: DutyFactors::empty(n),
+        }
+    }
+
+    /// The memo for duty `n`: a copy of the channel's own when it is for `n`, else a fresh one.
     fn recall(&self, kept: &Memo, n: u32) -> Memo {
-        if kept.fingerprint == self.fingerprint && kept.slices.n == n {
+        if self.is_for(kept, n) {
             *kept
         } else {
-            Memo {
-                fingerprint: self.fingerprint,
-                model: None,
-                slices: DutyFactors::empty(n),
-            }
+            self.fresh(n)
         }
     }
 
@@ -866,11 +876,25 @@ impl Guard {
     fn limit(
         &self,
         state: &GuardState,
-        kept: &Memo,
+        kept: &mut Memo,
         duty: u32,
         vh: u32,
         f: u64,
-    ) -> (u32, Memo, Option<i64>) {
+    ) -> (u32, Option<i64>) {
+        // The requested duty: in the channel's memo when it is for that duty (a steady drive:
+        // nothing copied), else in a fresh one that replaces it if the duty holds.
+        let steady = self.is_for(kept, duty);
+        let mut other = if steady { Memo::NONE } else { self.fresh(duty) };
+        let memo = if steady { &mut *kept } else { &mut other };
+        if let Some(p) = self
+            .screen(state, memo, vh, f)
+            .or_else(|| self.check(state, memo, vh, f))
+        {
+            if !steady {
+                *kept = other;
+            }
+            return (duty, Some(p));
+        }
         // The probes of the search sit near the ceiling, where the screen fails: the slices.
         let at = |n: u32| {
             let mut memo = self.recall(kept, n);
@@ -878,13 +902,6 @@ impl Guard {
             (memo, peak)
         };
         let holds = |n| at(n).1.is_some();
-        let mut memo = self.recall(kept, duty);
-        if let Some(p) = self
-            .screen(state, &mut memo, vh, f)
-            .or_else(|| self.check(state, &mut memo, vh, f))
-        {
-            return (duty, memo, Some(p));
-        }
         // Steady limiting lands next to the last duty: search outward from it.
         let last = state.applied;
         let lo = crate::qmath::largest_count_near(duty, last, holds);
@@ -896,9 +913,13 @@ impl Guard {
         } else {
             lo
         };
-        match at(lo) {
-            (memo, Some(p)) => (lo, memo, Some(p)),
-            _ => (0, self.recall(kept, 0), None),
+        let (chosen, peak) = at(lo);
+        if peak.is_some() {
+            *kept = chosen;
+            (lo, peak)
+        } else {
+            *kept = self.recall(kept, 0);
+            (0, None)
         }
     }
 
@@ -1026,14 +1047,15 @@ impl Guard {
         let n_full = m.duty_full;
         // 1. The period just ended.
         let was = state.applied.min(n_full);
-        let mut memo = self.recall(&kept.memo, was);
-        let factors = memo.model.unwrap_or_else(|| m.duty_factors(was));
-        memo.model = Some(factors);
+        let memo = &mut kept.memo;
+        if !self.is_for(memo, was) {
+            *memo = self.fresh(was);
+        }
+        let factors = *memo.model.get_or_insert_with(|| m.duty_factors(was));
         let est = m.step_with(&mut state.coil, was, input.supply, factors);
         let vh = self.bound.supply_hi(vs);
         let b_start = state.bound_bits();
-        let (b_peak, b_end) = self.advance_period(state, &mut memo, vh);
-        kept.memo = memo;
+        let (b_peak, b_end) = self.advance_period(state, memo, vh);
         // 2. Replicas, fed by the bound. Off-segment energy: the whole turn-off when the bound
         // decayed from above its floor to it (a release), else the chord bound (the bound's
         // decay is convex, so the chord from its peak to its end lies above it and above every
@@ -1342,16 +1364,14 @@ impl Guard {
         let mut predicted = i0;
         if duty > 0 {
             if pwm {
-                let kept = memo.as_deref().unwrap_or(&Memo::NONE);
-                let (limited, chosen, peak) = self.limit(state, kept, duty, vh, f);
+                let mut none = Memo::NONE;
+                let kept = memo.unwrap_or(&mut none);
+                let (limited, peak) = self.limit(state, kept, duty, vh, f);
                 if limited != duty {
                     duty = limited;
                     active.insert(Condition::CurrentLimit);
                 }
                 predicted = peak.unwrap_or(i0);
-                if let Some(m) = memo {
-                    *m = chosen;
-                }
             } else if i_now >= self.ceiling {
                 duty = 0;
                 active.insert(Condition::CurrentLimit);
