@@ -69,6 +69,10 @@ pub(crate) enum Unit {
     Micro,
 }
 
+/// `log2 |A − at|` shared by the saturation splits of one frame (the same asymptote `A` and
+/// crossing level `at`, so the same value): taken by the first split that needs it.
+pub(crate) type SharedLog = core::cell::Cell<Option<i64>>;
+
 /// One exact segment toward asymptote `a`, stopping at zero.
 #[inline(always)]
 pub(crate) fn segment(i: i64, a: i64, e: Decay) -> i64 {
@@ -89,8 +93,8 @@ fn split(
     len: u32,
     first: impl Fn(u32) -> Decay,
     second: impl Fn(u32) -> Decay,
-    at: i64,
-    tau_first: u64,
+    (at, tau_first): (i64, u64),
+    shared: Option<&SharedLog>,
 ) -> i64 {
     let i1 = segment(i0, a, first(len));
     let crosses = if a > i0 {
@@ -102,7 +106,18 @@ fn split(
         return i1;
     }
     // at lies strictly between i0 and a: both differences are positive and below 2^62.
-    let ln = crate::qmath::ln_ratio(a.abs_diff(i0), a.abs_diff(at)).saturating_sub(16);
+    let log_den = match shared.and_then(core::cell::Cell::get) {
+        Some(v) => v,
+        None => {
+            let v = crate::qmath::log2(a.abs_diff(at));
+            if let Some(c) = shared {
+                c.set(Some(v));
+            }
+            v
+        }
+    };
+    let ln =
+        crate::qmath::ln_of_logs(crate::qmath::log2(a.abs_diff(i0)), log_den).saturating_sub(16);
     let t_cross = crate::clamp::time_q64(ln, tau_first) >> 64;
     let rest = u128::from(len).saturating_sub(t_cross) as u32; // <= len
     segment(at, a, second(rest))
@@ -118,10 +133,13 @@ pub(crate) fn rise(
     len: u32,
     unsat: impl Fn(u32) -> Decay,
     sat: Option<(i64, u64, impl Fn(u32) -> Decay)>,
+    shared: Option<&SharedLog>,
 ) -> i64 {
     match sat {
         Some((at, _, sat)) if a > at && i0 >= at => segment(i0, a, sat(len)),
-        Some((at, tau, sat)) if a > at && i0 >= 0 => split(i0, a, len, unsat, sat, at, tau),
+        Some((at, tau, sat)) if a > at && i0 >= 0 => {
+            split(i0, a, len, unsat, sat, (at, tau), shared)
+        }
         _ => segment(i0, a, unsat(len)),
     }
 }
@@ -136,9 +154,12 @@ pub(crate) fn fall(
     len: u32,
     unsat: impl Fn(u32) -> Decay,
     sat: Option<(i64, u64, impl Fn(u32) -> Decay)>,
+    shared: Option<&SharedLog>,
 ) -> i64 {
     match sat {
-        Some((at, tau, sat)) if i0 > at && a < at => split(i0, a, len, sat, unsat, at, tau),
+        Some((at, tau, sat)) if i0 > at && a < at => {
+            split(i0, a, len, sat, unsat, (at, tau), shared)
+        }
         _ => segment(i0, a, unsat(len)),
     }
 }
@@ -169,7 +190,7 @@ impl Model {
             Unit::Count => s.tau_on_counts,
             Unit::Micro => self.tau_on_us,
         };
-        rise(i0, a, len, unsat, self.saturated(unit, tau_units))
+        rise(i0, a, len, unsat, self.saturated(unit, tau_units), None)
     }
 
     /// The off-segment of `len` units from `i1` toward `a`, falling through the saturation
@@ -180,7 +201,7 @@ impl Model {
             Unit::Count => self.off_duty.eval(n),
             Unit::Micro => self.off_event.eval(n),
         };
-        fall(i1, a, len, unsat, self.saturated_off(unit))
+        fall(i1, a, len, unsat, self.saturated_off(unit), None)
     }
 
     /// The saturated decay in `unit`, as [`fall`] takes it.
@@ -280,7 +301,7 @@ impl Model {
         let i0 = state.current.to_bits();
         let unsat_on = |k| if k == n { on } else { self.on_duty.eval(k) };
         let sat_on = self.saturated(Unit::Count, |s| s.tau_on_counts);
-        let i1 = rise(i0, self.on_asymptote(vs), n, unsat_on, sat_on);
+        let i1 = rise(i0, self.on_asymptote(vs), n, unsat_on, sat_on, None);
         // n <= duty_full, so the subtraction cannot wrap.
         let m = self.duty_full - n;
         let unsat_off = |k| if k == m { off } else { self.off_duty.eval(k) };
@@ -290,6 +311,7 @@ impl Model {
             m,
             unsat_off,
             self.saturated_off(Unit::Count),
+            None,
         );
         state.current = Current::from_bits(i2);
         PeriodEstimate::of(i0, i1, i2)

@@ -53,8 +53,8 @@
 //! shift is checked and every sum saturates or is bounded as commented.
 
 use crate::condition::{Action, Condition, Conditions};
-use crate::estimate::Unit;
 use crate::estimate::{CoilState, PeriodEstimate};
+use crate::estimate::{SharedLog, Unit};
 use crate::model::Model;
 use crate::params::{ConfigError, Conflict, Field, Params, positive};
 use crate::qmath::Decay;
@@ -836,15 +836,16 @@ impl Guard {
         let opened = n < full && (n > 0 || state.on_at_end);
         let mut peak = 0;
         let fr = b.off_frame(full - n, vh, opened, Unit::Count);
+        let rise_log = SharedLog::new(None);
         for j in 0..b.used() {
             let (e_on, e_off) = memo.slices.slice(b, j, full);
             let b0 = state.slice_start(j, n);
-            let b1 = b.on_slice(j, b0, n, vh, e_on).max(b0);
+            let b1 = b.on_slice((j, b0), (n, vh), e_on, &rise_log).max(b0);
             if Self::raised(b1, f) > self.ceiling {
                 return None;
             }
             let (off_peak, b2) = b.off_slice(j, b1, &fr, e_off);
-            let b3 = b.on_slice(j, b2, n, vh, e_on);
+            let b3 = b.on_slice((j, b2), (n, vh), e_on, &rise_log);
             if Self::raised(b3.max(off_peak), f) > self.ceiling {
                 return None;
             }
@@ -863,10 +864,11 @@ impl Guard {
         let n = memo.slices.n;
         let b = &self.bound;
         let (e, _) = memo.slices.slice(b, 0, self.model.duty_full);
+        let rise_log = SharedLog::new(None);
         // At or above every slice's start (the largest slice, or the ring's envelope).
         let b0 = state.bound_bits();
-        let b1 = b.on_slice(0, b0, n, vh, e).max(b0);
-        let b3 = b.on_slice(0, b.off_top(b1, vh), n, vh, e);
+        let b1 = b.on_slice((0, b0), (n, vh), e, &rise_log).max(b0);
+        let b3 = b.on_slice((0, b.off_top(b1, vh)), (n, vh), e, &rise_log);
         (Self::raised(b3, f) <= self.ceiling).then_some(b1)
     }
 
@@ -935,10 +937,11 @@ impl Guard {
         let e0 = state.envelope.current().working_bits();
         let mut opened_at = 0;
         let fr = b.off_frame(full - n, vh, opened, Unit::Count);
+        let rise_log = SharedLog::new(None);
         for j in 0..b.used() {
             let (e_on, e_off) = memo.slices.slice(b, j, full);
             let b0 = state.slice_start(j, n);
-            let b1 = b.on_slice(j, b0, n, vh, e_on);
+            let b1 = b.on_slice((j, b0), (n, vh), e_on, &rise_log);
             opened_at = opened_at.max(b1);
             let (off_peak, b2) = b.off_slice(j, b1, &fr, e_off);
             if let Some(slot) = state.bound.get_mut(j) {

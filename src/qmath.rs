@@ -447,7 +447,13 @@ pub(crate) fn log2(x: u64) -> i64 {
 ///
 /// `ln(x/y) = ln2·(log2 x − log2 y)`: no division. Absolute error below 2⁻²⁸.
 pub(crate) fn ln_ratio(x: u64, y: u64) -> u64 {
-    let d = log2(x) - log2(y);
+    ln_of_logs(log2(x), log2(y))
+}
+
+/// [`ln_ratio`] from the two logarithms, `log2 x` and `log2 y` (Q31.32, as [`log2`] gives
+/// them): for a `y` shared by several ratios, whose logarithm is taken once.
+pub(crate) fn ln_of_logs(log_x: i64, log_y: i64) -> u64 {
+    let d = log_x.saturating_sub(log_y);
     if d <= 0 {
         return 0;
     }

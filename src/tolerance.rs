@@ -74,7 +74,7 @@
 //! upper-bounding reciprocal table (`qmath::div_up`, no division at run time) with u128
 //! products, saturating.
 
-use crate::estimate::{Unit, fall, rise, segment};
+use crate::estimate::{SharedLog, Unit, fall, rise, segment};
 use crate::model::{Model, PathKind};
 use crate::params::{
     ClampPath, ConfigError, Conflict, Field, Params, Problem, Saturation, non_negative,
@@ -697,14 +697,22 @@ impl Bound {
     }
 
     /// Slice `j`'s on-segment of `n` counts from `i0` at the high supply `vh`; `e` is the
-    /// slice's on-factor for `n` ([`DutyFactors::slice`]).
+    /// slice's on-factor for `n` ([`DutyFactors::slice`]); `shared` the saturation crossing's
+    /// logarithm shared by the on-segments at `vh`.
     #[inline]
-    pub(crate) fn on_slice(&self, j: usize, i0: i64, n: u32, vh: u32, e: Decay) -> i64 {
+    pub(crate) fn on_slice(
+        &self,
+        (j, i0): (usize, i64),
+        (n, vh): (u32, u32),
+        e: Decay,
+        shared: &SharedLog,
+    ) -> i64 {
         let Some(sl) = self.slices.get(j) else {
             return self.on_event_or_whole(i0, n, vh, Unit::Count);
         };
         let table = |k| if k == n { e } else { sl.on.eval(k) };
-        self.on_with(i0, n, vh, table, sl.tau_on_counts, Unit::Count)
+        let tau = sl.tau_on_counts;
+        self.on_with(i0, n, vh, table, (tau, Unit::Count), Some(shared))
     }
 
     /// At or above every slice's off-segment (its peak and its end) from a start at or below
@@ -734,7 +742,7 @@ impl Bound {
             Unit::Count => r.on_duty.eval(k),
             Unit::Micro => r.on_event.eval(k),
         };
-        self.on_with(i0, len, vh, unsat, tau, unit)
+        self.on_with(i0, len, vh, unsat, (tau, unit), None)
     }
 
     /// An on-segment with the unsaturated decay `unsat` (its τ in the segment's units `tau`),
@@ -746,8 +754,8 @@ impl Bound {
         len: u32,
         vh: u32,
         unsat: impl Fn(u32) -> crate::qmath::Decay,
-        tau: u64,
-        unit: Unit,
+        (tau, unit): (u64, Unit),
+        shared: Option<&SharedLog>,
     ) -> i64 {
         if len == 0 {
             return i0;
@@ -757,7 +765,14 @@ impl Bound {
             // The true current falls toward an asymptote at or below this one: hold.
             return i0;
         }
-        rise(i0, a, len, unsat, self.rise.saturated(unit, |_| tau)) + ROUNDING
+        rise(
+            i0,
+            a,
+            len,
+            unsat,
+            self.rise.saturated(unit, |_| tau),
+            shared,
+        ) + ROUNDING
     }
 
     /// What an off-segment of `len` units at the high supply `vh` shares across the slices
@@ -792,6 +807,7 @@ impl Bound {
             a: self.fall.off_asymptote(vh),
             unit,
             node,
+            log: SharedLog::new(None),
         }
     }
 
@@ -842,7 +858,14 @@ impl Bound {
         let a = fr.a;
         let decay = |start: i64| {
             if a < start {
-                fall(start, a, len, &table, self.fall.saturated_off(fr.unit))
+                fall(
+                    start,
+                    a,
+                    len,
+                    &table,
+                    self.fall.saturated_off(fr.unit),
+                    Some(&fr.log),
+                )
             } else {
                 // An asymptote above the start (a supply at or above a clamp across the switch):
                 // the current rises at most to it.
@@ -884,12 +907,13 @@ impl Bound {
 /// What an off-segment of one length at one supply shares across the slices: the fall
 /// corner's asymptote and, after a turn-off with a node capacitance, the node's terms (the
 /// charge's shortest start and its raise there, computed once a period instead of once a slice).
-#[derive(Clone, Copy)]
 pub(crate) struct OffFrame {
     len: u32,
     a: i64,
     unit: Unit,
     node: Option<NodeFrame>,
+    /// The fall's saturation crossing logarithm, shared by the slices.
+    log: SharedLog,
 }
 
 /// The node's terms of an [`OffFrame`].
