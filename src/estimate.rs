@@ -106,15 +106,14 @@ fn split(
         return i1;
     }
     // at lies strictly between i0 and a: both differences are positive and below 2^62.
-    let log_den = match shared.and_then(core::cell::Cell::get) {
-        Some(v) => v,
-        None => {
-            let v = crate::qmath::log2(a.abs_diff(at));
-            if let Some(c) = shared {
-                c.set(Some(v));
-            }
-            v
+    let log_den = if let Some(v) = shared.and_then(core::cell::Cell::get) {
+        v
+    } else {
+        let v = crate::qmath::log2(a.abs_diff(at));
+        if let Some(c) = shared {
+            c.set(Some(v));
         }
+        v
     };
     let ln =
         crate::qmath::ln_of_logs(crate::qmath::log2(a.abs_diff(i0)), log_den).saturating_sub(16);
