@@ -1212,24 +1212,18 @@ impl Guard {
         }
     }
 
-    /// Conditions, actions and the duty for the coming period.
-    fn decide(
+    /// The conditions present now and their actions (`hold`: an action holds the output off;
+    /// trips are latched in the state): the supply window, the trip level, the clamp's pulse,
+    /// temperature and average power, and the winding image. An assumed current (after a reset)
+    /// stops being one once the bound is at the release level.
+    fn conditions(
         &self,
         state: &mut GuardState,
-        est: PeriodEstimate,
-        (vs, vh): (u32, u32),
-        request: u32,
-        (energy, b_peak): (Energy, i64),
-        memo: Option<&mut Memo>,
-    ) -> Output {
-        // PWM (a tick, with the duty's memo) or an event.
-        let pwm = memo.is_some();
-        let f = self.stale_factor(state);
-        // The bound now (decide changes no slice).
-        let i0 = state.bound_bits();
-        let i_now = Self::raised(i0, f);
-        let i_peak = Self::raised(b_peak, f);
-        let prev = state.active;
+        vs: u32,
+        (i_now, i_peak): (i64, i64),
+        energy: Energy,
+        prev: Conditions,
+    ) -> (Conditions, bool) {
         let mut active = Conditions::NONE;
         let mut hold = false;
         let pol = self.policy;
@@ -1318,8 +1312,12 @@ impl Guard {
             );
         }
 
-        // Trips: latched until cleared, or retried once every latched condition has been gone
-        // for the whole cooldown (the cooldown restarts while any of them is still present).
+        (active, hold)
+    }
+
+    /// Trips are latched until cleared, or retried once every latched condition has been gone
+    /// for the whole cooldown (the cooldown restarts while any of them is still present).
+    fn retry_latched(&self, state: &mut GuardState, active: Conditions) {
         if !state.latched.is_empty()
             && let Some((cooldown, max)) = self.retry
         {
@@ -1332,7 +1330,19 @@ impl Guard {
                 state.cooldown_us = cooldown;
             }
         }
+    }
 
+    /// The request after the holds: a latch or a holding action, a dropped request (until the
+    /// request goes to zero), and the release interval (a turn-on from off waits for the decay,
+    /// whose remaining time is returned).
+    fn held(
+        &self,
+        state: &mut GuardState,
+        (request, hold): (u32, bool),
+        (i_now, vh): (i64, u32),
+        active: &mut Conditions,
+    ) -> (u32, Option<u32>) {
+        let pol = self.policy;
         let mut duty = request;
         let mut release_in = None;
         if !state.latched.is_empty() || hold {
@@ -1363,6 +1373,30 @@ impl Guard {
                 .ring_time_us(state.envelope.current().working_bits(), self.release);
             release_in = decay.zip(ring).map(|(a, b)| a.max(b));
         }
+        (duty, release_in)
+    }
+
+    /// Conditions, actions and the duty for the coming period.
+    fn decide(
+        &self,
+        state: &mut GuardState,
+        est: PeriodEstimate,
+        (vs, vh): (u32, u32),
+        request: u32,
+        (energy, b_peak): (Energy, i64),
+        memo: Option<&mut Memo>,
+    ) -> Output {
+        // PWM (a tick, with the duty's memo) or an event.
+        let pwm = memo.is_some();
+        let f = self.stale_factor(state);
+        // The bound now (decide changes no slice).
+        let i0 = state.bound_bits();
+        let i_now = Self::raised(i0, f);
+        let i_peak = Self::raised(b_peak, f);
+        let prev = state.active;
+        let (mut active, hold) = self.conditions(state, vs, (i_now, i_peak), energy, prev);
+        self.retry_latched(state, active);
+        let (mut duty, release_in) = self.held(state, (request, hold), (i_now, vh), &mut active);
         // Ceiling.
         let mut predicted = i0;
         if duty > 0 {
@@ -1397,7 +1431,7 @@ impl Guard {
                 > r
         {
             active.insert(Condition::ClampPulse);
-            if pol.clamp_pulse == Action::Trip {
+            if self.policy.clamp_pulse == Action::Trip {
                 state.latched.insert(Condition::ClampPulse);
             }
         }
