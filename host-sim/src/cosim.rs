@@ -154,6 +154,9 @@ pub struct Run {
     pub missed_ticks: u64,
     /// Periods whose tick came too late for the timer (`[ticks] late`).
     pub late_ticks: u64,
+    /// The ceiling the guard applied, A: the configured one, or lower where the clamp's
+    /// single-pulse rating lowers it (0 when the guard was refused).
+    pub ceiling_a: f64,
     /// The plant sampled over [`Options::wave`]'s window.
     pub wave: Vec<WavePoint>,
 }
@@ -383,6 +386,7 @@ pub fn run_with(s: &Scenario, circuit: &Circuit, opts: Options) -> Run {
             return out;
         }
     };
+    out.ceiling_a = f64::from(guard.model().amps(guard.ceiling()));
     if let Err(e) = simulate(s, &guard, circuit, opts, &mut out) {
         // The step in which the plant stopped.
         let t_s = out.simulated_s;

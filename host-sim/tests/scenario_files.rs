@@ -152,6 +152,14 @@ fn exit_status_pass_fail_bad_input() {
     // The guard cut the current and nothing was exceeded: limited, exit status 3.
     assert_eq!(acted.status.code(), Some(3));
     assert!(String::from_utf8_lossy(&acted.stdout).contains("verdict: LIMITED"));
+    // The summary names the ceiling the guard applied, not only the configured one.
+    assert!(
+        String::from_utf8_lossy(&acted.stdout).contains(
+            "ceiling 1.550 A (configured 2.500 A, lowered for the single-pulse energy rating)"
+        ),
+        "{}",
+        String::from_utf8_lossy(&acted.stdout)
+    );
     let dir = tempfile::tempdir().unwrap();
     // A guard that believes a coil four times faster lets it on while current still flows:
     // fail, exit status 1.
@@ -263,6 +271,7 @@ fn reports_keep_their_contract() {
         assert!(t.get(key).is_some(), "turn_offs[].{key}");
     }
     assert!(v["estimate"]["max_abs_error_a"].is_f64() && v["estimate"]["rms_error_a"].is_f64());
+    assert!(v["ceiling_a"].as_f64().is_some_and(|c| c > 0.0));
     let csv = std::fs::read_to_string(&c).unwrap();
     let header = csv.lines().next().unwrap();
     assert!(header.starts_with(

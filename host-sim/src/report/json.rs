@@ -25,6 +25,7 @@ pub fn report(s: &Scenario, r: &Run) -> Value {
         "verdict": r.verdict().word(),
         "findings": r.findings,
         "peak_current_a": r.peak_current_a,
+        "ceiling_a": r.ceiling_a,
         "peak_drain_voltage_v": r.peak_drain_voltage_v,
         "max_pulse_energy_j": r.max_pulse_energy_j,
         "clamp_energy_total_j": r.clamp_energy_total_j,

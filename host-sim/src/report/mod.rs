@@ -65,12 +65,21 @@ pub fn summary(s: &Scenario, r: &Run) -> String {
     let mut o = heading(s, r);
     let l = &s.limits;
     let _ = writeln!(o);
+    let configured = f64::from(l.current_ceiling);
+    let lowered = if r.ceiling_a < configured * (1.0 - 1e-6) {
+        format!(
+            " (configured {}, lowered for the single-pulse energy rating)",
+            si(configured, "A", 4)
+        )
+    } else {
+        String::new()
+    };
     let _ = writeln!(
         o,
-        "  coil current   peak {:>10}   trip at {}, ceiling {}",
+        "  coil current   peak {:>10}   trip at {}, ceiling {}{lowered}",
         si(r.peak_current_a, "A", 4),
         si(f64::from(l.trip_current), "A", 4),
-        si(f64::from(l.current_ceiling), "A", 4)
+        si(r.ceiling_a, "A", 4)
     );
     let _ = writeln!(
         o,

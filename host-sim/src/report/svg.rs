@@ -96,9 +96,7 @@ fn current_panel(
 ) -> Result<(), Box<dyn std::error::Error>> {
     let trip = f64::from(s.limits.trip_current);
     let configured = f64::from(s.limits.current_ceiling);
-    let ceiling = s
-        .guard()
-        .map_or(configured, |g| f64::from(g.model().amps(g.ceiling())));
+    let ceiling = r.ceiling_a;
     let release = f64::from(s.limits.release_current);
     // Zoomed to a full wave, the axis fits the traces (the ripple shows); else it spans zero to
     // the trip.
