@@ -860,13 +860,13 @@ impl Guard {
     /// off-segment at its highest ([`Bound::off_top`]) and the rise again. Far from the ceiling
     /// it settles a period in two segments instead of three per slice; near it, it fails and
     /// the slices decide.
-    fn screen(&self, state: &GuardState, memo: &mut Memo, vh: u32, f: u64) -> Option<i64> {
+    /// `b0` is the bound now (the largest slice, or the ring's envelope): at or above every
+    /// slice's start.
+    fn screen(&self, b0: i64, memo: &mut Memo, vh: u32, f: u64) -> Option<i64> {
         let n = memo.slices.n;
         let b = &self.bound;
         let (e, _) = memo.slices.slice(b, 0, self.model.duty_full);
         let rise_log = SharedLog::new(None);
-        // At or above every slice's start (the largest slice, or the ring's envelope).
-        let b0 = state.bound_bits();
         let b1 = b.on_slice((0, b0), (n, vh), e, &rise_log).max(b0);
         let b3 = b.on_slice((0, b.off_top(b1, vh)), (n, vh), e, &rise_log);
         (Self::raised(b3, f) <= self.ceiling).then_some(b1)
@@ -877,7 +877,7 @@ impl Guard {
     /// period; duty 0 when none does.
     fn limit(
         &self,
-        state: &GuardState,
+        (state, b0): (&GuardState, i64),
         kept: &mut Memo,
         duty: u32,
         vh: u32,
@@ -889,7 +889,7 @@ impl Guard {
         let mut other = if steady { Memo::NONE } else { self.fresh(duty) };
         let memo = if steady { &mut *kept } else { &mut other };
         if let Some(p) = self
-            .screen(state, memo, vh, f)
+            .screen(b0, memo, vh, f)
             .or_else(|| self.check(state, memo, vh, f))
         {
             if !steady {
@@ -1403,7 +1403,7 @@ impl Guard {
             if pwm {
                 let mut none = Memo::NONE;
                 let kept = memo.unwrap_or(&mut none);
-                let (limited, peak) = self.limit(state, kept, duty, vh, f);
+                let (limited, peak) = self.limit((state, i0), kept, duty, vh, f);
                 if limited != duty {
                     duty = limited;
                     active.insert(Condition::CurrentLimit);
@@ -1542,7 +1542,7 @@ mod tests {
                 let vh = g.bound.supply_hi(g.model.supply(Volts::from_num(supply)));
                 let f = g.stale_factor(&s);
                 let mut memo = g.recall(&Memo::NONE, probe);
-                if let Some(p) = g.screen(&s, &mut memo, vh, f) {
+                if let Some(p) = g.screen(s.bound_bits(), &mut memo, vh, f) {
                     let q = g.check(&s, &mut memo, vh, f);
                     proptest::prop_assert!(q.is_some(), "the screen passed {probe}, the slices did not");
                     proptest::prop_assert!(q.unwrap_or(i64::MAX) <= p, "{q:?} > {p}");

@@ -722,9 +722,7 @@ impl Bound {
     pub(crate) fn off_top(&self, i1: i64, vh: u32) -> i64 {
         let top = i1.max(self.fall.off_asymptote(vh));
         let top = match &self.node {
-            Some(n) => top
-                .saturating_add(n.sqrt_c_over_l.apply(vh.saturating_add(n.body)) as i64)
-                .max(n.ring),
+            Some(n) => top.saturating_add(n.most_added(vh)).max(n.ring),
             None => top,
         };
         top.saturating_add(ROUNDING)
@@ -794,7 +792,7 @@ impl Bound {
                 // K·V_n², then over x rounded up (x >= x_lo >= 1).
                 let kv = n.k1.apply_u128_full(u128::from(v_n) * u128::from(v_n));
                 Some(NodeFrame {
-                    c: n.sqrt_c_over_l.apply(vh.saturating_add(n.body)) as i64,
+                    c: n.most_added(vh),
                     x_lo,
                     kv,
                     h_lo: n.raise(kv, x_lo),
@@ -930,6 +928,13 @@ struct NodeFrame {
 }
 
 impl NodeCharge {
+    /// The most the node's charge can add to a turn-off's current at the high supply `vh`,
+    /// `(V + V_bd)·√(C/L)`, raw.
+    #[inline]
+    fn most_added(&self, vh: u32) -> i64 {
+        self.sqrt_c_over_l.apply(vh.saturating_add(self.body)) as i64
+    }
+
     /// `h(x) = x + K·V_n²/x + k2` for `x >= 1` (`kv` = K·V_n²), the quotient rounded up.
     #[inline]
     fn raise(&self, kv: u128, x: i64) -> i64 {
