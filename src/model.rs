@@ -41,7 +41,7 @@ pub(crate) const MIN_PERIOD_OVER_TAU: f64 = 1.0 / 16_777_216.0;
 pub(crate) const TAU_RANGE: (f64, f64) = (1e-6, 100.0);
 
 /// Which kind of path carries the current at turn-off.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
 pub enum PathKind {
@@ -87,8 +87,39 @@ pub struct Derived {
     pub period: f32,
 }
 
+impl core::hash::Hash for Derived {
+    /// Hashes each figure's bits (for the guard's fingerprint; `f32` has no `Hash`). The
+    /// pattern names every field, so a field added later cannot be left out.
+    fn hash<H: core::hash::Hasher>(&self, h: &mut H) {
+        let Self {
+            resistance,
+            tau_on,
+            tau_off,
+            on_current_nominal,
+            path_voltage,
+            path_resistance,
+            full_scale,
+            energy_unit,
+            period,
+        } = self;
+        for v in [
+            resistance,
+            tau_on,
+            tau_off,
+            on_current_nominal,
+            path_voltage,
+            path_resistance,
+            full_scale,
+            energy_unit,
+            period,
+        ] {
+            h.write_u32(v.to_bits());
+        }
+    }
+}
+
 /// The saturated part of the on-segment (see the module documentation).
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Hash)]
 pub(crate) struct SatPart {
     /// Saturation current, raw.
     pub(crate) at: i64,
@@ -109,7 +140,7 @@ pub(crate) struct SatPart {
 }
 
 /// The immutable fixed-point model of one drive. See the module documentation.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Hash)]
 pub struct Model {
     /// Two-slope saturation, when the coil has it.
     pub(crate) saturation: Option<SatPart>,

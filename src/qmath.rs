@@ -24,7 +24,7 @@
 pub(crate) const DUTY_DIGITS: usize = 4;
 
 /// `E(x) = 1 − e^(−x)` as mantissa and shift: `E = m·2^−(32+s)`.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub(crate) struct Decay {
     pub(crate) m: u32,
@@ -43,7 +43,7 @@ impl Decay {
 }
 
 /// Table of `E(j·16^d·u)` for one time unit `u`.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub(crate) struct DecayTable<const D: usize> {
     m: [[u32; 16]; D],
     s: [u32; D],
@@ -70,17 +70,6 @@ impl<const D: usize> DecayTable<D> {
             digit_unit *= 16.0;
         }
         Self { m, s }
-    }
-
-    /// Folds every entry into a 64-bit FNV-1a hash (configuration only): the fingerprint by
-    /// which a channel's memo of evaluated factors knows the tables it came from.
-    pub(crate) fn fingerprint(&self, mut h: u64) -> u64 {
-        for w in self.m.iter().flatten().chain(self.s.iter()) {
-            for b in w.to_le_bytes() {
-                h = (h ^ u64::from(b)).wrapping_mul(0x0000_0100_0000_01b3); // FNV: wraps by design
-            }
-        }
-        h
     }
 
     /// `E(n·u)` for a count `n` (`n < 16^D`; higher digits are ignored).
@@ -152,7 +141,7 @@ fn compose(acc: u32, s: u32, e: u32, sd: u32) -> u32 {
 /// for up to 32 compositions instead of 8; the error rule is the same (under 2 units of the
 /// mantissa per composition, so below 2⁻²⁵ relative after 32, inside the 2⁻²⁴ contract).
 /// The scale of bit `d` is the largest `s` with `E(2^(d+1)·u)·2^s < 1`, as for a radix-16 digit.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub(crate) struct BitTable {
     m: [u32; 32],
     s: [u8; 32],
@@ -222,7 +211,7 @@ pub(crate) fn scale(d: i64, e: Decay) -> i64 {
 }
 
 /// A positive constant gain in floating form: `g = m·2^sh` with `m` normalised to 31..32 bits.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub(crate) struct Gain {
     m: u32,
     sh: i32,
@@ -774,6 +763,31 @@ pub(crate) fn psi(lambda: u64) -> u64 {
 /// χ(λ) in Q2.62 for λ in Q32.32, 0 <= λ <= 1. Truncation error below 2⁻³⁶.
 pub(crate) fn chi(lambda: u64) -> u64 {
     horner(&CHI, lambda.min(1 << 32))
+}
+
+/// A 64-bit FNV-1a hasher (configuration only): the guard's fingerprint is its whole
+/// configuration hashed through it ([`core::hash::Hash`]), by which a channel's memo knows the
+/// guard it was made by. Integers are folded a byte at a time, as FNV-1a is defined.
+pub(crate) struct Fnv(pub(crate) u64);
+
+impl Fnv {
+    /// FNV-1a's 64-bit offset basis.
+    pub(crate) const fn new() -> Self {
+        Self(0xcbf2_9ce4_8422_2325)
+    }
+}
+
+impl core::hash::Hasher for Fnv {
+    fn finish(&self) -> u64 {
+        self.0
+    }
+
+    fn write(&mut self, bytes: &[u8]) {
+        for &b in bytes {
+            // FNV-1a's multiply wraps by definition.
+            self.0 = (self.0 ^ u64::from(b)).wrapping_mul(0x0000_0100_0000_01b3);
+        }
+    }
 }
 
 #[cfg(test)]

@@ -127,7 +127,7 @@ impl CoilThermal {
     }
 }
 
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, Hash)]
 struct Stage {
     per_period: Decay,
     /// log2(e)/τᵢ per µs: an event of t µs decays by 2^(−t·rate).
@@ -139,7 +139,7 @@ struct Stage {
 }
 
 /// Validated clamp-device replica (see the module documentation).
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Hash)]
 pub struct ClampReplica {
     stages: [Option<Stage>; 3],
     ambient: i64,
@@ -239,9 +239,26 @@ impl ClampReplica {
 
     /// Adds one control period in which `energy` was deposited.
     pub fn period(&self, heat: &mut ClampHeat, energy: Energy) {
-        for (rise, st) in heat.rise.iter_mut().zip(self.stages.iter()) {
+        self.period_toward(heat, &self.targets(energy));
+    }
+
+    /// Each stage's steady rise for a period that deposits `energy` every period (Q32.32 K;
+    /// 0 for a stage not in use): what [`ClampReplica::period_toward`] moves toward.
+    pub(crate) fn targets(&self, energy: Energy) -> [i64; 3] {
+        let mut t = [0; 3];
+        for (t, st) in t.iter_mut().zip(self.stages.iter()) {
             if let Some(st) = st {
-                let target = st.period_gain.apply_wide(energy.to_bits()).min(1 << 62) as i64;
+                *t = st.period_gain.apply_wide(energy.to_bits()).min(1 << 62) as i64;
+            }
+        }
+        t
+    }
+
+    /// [`ClampReplica::period`] with the stages' targets taken before.
+    pub(crate) fn period_toward(&self, heat: &mut ClampHeat, targets: &[i64; 3]) {
+        let each = heat.rise.iter_mut().zip(self.stages.iter()).zip(targets);
+        for ((rise, st), &target) in each {
+            if let Some(st) = st {
                 *rise += scale(target - *rise, st.per_period);
             }
         }
@@ -280,7 +297,7 @@ impl ClampReplica {
 }
 
 /// Validated winding thermal image (see the module documentation).
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Hash)]
 pub struct CoilReplica {
     /// Reset level of the image, Q32.32 per unit.
     reset: u64,
@@ -315,6 +332,11 @@ pub struct CoilHeat {
 }
 
 impl CoilHeat {
+    /// The image θ, Q32.32 per unit.
+    pub(crate) const fn theta(self) -> u64 {
+        self.theta
+    }
+
     /// A winding already at image `theta` (per unit; 1.0 is the steady state at the basic
     /// current), e.g. `1.0` for a hot start after running at rated current.
     pub fn with_image(theta: f32) -> Self {
@@ -404,12 +426,17 @@ impl CoilReplica {
     /// Heating target q for a period with this peak and valley (mean square of a linear ramp)
     /// at the resistance of image `theta`.
     fn target_at(&self, theta: u64, peak: Current, valley: Current) -> u64 {
+        self.heat_of(Self::mean_square(peak, valley), theta)
+    }
+
+    /// 3 × the mean square of a linear ramp from `valley` to `peak`, Q40 of full scale squared.
+    fn mean_square(peak: Current, valley: Current) -> u64 {
         let p = peak.working_bits() as u64;
         let v = valley.working_bits() as u64;
         // 3 × the mean square of the ramp, p² + p·v + v² (the 1/3 is folded into
         // `square_gain`), in Q40 of full scale squared.
         // Rounded up (operands and sum): the image never runs cool by its own rounding.
-        let ms = if p < 1 << 43 && v < 1 << 43 {
+        if p < 1 << 43 && v < 1 << 43 {
             // Below 8 full scale: Q28 operands (<= 2^31), u64 products, sum < 2^64.
             let (pq, vq) = (p.div_ceil(1 << 12), v.div_ceil(1 << 12));
             (pq * pq + pq * vq + vq * vq).div_ceil(1 << 16)
@@ -418,16 +445,32 @@ impl CoilReplica {
             (p * p + p * v + v * v)
                 .div_ceil(1 << 40)
                 .min(u128::from(u64::MAX)) as u64
-        };
-        self.heat_of(ms, theta)
+        }
     }
 
     /// θ per unit for `ms` (3 × a mean square, Q40 of full scale squared) at the resistance of
     /// image `theta`: `R(T)/R(T_B)` with T from θ, ≥ 0 for validated temperatures.
     fn heat_of(&self, ms: u64, theta: u64) -> u64 {
-        let q = self.square_gain.apply_wide(ms);
+        self.heat_at(self.square_gain.apply_wide(ms), theta)
+    }
+
+    /// [`CoilReplica::heat_of`] for a gained mean square `q` ([`CoilReplica::gained`]).
+    fn heat_at(&self, q: u64, theta: u64) -> u64 {
         let factor = self.c0.saturating_add(mul_q32(theta.min(1 << 52), self.c1));
         mul_q32(q, factor).min(1 << 62)
+    }
+
+    /// The ramp from `valley` to `peak` as a period's heating before the resistance's
+    /// temperature factor: what [`CoilReplica::period_gained`] takes.
+    pub(crate) fn gained(&self, peak: Current, valley: Current) -> u64 {
+        self.square_gain.apply_wide(Self::mean_square(peak, valley))
+    }
+
+    /// [`CoilReplica::period`] with the ramp's heating taken before ([`CoilReplica::gained`]).
+    pub(crate) fn period_gained(&self, heat: &mut CoilHeat, q: u64) {
+        let q = self.heat_at(q, heat.theta) as i64;
+        let th = heat.theta as i64;
+        heat.theta = (th + scale(q - th, self.per_period)).max(0) as u64;
     }
 
     /// Heating target q for a period with this peak and valley (mean square of a linear ramp).
@@ -437,9 +480,7 @@ impl CoilReplica {
 
     /// Adds one control period with the estimate's peak and valley.
     pub fn period(&self, heat: &mut CoilHeat, peak: Current, valley: Current) {
-        let q = self.target(*heat, peak, valley) as i64;
-        let th = heat.theta as i64;
-        heat.theta = (th + scale(q - th, self.per_period)).max(0) as u64;
+        self.period_gained(heat, self.gained(peak, valley));
     }
 
     /// Adds an event of `micros` µs with the estimate's peak and valley over it:
@@ -605,13 +646,34 @@ impl CoilReplica {
         let rise = mul_q32(heat.theta, self.rise).min(1 << 62);
         I32F32::from_bits(self.ambient.saturating_add(rise as i64))
     }
+
+    /// The smallest θ whose temperature is at or above `t` (Q32.32 °C; `u64::MAX` when none
+    /// is): below it the image is colder than `t` (the temperature is monotone in θ).
+    /// Configuration only.
+    pub(crate) fn colder_than(&self, t: i64) -> u64 {
+        let colder = |theta: i64| {
+            self.temperature(&CoilHeat {
+                theta: theta as u64,
+            })
+            .to_bits()
+                < t
+        };
+        let top = (1i64 << 62) + 1;
+        if !colder(0) {
+            0
+        } else if colder(top - 1) {
+            u64::MAX
+        } else {
+            crate::qmath::bisect(0, top, colder) as u64 + 1
+        }
+    }
 }
 
 /// The clamp's average power against a limit, when no replica is configured: a first-order
 /// average of the energy per control period, `P̄ ← P̄·e^(−Δt/τ_w) + E·T/τ_w` (in energy per
 /// period; for the per-period update `e^(−T/τ_w)` is taken as `1 − T/τ_w`, its first-order
 /// form, which decays slower and so errs high).
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Hash)]
 pub(crate) struct ClampAverage {
     /// The limit, energy per period.
     limit: Energy,
@@ -862,5 +924,28 @@ mod tests {
         let got = h.theta as f64 / 4_294_967_296.0;
         let want = 0.01 * (1.0 - 2.0 * (1.0 - (-1f64).exp()) + (1.0 - (-2f64).exp()) / 2.0) / 60.0;
         assert!((got - want).abs() < 2e-3 * want, "{got} vs {want}");
+    }
+
+    /// `colder_than` is the first θ at or above a temperature: one below it is colder, it
+    /// is not (ambient 20 °C, 60 K at image 1; temperatures from below ambient to far above).
+    #[test]
+    fn colder_than_is_the_first_image_at_a_temperature() {
+        let cfg = CoilThermal::new(60.0, 1.0, 1.05, 20.0, 60.0);
+        let r = CoilReplica::new(&cfg, 50e-6, FS as f32, 20.0, 0.0).expect("valid image");
+        let t = |theta: u64| r.temperature(&CoilHeat { theta }).to_bits();
+        for c in [-40.0, 20.0, 20.000_01, 25.0, 80.0, 155.5, 1e6] {
+            let want = crate::model::q32_signed(c);
+            let at = r.colder_than(want);
+            if at == u64::MAX {
+                assert!(t(1 << 62) < want, "{c} °C");
+                continue;
+            }
+            assert!(t(at) >= want, "{c} °C at {at}");
+            assert!(at == 0 || t(at - 1) < want, "{c} °C below {at}");
+        }
+        assert_eq!(r.colder_than(crate::model::q32_signed(-40.0)), 0);
+        // 80 °C is 60 K above ambient: image 1.
+        let one = r.colder_than(crate::model::q32_signed(80.0));
+        assert!(one.abs_diff(1 << 32) < 1 << 12, "{one}");
     }
 }

@@ -239,7 +239,7 @@ const BODY_DIODE: f64 = 1.5;
 const BODY_BITS: u32 = 98_304;
 
 /// The turn-off node-charge terms (see the module documentation, item 3).
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Hash)]
 struct NodeCharge {
     /// 1.25·C/(2·L·I_fs²)·2⁴⁸: times `V_n bits²` over the current (raw) it gives the first
     /// raise in raw units.
@@ -266,7 +266,7 @@ struct NodeCharge {
 
 /// With nothing across the switch and a node capacitance: the ring that a turn-off leaves when
 /// the node peaks under the breakdown (see the module documentation, item 4).
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Hash)]
 struct Ring {
     /// At or above this current (raw) every circuit in the box avalanches at turn-off.
     certain: i64,
@@ -282,7 +282,7 @@ struct Ring {
 }
 
 /// The guard's bound: the two corner models, the reading error and the node charge.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Hash)]
 pub(crate) struct Bound {
     /// The rise corner (L_lo, R_lo, saturation at its lowest), whole box: event mode.
     pub(crate) rise: Model,
@@ -361,7 +361,7 @@ pub(crate) const SLICES: usize = 8;
 pub(crate) const SLICE_RATIO: f64 = 1.08;
 
 /// One slice `L_a ..= L_b` of the inductance range: its rise and fall tables per timer count.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Hash)]
 struct Slice {
     /// `τ = L_a/(R_lo + R_on)`.
     on: DecayTable<DUTY_DIGITS>,
@@ -686,14 +686,6 @@ impl Bound {
     #[inline]
     pub(crate) const fn used(&self) -> usize {
         self.used
-    }
-
-    /// A 64-bit hash of the slices' tables (configuration only; see [`DutyFactors`]).
-    pub(crate) fn fingerprint(&self, h: u64) -> u64 {
-        self.slices
-            .iter()
-            .take(self.used)
-            .fold(h, |h, sl| sl.off.fingerprint(sl.on.fingerprint(h)))
     }
 
     /// Slice `j`'s on-segment of `n` counts from `i0` at the high supply `vh`; `e` is the

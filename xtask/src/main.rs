@@ -310,6 +310,11 @@ fn target_bench() -> Result<(), String> {
             .lines()
             .find_map(|l| l.strip_prefix("state-bytes "))
             .unwrap_or("?");
+        let memo = text
+            .lines()
+            .find_map(|l| l.strip_prefix("memo-bytes "))
+            .unwrap_or("?");
+        let _ = writeln!(report, "size core={} memo={memo}", core.name);
         let bridge_state = text
             .lines()
             .find_map(|l| l.strip_prefix("bridge-state-bytes "))

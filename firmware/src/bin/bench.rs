@@ -61,6 +61,11 @@ fn main() -> ! {
         "state-bytes {}",
         core::mem::size_of::<coilward::GuardState>()
     );
+    let _ = writeln!(
+        out,
+        "memo-bytes {}",
+        core::mem::size_of::<coilward::TickMemo>()
+    );
     let _ = writeln!(out, "bench done");
     coilward_firmware::finish(true)
 }
