@@ -1119,7 +1119,10 @@ impl Guard {
     /// # Ok::<(), coilward::ConfigError>(())
     /// ```
     pub fn tick(&self, state: &mut GuardState, input: Input) -> Output {
-        let mut fresh = TickMemo::EMPTY;
+        // A memo for the duty being advanced over, so that `tick_with` does not replace it.
+        let mut fresh = TickMemo {
+            memo: self.fresh(state.applied.min(self.model.duty_full)),
+        };
         self.tick_with(state, &mut fresh, input)
     }
 
@@ -1234,11 +1237,15 @@ impl Guard {
                 c.gained(Current::from_bits(peak), Current::from_bits(start.min(end)))
             }),
         };
-        memo.settled = (Part::of(state) == before).then_some(Settled {
-            supply,
-            part: before,
-            period: p,
-        });
+        memo.settled = if before.is_of(state) {
+            Some(Settled {
+                supply,
+                part: before,
+                period: p,
+            })
+        } else {
+            None
+        };
         p
     }
 
