@@ -1119,11 +1119,10 @@ impl Guard {
     /// # Ok::<(), coilward::ConfigError>(())
     /// ```
     pub fn tick(&self, state: &mut GuardState, input: Input) -> Output {
-        // A memo for the duty being advanced over, so that `tick_with` does not replace it.
-        let mut fresh = TickMemo {
-            memo: self.fresh(state.applied.min(self.model.duty_full)),
-        };
-        self.tick_with(state, &mut fresh, input)
+        // A memo for the duty being advanced over, used for this call alone (no settled period
+        // is stored in it).
+        let mut fresh = self.fresh(state.applied.min(self.model.duty_full));
+        self.tick_in(state, &mut fresh, input, false)
     }
 
     /// [`Guard::tick`] with the channel's [`TickMemo`]: the same result bit for bit; a duty
@@ -1151,19 +1150,23 @@ impl Guard {
     /// # Ok::<(), coilward::ConfigError>(())
     /// ```
     pub fn tick_with(&self, state: &mut GuardState, kept: &mut TickMemo, input: Input) -> Output {
+        self.tick_in(state, &mut kept.memo, input, true)
+    }
+
+    /// A tick with `memo`; `keep`: the memo outlives the call, so a settled period is stored.
+    fn tick_in(&self, state: &mut GuardState, memo: &mut Memo, input: Input, keep: bool) -> Output {
         let m = &self.model;
         let vs = m.supply(input.supply);
         let n_full = m.duty_full;
         // 1. The period just ended.
         let was = state.applied.min(n_full);
-        let memo = &mut kept.memo;
         if !self.is_for(memo, was) {
             *memo = self.fresh(was);
         }
         let vh = self.bound.supply_hi(vs);
         let p = match &memo.settled {
             Some(k) if k.supply == input.supply && k.part.is_of(state) => k.period,
-            _ => self.period(state, memo, input.supply, vh),
+            _ => self.period(state, memo, (input.supply, vh), keep),
         };
         let energy = p.energy;
         // 2. Replicas, fed by the bound.
@@ -1185,7 +1188,7 @@ impl Guard {
             (vs, vh),
             request,
             (energy, p.now, p.peak),
-            Some(&mut kept.memo),
+            Some(memo),
         )
     }
 
@@ -1215,11 +1218,17 @@ impl Guard {
 
     /// The period just ended at the memo's duty (`n <= duty_full`), computed: the estimate's
     /// step, the bound's advance and the off-segment's energy. Kept in the memo as settled when
-    /// it left the state's [`Part`] as it found it.
-    fn period(&self, state: &mut GuardState, memo: &mut Memo, supply: Volts, vh: u32) -> Period {
+    /// it left the state's [`Part`] as it found it (`keep`: the memo outlives the call).
+    fn period(
+        &self,
+        state: &mut GuardState,
+        memo: &mut Memo,
+        (supply, vh): (Volts, u32),
+        keep: bool,
+    ) -> Period {
         let m = &self.model;
         let was = memo.slices.n;
-        let before = Part::of(state);
+        let before = keep.then(|| Part::of(state));
         let factors = *memo.model.get_or_insert_with(|| m.duty_factors(was));
         let est = m.step_with(&mut state.coil, was, supply, factors);
         let start = state.bound_bits();
@@ -1237,14 +1246,13 @@ impl Guard {
                 c.gained(Current::from_bits(peak), Current::from_bits(start.min(end)))
             }),
         };
-        memo.settled = if before.is_of(state) {
-            Some(Settled {
+        memo.settled = match before {
+            Some(part) if part.is_of(state) => Some(Settled {
                 supply,
-                part: before,
+                part,
                 period: p,
-            })
-        } else {
-            None
+            }),
+            _ => None,
         };
         p
     }
