@@ -1,6 +1,14 @@
 #!/usr/bin/env bash
 # The whole test suite on a fresh machine: installs what it needs, then runs every check.
-# The README names this as the one test command; .ci/run calls it.
+# The README names this as the one test command; .ci/run calls it with no argument (every stage).
+#
+# Usage: tools/check-all.sh [STAGE...]   stages, run in the order given:
+#   fast    format, lints, docs, the workspace's tests (the everyday loop, a few minutes)
+#   target  embedded builds, MSRV, QEMU vectors and panic-free link, the STM32 build, the bench
+#   sim     the library's examples, the simulator's demo scenarios, reports, faults, sweep, fit,
+#           and the wall-time bench against ngspice
+#   fuzz    every cargo-fuzz target for 20 s
+#   all     all of the above (the default)
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
@@ -9,10 +17,14 @@ TARGETS=(thumbv6m-none-eabi thumbv7em-none-eabihf thumbv8m.main-none-eabihf)
 
 step() { printf '\n== %s\n' "$*"; }
 
+OUT=$(mktemp -d)
+trap 'rm -rf "$OUT"' EXIT
+
 as_root() {
     if [ "$(id -u)" -eq 0 ]; then "$@"; else sudo "$@"; fi
 }
 
+setup() {
 step "toolchain: components, embedded targets, MSRV $MSRV"
 rustup component add rustfmt clippy
 rustup target add "${TARGETS[@]}"
@@ -28,6 +40,9 @@ if [ ${#missing[@]} -gt 0 ]; then
     DEBIAN_FRONTEND=noninteractive as_root apt-get install -y -qq "${missing[@]}"
 fi
 
+}
+
+fast() {
 step "format"
 cargo fmt --all -- --check
 (cd firmware && cargo fmt --all -- --check)
@@ -41,6 +56,11 @@ cargo clippy -p coilward --target thumbv7em-none-eabihf --features defmt -- -D w
 step "docs"
 RUSTDOCFLAGS="-D warnings" cargo doc --workspace --no-deps
 
+step "tests"
+cargo test --workspace
+}
+
+target() {
 step "embedded builds (no std, no alloc)"
 for t in "${TARGETS[@]}"; do
     cargo build -p coilward --release --target "$t"
@@ -49,9 +69,6 @@ done
 
 step "minimum supported Rust ($MSRV)"
 cargo "+$MSRV" check -p coilward
-
-step "tests"
-cargo test --workspace
 
 step "on the emulated cores (QEMU): test vectors, golden trace, panic-free link"
 cargo xtask target-test
@@ -62,6 +79,9 @@ step "example firmware for a real chip (STM32F401, builds only)"
 step "instruction counts and sizes on the emulated cores"
 cargo xtask target-bench
 
+}
+
+sim() {
 step "examples"
 for ex in demo_coil valve relay; do
     cargo run --quiet --example "$ex" >/dev/null
@@ -70,8 +90,6 @@ done
 step "simulator: the demo scenarios, their reports, a sweep, a fit"
 cargo build --quiet --release -p coilward-sim
 SIM=target/release/coilward-sim
-OUT=$(mktemp -d)
-trap 'rm -rf "$OUT"' EXIT
 expect() { # expect STATUS COMMAND...: the command must exit with STATUS
     local want=$1 got=0
     shift
@@ -118,6 +136,12 @@ expect 0 "$SIM" fit examples/captures/valve-pull-in.csv --supply "24 V" --on-res
     --svg "$OUT/fit.svg"
 test -s "$OUT/fit.svg"
 
+
+step "simulator against ngspice: wall time for 1 s of 20 kHz PWM, and the sweep goal"
+cargo bench --quiet -p coilward-sim --bench plant_vs_ngspice
+}
+
+fuzz() {
 step "fuzzing (cargo-fuzz on nightly): each target for 20 s, seeded with the demo files"
 rustup toolchain install nightly --profile minimal
 command -v cargo-fuzz >/dev/null 2>&1 || cargo install cargo-fuzz --locked
@@ -135,9 +159,31 @@ for t in params guard_ticks bridge_ticks scenario capture; do
         exit 1
     fi
 done
+}
 
-step "simulator against ngspice: wall time for 1 s of 20 kHz PWM, and the sweep goal"
-cargo bench --quiet -p coilward-sim --bench plant_vs_ngspice
+stages=("$@")
+[ ${#stages[@]} -eq 0 ] && stages=(all)
+for st in "${stages[@]}"; do
+    case "$st" in
+    fast | target | sim | fuzz | all) ;;
+    *)
+        echo "unknown stage '$st' (fast, target, sim, fuzz or all)" >&2
+        exit 2
+        ;;
+    esac
+done
+setup
+for st in "${stages[@]}"; do
+    case "$st" in
+    all)
+        fast
+        target
+        sim
+        fuzz
+        ;;
+    *) "$st" ;;
+    esac
+done
 
 echo
-echo "all checks passed"
+echo "checks passed: ${stages[*]}"
