@@ -69,7 +69,7 @@ pub struct CoilParams {
 /// Two-slope saturation: below [`current`](Self::current) the coil has its inductance; above it
 /// the incremental inductance `dψ/di` falls to [`inductance`](Self::inductance), so the flux
 /// linkage is `L·I_sat + L_sat·(i − I_sat)` (the piecewise-linear magnetisation curve of any
-/// electromechanics text; see `DEVELOPERS.md`).
+/// electromechanics text; see the `model` module documentation).
 ///
 /// ```
 /// use coilward::{CoilParams, Saturation};

@@ -69,6 +69,21 @@
 //! Rounding: every corner is widened by 10⁻⁶ relative, which covers the tables' 2⁻²⁴ and the
 //! gains' 2⁻³², and each segment of the bound adds 2 raw units for the truncating products.
 //!
+//! # Sources and checks
+//! Each addition to the model, its source and its check:
+//! - two-slope saturation: the RL step per piece (shared/REFERENCES.md §2) with the incremental
+//!   inductance of a piecewise-linear magnetisation curve (§11); checked against ngspice with a
+//!   flux-integrator coil and against the closed form (`host-sim/tests/soundness.rs`);
+//! - the node's charge at turn-off: energy balance of the coil and the node capacitance (§5, §10);
+//!   checked against ngspice at 4 % duty with 1 nF (`soundness.rs`);
+//! - the unclamped ring under breakdown: the series-RLC closed form and its node peak (§10,
+//!   367.06 V), against ngspice (`soundness.rs`);
+//! - the clamp's average power: a first-order average of each period's clamp energy against a
+//!   declared limit (`ClampPower`; default 0.5 W, common practice for small surface-mount clamps, no
+//!   single source), `tests/guard.rs`;
+//! - limiting with a two-period look-ahead: the duty that holds the bound at the ceiling now and in
+//!   the next period, so it settles (one count in 3200 measured, `tests/guard.rs`).
+//!
 //! # Panics
 //! None: as the estimate (see [`crate::CoilState`]); the node-charge terms divide by an
 //! upper-bounding reciprocal table (`qmath::div_up`, no division at run time) with u128

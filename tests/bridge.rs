@@ -3,7 +3,7 @@
 //! - Per-period exactness: an f64 piecewise-exponential reference written here from the
 //!   circuit equations (the exact solution of `L·di/dt = v − R·i − E` per segment, with the
 //!   diode branch chosen by the sign of the current), the same kind of reference as
-//!   `tests/contract.rs`. Bound: DEVELOPERS.md, "Numerical contract" (0.1 % of full scale).
+//!   `tests/contract.rs`. Bound: the numerical contract in `src/estimate.rs` (0.1 % of full scale).
 //! - Returned charge of a full fast-decay turn-off: the closed-form integral of the RL decay,
 //!   `Q = τ·(I0 − a·ln(1 + I0/a))` (the same textbook integral as `src/clamp.rs`), and the
 //!   energy balance `½·L·I0² = (Vs + 2V_f)·Q + R∫i²dt` (conservation of energy).
@@ -123,7 +123,7 @@ fn worst_error(decay: DecayMode, periods: usize, seed: u64) -> f64 {
 
 #[test]
 fn every_decay_mode_tracks_the_exact_solution_within_the_contract() {
-    // Contract: 0.1 % of full scale (DEVELOPERS.md); measured, printed for the contributor guide.
+    // Contract: 0.1 % of full scale (`src/estimate.rs`); measured, printed for the contributor guide.
     for decay in [
         DecayMode::Fast,
         DecayMode::Slow,

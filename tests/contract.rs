@@ -1,7 +1,7 @@
 //! The numerical contract, measured: the fixed-point estimate against an independent f64
 //! piecewise-exponential reference (`common::Reference`, the exact RL solution per segment).
 //!
-//! Bound under test (DEVELOPERS.md, "Numerical contract"): within 0.1 % of the full-scale
+//! Bound under test (the numerical contract in `src/estimate.rs`): within 0.1 % of the full-scale
 //! current, for peak, valley and end of every period, and not growing with run length.
 
 mod common;

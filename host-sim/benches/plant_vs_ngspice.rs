@@ -5,7 +5,7 @@
 //! 200 ms irrigation-valve scenario, all cores.
 //!
 //! Run: `cargo bench -p coilward-sim --bench plant_vs_ngspice` (ngspice from Debian's package).
-//! A benchmark, not a test: the figures go to the README by hand.
+//! A benchmark, not a test: the figures go to host-sim/README.md by hand.
 
 use coilward_sim::scenario::Scenario;
 use coilward_sim::spice::{self, Case};

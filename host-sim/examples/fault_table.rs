@@ -1,4 +1,4 @@
-//! Prints the fault-suite tables of the README, the low side's and the bridge's:
+//! Prints the fault-suite tables of host-sim/README.md, the low side's and the bridge's:
 //! `cargo run --release -p coilward-sim --example fault_table`.
 
 use coilward_sim::bridge::{faults as bridge_faults, scenario::BridgeScenario};

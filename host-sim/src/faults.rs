@@ -327,7 +327,7 @@ pub fn run(case: &Case) -> (Outcome, Run) {
     (o, r)
 }
 
-/// The suite's table in Markdown (README).
+/// The suite's table in Markdown (host-sim/README.md).
 pub fn table(outcomes: &[Outcome], period: f64) -> String {
     use crate::report::si;
     // A bridge's cases report the bus where a low side's report the clamp pulse.

@@ -80,7 +80,7 @@ fn detectable_faults_are_flagged_within_one_period() {
 #[test]
 fn outside_the_box_the_limits_are_what_the_table_says() {
     // Shorted turns double the current and no sensorless guard can see it: stated, and checked
-    // here so the README's table stays true.
+    // here so the table in host-sim/README.md stays true.
     let b = load("valve-at-ceiling.toml");
     let suite = faults::suite(&b);
     let find = |prefix: &str| {
@@ -152,7 +152,7 @@ fn bridge_inside_the_box_nothing_is_exceeded_door_motor_small_bus() {
             .find(|o| o.name.starts_with(prefix))
             .unwrap_or_else(|| panic!("no case {prefix}"))
     };
-    // Outside the box, as the README's bridge table says: a rotor turning against the drive
+    // Outside the box, as the bridge table in host-sim/README.md says: a rotor turning against the drive
     // that the guard is not told of passes the ceiling and the bus (no sensorless guard can
     // see it); a supply outside its window is flagged before the first period.
     let blind = find("rotor turning against the first drive, speed not given");

@@ -31,7 +31,7 @@
 //!
 //! Every part is the same exact segment as the low-side model, `i' = i + (A − i)·E(t/τ)` with
 //! the decay tables of [`crate::Model`], so the numerical contract is the same one (see
-//! `DEVELOPERS.md`, "Numerical contract"): per segment the update's relative error is below
+//! the numerical contract in `src/estimate.rs`): per segment the update's relative error is below
 //! 2⁻²⁴ of the step, plus one unit of the current format.
 //!
 //! # Charge

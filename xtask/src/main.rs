@@ -164,7 +164,7 @@ fn target_test() -> Result<(), String> {
         match build(core, &["nopanic"]) {
             Ok(()) => println!("{}: panic-free release build links", core.name),
             Err(e) => failures.push(format!(
-                "{}: a panic path is reachable (see DEVELOPERS.md, \"Panic-free link\"):\n{e}",
+                "{}: a panic path is reachable (see DEVELOPERS.md, \"On the microcontroller\"):\n{e}",
                 core.name
             )),
         }
