@@ -782,11 +782,32 @@ impl core::hash::Hasher for Fnv {
         self.0
     }
 
+    // Not inlined: the derived hashes of the configuration call these once per field, and
+    // inlining them would add kilobytes of configuration code for nothing.
+    #[inline(never)]
     fn write(&mut self, bytes: &[u8]) {
         for &b in bytes {
             // FNV-1a's multiply wraps by definition.
             self.0 = (self.0 ^ u64::from(b)).wrapping_mul(0x0000_0100_0000_01b3);
         }
+    }
+
+    #[inline(never)]
+    fn write_u64(&mut self, v: u64) {
+        self.write(&v.to_le_bytes());
+    }
+
+    #[inline(never)]
+    fn write_u32(&mut self, v: u32) {
+        self.write(&v.to_le_bytes());
+    }
+
+    fn write_i64(&mut self, v: i64) {
+        self.write_u64(v as u64);
+    }
+
+    fn write_i32(&mut self, v: i32) {
+        self.write_u32(v as u32);
     }
 }
 
