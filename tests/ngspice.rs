@@ -6,6 +6,9 @@
 //! The switch's own avalanche is represented by such a clamp at the breakdown voltage.
 //!
 //! Agreement required: 1 % on the peak current, the mean current under PWM and the decay time.
+//!
+//! Without ngspice on the `PATH` the checks are skipped with a message, unless
+//! `COILWARD_REQUIRE_TOOLS` is set (the test command sets it, so there they always run).
 
 mod common;
 
@@ -15,6 +18,20 @@ use std::fmt::Write as _;
 use std::process::Command;
 
 const TOL: f64 = 0.01;
+
+/// Whether the checks can run: ngspice answers, or its absence is an error when the test
+/// command asked for every tool (`COILWARD_REQUIRE_TOOLS`).
+fn ngspice_present() -> bool {
+    let present = Command::new("ngspice").arg("--version").output().is_ok();
+    assert!(
+        present || std::env::var_os("COILWARD_REQUIRE_TOOLS").is_none(),
+        "ngspice must be installed (the README's test command installs it: apt-get install ngspice)"
+    );
+    if !present {
+        eprintln!("ngspice is not installed: the cross-checks against it are skipped");
+    }
+    present
+}
 
 /// Runs a netlist through ngspice in batch mode and returns its `.meas` results.
 fn ngspice(name: &str, netlist: &str) -> HashMap<String, f64> {
@@ -121,6 +138,9 @@ fn paths() -> Vec<(&'static str, ClampPath, u32)> {
 
 #[test]
 fn turn_on_peak_and_decay_time_agree_with_ngspice() {
+    if !ngspice_present() {
+        return;
+    }
     for (name, clamp, _) in paths() {
         let p = common::valve_with(clamp);
         let m: Model = p.validate().unwrap();
@@ -150,6 +170,9 @@ fn turn_on_peak_and_decay_time_agree_with_ngspice() {
 
 #[test]
 fn pwm_mean_and_peak_agree_with_ngspice() {
+    if !ngspice_present() {
+        return;
+    }
     // 500 periods = 25 ms from rest (11 τ, within 2·10⁻⁵ of the periodic state); the estimator
     // runs the same drive, and its steady-state helper gives the periodic mean. The four
     // circuits run two at a time (the machines have two cores).
