@@ -245,7 +245,21 @@ impl fmt::Display for Event {
 
 /// A fixed-capacity ring of the most recent events. When full the oldest event is dropped and
 /// counted, so nothing is lost silently.
+///
+/// ```
+/// use coilward::{Condition, Conditions, EventLog};
+/// let mut log = EventLog::<2>::new();
+/// let limit = Conditions::NONE.with(Condition::CurrentLimit);
+/// log.record(100, limit, Conditions::NONE); // raised at t = 100 (the firmware's clock)
+/// log.record(250, Conditions::NONE, limit); // cleared
+/// log.record(900, Conditions::NONE.with(Condition::Overcurrent), Conditions::NONE);
+/// // Two slots: the oldest was dropped, and counted.
+/// assert_eq!((log.len(), log.dropped()), (2, 1));
+/// let first = log.pop().unwrap();
+/// assert_eq!(format!("{first}"), "250 current-limit cleared");
+/// ```
 #[derive(Debug, Clone)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct EventLog<const N: usize> {
     ring: heapless::Deque<Event, N>,
     dropped: u32,

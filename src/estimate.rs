@@ -113,6 +113,7 @@ impl CoilState {
 /// What the estimator says about one period (or one event segment).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
 pub struct PeriodEstimate {
     /// Current at the start.
     pub start: Current,

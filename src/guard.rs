@@ -250,6 +250,7 @@ impl Input {
 /// What the guard decided.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
 pub struct Output {
     /// Duty to apply for the coming period, counts (in event mode: the resolution = on, 0 = off).
     pub duty: u32,

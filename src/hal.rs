@@ -32,6 +32,46 @@ fn settle<E>(
 }
 
 /// A PWM channel whose duty is always the guard's decision.
+///
+/// ```
+/// use coilward::{ClampPath, CoilParams, ControlParams, Guard, GuardLimits, GuardedPwm, Params,
+///                SupplyParams, SwitchParams, Volts};
+/// use embedded_hal::pwm::{ErrorType, SetDutyCycle};
+///
+/// /// A timer channel with 3200 counts (a HAL's PWM channel in real firmware).
+/// struct Channel(u16);
+/// impl ErrorType for Channel {
+///     type Error = core::convert::Infallible;
+/// }
+/// impl SetDutyCycle for Channel {
+///     fn max_duty_cycle(&self) -> u16 {
+///         3200
+///     }
+///     fn set_duty_cycle(&mut self, duty: u16) -> Result<(), Self::Error> {
+///         self.0 = duty;
+///         Ok(())
+///     }
+/// }
+///
+/// let params = Params::new(
+///     SupplyParams::new(24.0, 18.0, 30.0),
+///     CoilParams::new(0.040, 18.0),
+///     SwitchParams::new(0.1, 60.0),
+///     ClampPath::Freewheel { forward_drop: 0.7, resistance: 0.05 },
+///     ControlParams::new(50e-6, 3200, 2.0),
+/// );
+/// let guard = Guard::new(&params, &GuardLimits::new(1.0, 1.2, 0.05))?;
+/// let mut pwm = GuardedPwm::new(&guard, guard.start_idle(), Channel(0));
+/// // Once per period: full duty requested; the guard limits it to hold the 1 A ceiling.
+/// let mut out = None;
+/// for _ in 0..400 {
+///     out = Some(pwm.period(3200, Volts::from_num(24)).unwrap());
+/// }
+/// let (channel, _state) = pwm.release();
+/// assert_eq!(u32::from(channel.0), out.unwrap().duty);
+/// assert!(channel.0 < 3200);
+/// # Ok::<(), coilward::ConfigError>(())
+/// ```
 #[derive(Debug)]
 pub struct GuardedPwm<'g, P> {
     guard: &'g Guard,

@@ -15,6 +15,32 @@ use crate::params::{ConfigError, Field, positive};
 use crate::units::{Current, Volts};
 
 /// A pull-in-and-hold plan (validated against a model).
+///
+/// ```
+/// use coilward::{ClampPath, CoilParams, CoilState, ControlParams, HoldPhase, Params,
+///                PullInHold, SupplyParams, SwitchParams, Volts};
+/// let model = Params::new(
+///     SupplyParams::new(24.0, 18.0, 30.0),
+///     CoilParams::new(0.040, 18.0),
+///     SwitchParams::new(0.1, 60.0),
+///     ClampPath::Freewheel { forward_drop: 0.7, resistance: 0.05 },
+///     ControlParams::new(50e-6, 3200, 2.0),
+/// )
+/// .validate()?;
+/// // Pull in to 1.2 A (for at most 20 ms), then hold at 0.4 A.
+/// let plan = PullInHold::new(&model, 1.2, 0.02, 0.4)?;
+/// let (mut phase, mut coil) = (HoldPhase::default(), CoilState::idle());
+/// let vs = Volts::from_num(24);
+/// for _ in 0..2000 {
+///     let duty = plan.duty(&model, &mut phase, coil.current(), vs);
+///     model.step(&mut coil, duty, vs);
+/// }
+/// assert!(phase.holding());
+/// // Held by PWM at (just above) the hold current.
+/// let amps = model.amps(coil.current());
+/// assert!(amps > 0.39 && amps < 0.45, "{amps}");
+/// # Ok::<(), coilward::ConfigError>(())
+/// ```
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct PullInHold {

@@ -170,6 +170,7 @@ impl BridgeInput {
 /// What the bridge guard decided.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
 pub struct BridgeOutput {
     /// Signed duty for the coming period, counts.
     pub duty: i32,
