@@ -77,7 +77,7 @@ step "on the emulated cores (QEMU): test vectors, golden trace, panic-free link"
 cargo xtask target-test
 
 step "the package as published (the library, its tests and examples)"
-cargo publish --dry-run -p coilward
+cargo publish --dry-run --allow-dirty -p coilward
 
 step "example firmware for a real chip (STM32F401, builds only)"
 (cd firmware && cargo build --release --target thumbv7em-none-eabihf -p coilward-stm32f4-valve)
