@@ -92,29 +92,17 @@ impl core::hash::Hash for Derived {
     /// pattern names every field, so a field added later cannot be left out.
     fn hash<H: core::hash::Hasher>(&self, h: &mut H) {
         let Self {
-            resistance,
-            tau_on,
-            tau_off,
-            on_current_nominal,
-            path_voltage,
-            path_resistance,
-            full_scale,
-            energy_unit,
-            period,
-        } = self;
-        for v in [
-            resistance,
-            tau_on,
-            tau_off,
-            on_current_nominal,
-            path_voltage,
-            path_resistance,
-            full_scale,
-            energy_unit,
-            period,
-        ] {
-            h.write_u32(v.to_bits());
-        }
+            resistance: a,
+            tau_on: b,
+            tau_off: c,
+            on_current_nominal: d,
+            path_voltage: e,
+            path_resistance: f,
+            full_scale: g,
+            energy_unit: k,
+            period: t,
+        } = *self;
+        core::hash::Hash::hash(&[a, b, c, d, e, f, g, k, t].map(f32::to_bits), h);
     }
 }
 
