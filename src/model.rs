@@ -343,6 +343,157 @@ pub(crate) fn volts_bits(v: f64) -> u32 {
     }
 }
 
+/// The clamp path's kind, drop `V_p` and resistance `R_p`, validated (`v_max`: the maximum
+/// supply; `bv`: the switch's breakdown, the drop when nothing clamps).
+pub(crate) fn clamp_values(
+    clamp: ClampPath,
+    (v_max, bv): (f64, f64),
+) -> Result<(PathKind, f64, f64), ConfigError> {
+    Ok(match clamp {
+        ClampPath::None => (PathKind::Avalanche, bv, 0.0),
+        ClampPath::Freewheel {
+            forward_drop,
+            resistance,
+        } => {
+            let vf = f64::from(non_negative(Field::ClampForwardDrop, forward_drop, 20.0)?);
+            let rd = f64::from(non_negative(Field::ClampResistance, resistance, 1e4)?);
+            (PathKind::Freewheel, vf, rd)
+        }
+        ClampPath::FreewheelZener {
+            forward_drop,
+            zener_voltage,
+            resistance,
+        } => {
+            let vf = f64::from(non_negative(Field::ClampForwardDrop, forward_drop, 20.0)?);
+            let vz = f64::from(positive(
+                Field::ClampZenerVoltage,
+                zener_voltage,
+                0.1,
+                5000.0,
+            )?);
+            let rd = f64::from(non_negative(Field::ClampResistance, resistance, 1e4)?);
+            (PathKind::FreewheelZener, vf + vz, rd)
+        }
+        ClampPath::SwitchClamp {
+            clamp_voltage,
+            resistance,
+        } => {
+            let vcl = f64::from(positive(Field::ClampVoltage, clamp_voltage, 1.0, 5000.0)?);
+            let rcl = f64::from(non_negative(Field::ClampResistance, resistance, 1e4)?);
+            if vcl <= v_max {
+                return Err(ConfigError::conflict(
+                    Field::ClampVoltage,
+                    Conflict::ClampNotAboveSupply,
+                ));
+            }
+            (PathKind::SwitchClamp, vcl, rcl)
+        }
+    })
+}
+
+/// The clamp path against the switch: a clamp across the switch at full scale not above the
+/// breakdown, a freewheel path that keeps the node below it at the maximum supply.
+fn path_relations(
+    kind: PathKind,
+    (v_p, r_p): (f64, f64),
+    (v_max, bv): (f64, f64),
+    fs: f64,
+) -> Result<(), ConfigError> {
+    match kind {
+        PathKind::SwitchClamp if v_p + r_p * fs > bv => {
+            return Err(ConfigError::conflict(
+                Field::ClampVoltage,
+                Conflict::ClampAboveBreakdown,
+            ));
+        }
+        PathKind::Freewheel | PathKind::FreewheelZener if v_max + v_p + r_p * fs >= bv => {
+            let field = if kind == PathKind::FreewheelZener {
+                Field::ClampZenerVoltage
+            } else {
+                Field::ClampForwardDrop
+            };
+            return Err(ConfigError::conflict(
+                field,
+                Conflict::FreewheelReachesBreakdown,
+            ));
+        }
+        _ => {}
+    }
+    Ok(())
+}
+
+/// Whether a time constant (s) is inside the validated range.
+pub(crate) fn tau_in_range(tau: f64) -> bool {
+    (TAU_RANGE.0..=TAU_RANGE.1).contains(&tau)
+}
+
+/// The turn-off peak's terms `(base, adds the supply, slope per raw current)` for a path of
+/// kind `kind` with drop `v_p`, resistance `r_p` and breakdown `bv`: with nothing across the
+/// switch and a node capacitance `cap`, the LC swing `I·√(L/C)` above the supply; else the
+/// path's drop plus its resistance's.
+fn drain_terms(
+    kind: PathKind,
+    (v_p, r_p, bv): (f64, f64, f64),
+    (l, cap): (f64, Option<f64>),
+    raw_per_amp: f64,
+) -> (u32, bool, Gain) {
+    match kind {
+        PathKind::Avalanche => match cap {
+            Some(cn) => (
+                0,
+                true,
+                Gain::new(libm::sqrt(l / cn) * 65_536.0 / raw_per_amp),
+            ),
+            None => (volts_bits(bv), false, Gain::ZERO),
+        },
+        PathKind::Freewheel | PathKind::FreewheelZener => (
+            volts_bits(v_p),
+            true,
+            Gain::new(r_p * 65_536.0 / raw_per_amp),
+        ),
+        PathKind::SwitchClamp => (
+            volts_bits(v_p),
+            false,
+            Gain::new(r_p * 65_536.0 / raw_per_amp),
+        ),
+    }
+}
+
+impl SatPart {
+    /// The saturated part for saturation current `at` (A) and saturated inductance `ls` (H),
+    /// with the on and off resistances, the period, its counts and the full scale, and the
+    /// unsaturated on-time constant (s).
+    fn new(
+        (at, ls): (f64, f64),
+        (r_on_total, r_off_total): (f64, f64),
+        (t, n_full, fs): (f64, u32, f64),
+        tau_on: f64,
+    ) -> Result<Self, ConfigError> {
+        let tau_sat = ls / r_on_total;
+        let tau_sat_off = ls / r_off_total;
+        if !tau_in_range(tau_sat) || !tau_in_range(tau_sat_off) {
+            return Err(ConfigError::conflict(
+                Field::CoilSaturatedInductance,
+                Conflict::TimeConstantOutOfRange,
+            ));
+        }
+        let count_s = t / f64::from(n_full);
+        Ok(Self {
+            // Capped at the working limit 2^61 raw: a saturation current beyond it is
+            // never reached by a working current.
+            at: libm::round(at / fs * 1_099_511_627_776.0).min(2_305_843_009_213_693_952.0) as i64,
+            on_duty: DecayTable::new(count_s / tau_sat),
+            on_event: BitTable::new(1e-6 / tau_sat),
+            tau_on_counts: q32(tau_on / count_s),
+            tau_us: q32(tau_sat * 1e6),
+            off_duty: DecayTable::new(count_s / tau_sat_off),
+            off_event: BitTable::new(1e-6 / tau_sat_off),
+            tau_off_counts: q32(tau_sat_off / count_s),
+            tau_off_us: q32(tau_sat_off * 1e6),
+        })
+    }
+}
+
 impl Model {
     /// Validates `p` and builds the model. Same as [`Params::validate`].
     ///
@@ -355,76 +506,16 @@ impl Model {
         let (r_on, bv) = switch_values(p.switch, v_max)?;
 
         // Clamp path: kind, V_p, R_p (relations with the full scale checked below).
-        let (kind, v_p, r_p) = match p.clamp {
-            ClampPath::None => (PathKind::Avalanche, bv, 0.0),
-            ClampPath::Freewheel {
-                forward_drop,
-                resistance,
-            } => {
-                let vf = f64::from(non_negative(Field::ClampForwardDrop, forward_drop, 20.0)?);
-                let rd = f64::from(non_negative(Field::ClampResistance, resistance, 1e4)?);
-                (PathKind::Freewheel, vf, rd)
-            }
-            ClampPath::FreewheelZener {
-                forward_drop,
-                zener_voltage,
-                resistance,
-            } => {
-                let vf = f64::from(non_negative(Field::ClampForwardDrop, forward_drop, 20.0)?);
-                let vz = f64::from(positive(
-                    Field::ClampZenerVoltage,
-                    zener_voltage,
-                    0.1,
-                    5000.0,
-                )?);
-                let rd = f64::from(non_negative(Field::ClampResistance, resistance, 1e4)?);
-                (PathKind::FreewheelZener, vf + vz, rd)
-            }
-            ClampPath::SwitchClamp {
-                clamp_voltage,
-                resistance,
-            } => {
-                let vcl = f64::from(positive(Field::ClampVoltage, clamp_voltage, 1.0, 5000.0)?);
-                let rcl = f64::from(non_negative(Field::ClampResistance, resistance, 1e4)?);
-                if vcl <= v_max {
-                    return Err(ConfigError::conflict(
-                        Field::ClampVoltage,
-                        Conflict::ClampNotAboveSupply,
-                    ));
-                }
-                (PathKind::SwitchClamp, vcl, rcl)
-            }
-        };
+        let (kind, v_p, r_p) = clamp_values(p.clamp, (v_max, bv))?;
 
         let (t, n_full, fs) = control_values(&p.control)?;
 
-        // Relations between parts.
-        match kind {
-            PathKind::SwitchClamp if v_p + r_p * fs > bv => {
-                return Err(ConfigError::conflict(
-                    Field::ClampVoltage,
-                    Conflict::ClampAboveBreakdown,
-                ));
-            }
-            PathKind::Freewheel | PathKind::FreewheelZener if v_max + v_p + r_p * fs >= bv => {
-                let field = if kind == PathKind::FreewheelZener {
-                    Field::ClampZenerVoltage
-                } else {
-                    Field::ClampForwardDrop
-                };
-                return Err(ConfigError::conflict(
-                    field,
-                    Conflict::FreewheelReachesBreakdown,
-                ));
-            }
-            _ => {}
-        }
+        path_relations(kind, (v_p, r_p), (v_max, bv), fs)?;
         let r_on_total = r + r_on;
         let r_off_total = r + r_p;
         let tau_on = l / r_on_total;
         let tau_off = l / r_off_total;
-        let tau_ok = |tau: f64| (TAU_RANGE.0..=TAU_RANGE.1).contains(&tau);
-        if !tau_ok(tau_on) || !tau_ok(tau_off) {
+        if !tau_in_range(tau_on) || !tau_in_range(tau_off) {
             return Err(ConfigError::conflict(
                 Field::CoilInductance,
                 Conflict::TimeConstantOutOfRange,
@@ -437,31 +528,12 @@ impl Model {
             ));
         }
         let saturation = match sat {
-            Some((at, ls)) => {
-                let tau_sat = ls / r_on_total;
-                let tau_sat_off = ls / r_off_total;
-                if !tau_ok(tau_sat) || !tau_ok(tau_sat_off) {
-                    return Err(ConfigError::conflict(
-                        Field::CoilSaturatedInductance,
-                        Conflict::TimeConstantOutOfRange,
-                    ));
-                }
-                let count_s = t / f64::from(n_full);
-                Some(SatPart {
-                    // Capped at the working limit 2^61 raw: a saturation current beyond it is
-                    // never reached by a working current.
-                    at: libm::round(at / fs * 1_099_511_627_776.0).min(2_305_843_009_213_693_952.0)
-                        as i64,
-                    on_duty: DecayTable::new(count_s / tau_sat),
-                    on_event: BitTable::new(1e-6 / tau_sat),
-                    tau_on_counts: q32(tau_on / count_s),
-                    tau_us: q32(tau_sat * 1e6),
-                    off_duty: DecayTable::new(count_s / tau_sat_off),
-                    off_event: BitTable::new(1e-6 / tau_sat_off),
-                    tau_off_counts: q32(tau_sat_off / count_s),
-                    tau_off_us: q32(tau_sat_off * 1e6),
-                })
-            }
+            Some(sat) => Some(SatPart::new(
+                sat,
+                (r_on_total, r_off_total),
+                (t, n_full, fs),
+                tau_on,
+            )?),
             None => None,
         };
         let v_cap = 2.0 * v_max;
@@ -493,26 +565,8 @@ impl Model {
             Gain::ZERO
         };
         let off_offset = libm::round(v_p / r_off_total * raw_per_amp) as i64;
-        let (drain_base, drain_adds_supply, drain_slope) = match kind {
-            PathKind::Avalanche => match cap {
-                Some(cn) => (
-                    0,
-                    true,
-                    Gain::new(libm::sqrt(l / cn) * 65_536.0 / raw_per_amp),
-                ),
-                None => (volts_bits(bv), false, Gain::ZERO),
-            },
-            PathKind::Freewheel | PathKind::FreewheelZener => (
-                volts_bits(v_p),
-                true,
-                Gain::new(r_p * 65_536.0 / raw_per_amp),
-            ),
-            PathKind::SwitchClamp => (
-                volts_bits(v_p),
-                false,
-                Gain::new(r_p * 65_536.0 / raw_per_amp),
-            ),
-        };
+        let (drain_base, drain_adds_supply, drain_slope) =
+            drain_terms(kind, (v_p, r_p, bv), (l, cap), raw_per_amp);
 
         Ok(Model {
             saturation,

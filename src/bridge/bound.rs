@@ -216,9 +216,7 @@ impl BridgeBound {
         let count = f64::from(d.period) / f64::from(model.duty_resolution());
         // The fastest corner must still be a time constant the tables take.
         let tau_min = l_lo / r_drive.max(r_fast).max(r_dead);
-        if !(crate::model::TAU_RANGE.0..=crate::model::TAU_RANGE.1).contains(&tau_min)
-            || !(crate::model::TAU_RANGE.0..=crate::model::TAU_RANGE.1).contains(&(l_hi / r_lo))
-        {
+        if !crate::model::tau_in_range(tau_min) || !crate::model::tau_in_range(l_hi / r_lo) {
             return Err(ConfigError::conflict(
                 Field::ToleranceInductance,
                 Conflict::CornerOutOfRange,

@@ -62,8 +62,8 @@ pub use guard::{
 };
 
 use crate::model::{
-    ASYMPTOTE_LIMIT, MIN_PERIOD_OVER_TAU, TAU_RANGE, coil_values, control_values, q32,
-    supply_values, switch_values, volts_bits,
+    ASYMPTOTE_LIMIT, MIN_PERIOD_OVER_TAU, coil_values, control_values, q32, supply_values,
+    switch_values, tau_in_range, volts_bits,
 };
 use crate::params::{
     CoilParams, ConfigError, Conflict, ControlParams, Field, SupplyParams, SwitchParams,
@@ -440,8 +440,7 @@ impl BridgeModel {
         let r_fast_total = w.r + 2.0 * rd;
         let tau_on = w.l / r_on_total;
         let tau_fast = w.l / r_fast_total;
-        let tau_ok = |tau: f64| (TAU_RANGE.0..=TAU_RANGE.1).contains(&tau);
-        if !tau_ok(tau_on) || !tau_ok(tau_fast) {
+        if !tau_in_range(tau_on) || !tau_in_range(tau_fast) {
             return Err(ConfigError::conflict(
                 Field::CoilInductance,
                 Conflict::TimeConstantOutOfRange,
