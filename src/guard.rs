@@ -29,6 +29,24 @@
 //! - **Supply** (`supply-range`): outside `supply.min ..= supply.max`; below by default only
 //!   reported, above by default a trip (the clamp margins are gone).
 //!
+//! # Timing contract (PWM)
+//! - **When to call**: once per PWM period, at the period's boundary (the timer's update
+//!   event), with the supply measured during the period that just ended. Each call advances the
+//!   estimate and the bound by exactly one period of the duty the guard returned the call
+//!   before.
+//! - **What the duty is for**: the period that starts at that boundary. Write it to a compare
+//!   register with preload (shadow) enabled, so that it takes effect at the next update and the
+//!   period the guard models is the period the timer runs; without preload, a duty written
+//!   mid-period splits that period between two duties the guard does not know of.
+//! - **A late or missed call**: the timer keeps running the last duty written, and the next
+//!   call still advances by one period, so the guard falls behind the coil by the periods it
+//!   missed. That is outside the declared tolerance (the simulator's fault suite shows what it
+//!   costs on the demo valve); a tick must end within its period. The cost per call on three
+//!   cores is printed by `cargo xtask target-bench` (README); the limiting path costs far more
+//!   than a settled tick.
+//! - **Event mode** ([`Guard::event`]) has its own contract: call on every request change and
+//!   again within [`Output::next_check_us`].
+//!
 //! # Cost of a tick
 //! A channel may keep a memo beside its state ([`TickMemo`] with [`Guard::tick_with`]): a
 //! drive that repeats its duty then evaluates no table, and one settled at one duty and one
