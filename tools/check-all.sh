@@ -54,7 +54,9 @@ cargo fmt --all -- --check
 step "lints"
 cargo clippy --workspace --all-targets -- -D warnings
 cargo clippy -p coilward --target thumbv7em-none-eabihf --features defmt -- -D warnings
-(cd firmware && cargo clippy --release --target thumbv7em-none-eabihf --workspace --bins -- -D warnings)
+(cd firmware && cargo clippy --release --target thumbv7em-none-eabihf --workspace \
+    --exclude coilward-rp2040-valve --bins -- -D warnings)
+(cd firmware && cargo clippy --release --target thumbv6m-none-eabi -p coilward-rp2040-valve -- -D warnings)
 
 step "docs"
 RUSTDOCFLAGS="-D warnings" cargo doc --workspace --no-deps
@@ -79,8 +81,9 @@ cargo xtask target-test
 step "the package as published (the library, its tests and examples)"
 cargo publish --dry-run --allow-dirty -p coilward
 
-step "example firmware for a real chip (STM32F401, builds only)"
+step "example firmware for real chips, from the timer's interrupt (STM32F401, RP2040; builds only)"
 (cd firmware && cargo build --release --target thumbv7em-none-eabihf -p coilward-stm32f4-valve)
+(cd firmware && cargo build --release --target thumbv6m-none-eabi -p coilward-rp2040-valve)
 
 step "instruction counts and sizes on the emulated cores"
 cargo xtask target-bench

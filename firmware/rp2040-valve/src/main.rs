@@ -1,0 +1,185 @@
+//! Example firmware for an RP2040 (Cortex-M0+, for instance a Raspberry Pi Pico): a 24 V valve
+//! coil on a low-side MOSFET driven by PWM slice 0, channel A (GPIO0), the supply sensed on
+//! GPIO26 (ADC0) through an 11:1 divider, everything routed through coilward's guard from the
+//! slice's wrap interrupt on core 0 (core 1 is left free). The valve is pulled in, held at its
+//! hold current and released, over and over (two seconds on, one off).
+//!
+//! It cannot run here; the test command builds it for `thumbv6m-none-eabi`.
+//!
+//! # How it keeps time
+//! - The system clock is 125 MHz from the 12 MHz crystal. The slice counts 25 000 clocks per
+//!   200 µs period (5 kHz); its compare register is double-buffered and latched at the wrap,
+//!   so a duty written in the wrap interrupt applies to the whole of the next period, the period
+//!   the guard's output is for.
+//! - The wrap interrupt is the guard's tick, once per period at the period's start.
+//! - The ADC converts GPIO26 free-running (a conversion every 2 µs); the tick reads the latest.
+//! - Why 5 kHz and not 20: on a Cortex-M0+ a 64-bit product is a library call, and the tick
+//!   costs about 2 200 instructions settled, 4 900 at a new duty and 132 000 when limiting
+//!   (`cargo xtask target-bench`, M0). At 5 kHz the first two fit a period with room to spare;
+//!   limiting does not fit even here, so the hold plan asks for less than the ceiling allows and
+//!   the guard does not limit in normal operation (a late tick lets the guard fall behind the
+//!   coil: see the timing contract in the `Guard` documentation).
+#![no_std]
+#![no_main]
+
+use panic_halt as _;
+
+/// The second-stage bootloader for the board's QSPI flash (a generic one, 03h reads).
+#[unsafe(link_section = ".boot2")]
+#[used]
+pub static BOOT2: [u8; 256] = rp2040_boot2::BOOT_LOADER_GENERIC_03H;
+
+#[rtic::app(device = rp2040_hal::pac, peripherals = true)]
+mod app {
+    use coilward::{
+        ClampPath, CoilParams, ControlParams, Guard, GuardLimits, GuardState, HoldPhase, Input,
+        Params, PullInHold, SupplyParams, SupplySense, SwitchParams, TickMemo, Tolerance,
+    };
+    use embedded_hal::pwm::SetDutyCycle;
+    use rp2040_hal::adc::{Adc, AdcPin};
+    use rp2040_hal::clocks::init_clocks_and_plls;
+    use rp2040_hal::gpio::Pins;
+    use rp2040_hal::pwm::{FreeRunning, Pwm0, Slice, Slices};
+    use rp2040_hal::{Sio, Watchdog};
+
+    /// The Pico's crystal, Hz.
+    const XTAL_HZ: u32 = 12_000_000;
+    /// Slice clocks per PWM period: 125 MHz / 5 kHz.
+    const COUNTS: u16 = 25_000;
+    /// Periods in one on/off cycle of the demo drive (3 s at 5 kHz), and the on part.
+    const CYCLE: u32 = 15_000;
+    const ON: u32 = 10_000;
+
+    #[shared]
+    struct Shared {}
+
+    #[local]
+    struct Local {
+        pwm: Slice<Pwm0, FreeRunning>,
+        adc: Adc,
+        guard: Guard,
+        state: GuardState,
+        memo: TickMemo,
+        sense: SupplySense,
+        plan: PullInHold,
+        phase: HoldPhase,
+        period: u32,
+    }
+
+    /// Nothing to drive with: a configuration the library refuses leaves the output off.
+    fn halt() -> ! {
+        loop {
+            cortex_m::asm::wfi();
+        }
+    }
+
+    #[init]
+    fn init(cx: init::Context) -> (Shared, Local) {
+        let mut pac = cx.device;
+        let mut watchdog = Watchdog::new(pac.WATCHDOG);
+        let Ok(_clocks) = init_clocks_and_plls(
+            XTAL_HZ,
+            pac.XOSC,
+            pac.CLOCKS,
+            pac.PLL_SYS,
+            pac.PLL_USB,
+            &mut pac.RESETS,
+            &mut watchdog,
+        ) else {
+            halt()
+        };
+        let sio = Sio::new(pac.SIO);
+        let pins = Pins::new(
+            pac.IO_BANK0,
+            pac.PADS_BANK0,
+            sio.gpio_bank0,
+            &mut pac.RESETS,
+        );
+
+        // Slice 0 at 5 kHz, edge-aligned, channel A on GPIO0, off until the first tick.
+        let slices = Slices::new(pac.PWM, &mut pac.RESETS);
+        let mut pwm = slices.pwm0;
+        pwm.set_div_int(1);
+        pwm.set_top(COUNTS - 1);
+        pwm.channel_a.output_to(pins.gpio0);
+        let _ = pwm.channel_a.set_duty_cycle(0);
+        let counts = u32::from(pwm.channel_a.max_duty_cycle());
+
+        // ADC0 on GPIO26, converting free-running.
+        let mut adc = Adc::new(pac.ADC, &mut pac.RESETS);
+        let Ok(supply_pin) = AdcPin::new(pins.gpio26.into_floating_input()) else {
+            halt()
+        };
+        adc.free_running(&supply_pin);
+
+        // The valve (values invented for the example) and its limits.
+        let params = Params::new(
+            SupplyParams::new(24.0, 18.0, 30.0),
+            CoilParams::new(0.040, 18.0),
+            SwitchParams::new(0.05, 60.0),
+            ClampPath::Freewheel {
+                forward_drop: 0.7,
+                resistance: 0.05,
+            },
+            ControlParams::new(200e-6, counts, 2.0),
+        );
+        let mut limits = GuardLimits::new(1.2, 1.4, 0.05).with_tolerance(
+            Tolerance::EXACT
+                .with_inductance(0.2)
+                .with_resistance(0.05)
+                .with_supply_reading(0.02),
+        );
+        limits.clamp_pulse_energy = Some(0.05);
+        let (Ok(guard), Ok(sense)) = (
+            Guard::new(&params, &limits),
+            SupplySense::new(3.3 * 11.0 / 4095.0, 0.0),
+        ) else {
+            halt()
+        };
+        let Ok(plan) = PullInHold::new(guard.model(), 1.0, 0.03, 0.45) else {
+            halt()
+        };
+        let state = guard.start_after_reset();
+
+        pwm.enable_interrupt();
+        pwm.enable();
+        (
+            Shared {},
+            Local {
+                pwm,
+                adc,
+                guard,
+                state,
+                memo: TickMemo::EMPTY,
+                sense,
+                plan,
+                phase: HoldPhase::default(),
+                period: 0,
+            },
+        )
+    }
+
+    /// The guard's tick: the slice's wrap, at the start of every period.
+    #[task(binds = PWM_IRQ_WRAP, local = [pwm, adc, guard, state, memo, sense, plan, phase, period])]
+    fn tick(cx: tick::Context) {
+        let l = cx.local;
+        l.pwm.clear_interrupt();
+        let supply = l.sense.volts(l.adc.read_single());
+        let on = *l.period % CYCLE < ON;
+        if l.period.is_multiple_of(CYCLE) {
+            *l.phase = HoldPhase::default();
+        }
+        let model = l.guard.model();
+        let wanted = if on {
+            l.plan.duty(model, l.phase, l.state.current(), supply)
+        } else {
+            0
+        };
+        let out = l
+            .guard
+            .tick_with(l.state, l.memo, Input::new(wanted, supply));
+        // Latched at the next wrap: the period this output is for. At most `COUNTS`.
+        let _ = l.pwm.channel_a.set_duty_cycle(out.duty as u16);
+        *l.period = l.period.wrapping_add(1);
+    }
+}
