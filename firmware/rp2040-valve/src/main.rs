@@ -24,6 +24,9 @@
 
 use panic_halt as _;
 
+#[path = "../../demo/valve.rs"]
+mod valve;
+
 /// The second-stage bootloader for the board's QSPI flash (a generic one, 03h reads).
 #[unsafe(link_section = ".boot2")]
 #[used]
@@ -31,10 +34,8 @@ pub static BOOT2: [u8; 256] = rp2040_boot2::BOOT_LOADER_GENERIC_03H;
 
 #[rtic::app(device = rp2040_hal::pac, peripherals = true)]
 mod app {
-    use coilward::{
-        ClampPath, CoilParams, ControlParams, Guard, GuardLimits, GuardState, HoldPhase, Input,
-        Params, PullInHold, SupplyParams, SupplySense, SwitchParams, TickMemo, Tolerance,
-    };
+    use crate::valve::{self, Channel, halt};
+    use coilward::Guard;
     use embedded_hal::pwm::SetDutyCycle;
     use rp2040_hal::adc::{Adc, AdcPin};
     use rp2040_hal::clocks::init_clocks_and_plls;
@@ -46,9 +47,8 @@ mod app {
     const XTAL_HZ: u32 = 12_000_000;
     /// Slice clocks per PWM period: 125 MHz / 5 kHz.
     const COUNTS: u16 = 25_000;
-    /// Periods in one on/off cycle of the demo drive (3 s at 5 kHz), and the on part.
-    const CYCLE: u32 = 15_000;
-    const ON: u32 = 10_000;
+    /// PWM periods a second.
+    const RATE: u32 = 5_000;
 
     #[shared]
     struct Shared {}
@@ -58,19 +58,7 @@ mod app {
         pwm: Slice<Pwm0, FreeRunning>,
         adc: Adc,
         guard: Guard,
-        state: GuardState,
-        memo: TickMemo,
-        sense: SupplySense,
-        plan: PullInHold,
-        phase: HoldPhase,
-        period: u32,
-    }
-
-    /// Nothing to drive with: a configuration the library refuses leaves the output off.
-    fn halt() -> ! {
-        loop {
-            cortex_m::asm::wfi();
-        }
+        channel: Channel,
     }
 
     #[init]
@@ -112,34 +100,13 @@ mod app {
         };
         adc.free_running(&supply_pin);
 
-        // The valve (values invented for the example) and its limits.
-        let params = Params::new(
-            SupplyParams::new(24.0, 18.0, 30.0),
-            CoilParams::new(0.040, 18.0),
-            SwitchParams::new(0.05, 60.0),
-            ClampPath::Freewheel {
-                forward_drop: 0.7,
-                resistance: 0.05,
-            },
-            ControlParams::new(200e-6, counts, 2.0),
-        );
-        let mut limits = GuardLimits::new(1.2, 1.4, 0.05).with_tolerance(
-            Tolerance::EXACT
-                .with_inductance(0.2)
-                .with_resistance(0.05)
-                .with_supply_reading(0.02),
-        );
-        limits.clamp_pulse_energy = Some(0.05);
-        let (Ok(guard), Ok(sense)) = (
-            Guard::new(&params, &limits),
-            SupplySense::new(3.3 * 11.0 / 4095.0, 0.0),
-        ) else {
+        let params = valve::params(1.0 / RATE as f32, counts, 20.0);
+        let Ok(guard) = Guard::new(&params, &valve::limits()) else {
             halt()
         };
-        let Ok(plan) = PullInHold::new(guard.model(), 1.0, 0.03, 0.45) else {
+        let Ok(channel) = Channel::new(&guard, RATE) else {
             halt()
         };
-        let state = guard.start_after_reset();
 
         pwm.enable_interrupt();
         pwm.enable();
@@ -149,37 +116,18 @@ mod app {
                 pwm,
                 adc,
                 guard,
-                state,
-                memo: TickMemo::EMPTY,
-                sense,
-                plan,
-                phase: HoldPhase::default(),
-                period: 0,
+                channel,
             },
         )
     }
 
     /// The guard's tick: the slice's wrap, at the start of every period.
-    #[task(binds = PWM_IRQ_WRAP, local = [pwm, adc, guard, state, memo, sense, plan, phase, period])]
+    #[task(binds = PWM_IRQ_WRAP, local = [pwm, adc, guard, channel])]
     fn tick(cx: tick::Context) {
         let l = cx.local;
         l.pwm.clear_interrupt();
-        let supply = l.sense.volts(l.adc.read_single());
-        let on = *l.period % CYCLE < ON;
-        if l.period.is_multiple_of(CYCLE) {
-            *l.phase = HoldPhase::default();
-        }
-        let model = l.guard.model();
-        let wanted = if on {
-            l.plan.duty(model, l.phase, l.state.current(), supply)
-        } else {
-            0
-        };
-        let out = l
-            .guard
-            .tick_with(l.state, l.memo, Input::new(wanted, supply));
+        let out = l.channel.period(l.guard, l.adc.read_single());
         // Latched at the next wrap: the period this output is for. At most `COUNTS`.
         let _ = l.pwm.channel_a.set_duty_cycle(out.duty as u16);
-        *l.period = l.period.wrapping_add(1);
     }
 }

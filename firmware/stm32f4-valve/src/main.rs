@@ -41,12 +41,13 @@
 
 use panic_halt as _;
 
+#[path = "../../demo/valve.rs"]
+mod valve;
+
 #[rtic::app(device = stm32f4xx_hal::pac, peripherals = true)]
 mod app {
-    use coilward::{
-        ClampPath, CoilParams, ControlParams, Guard, GuardLimits, GuardState, HoldPhase, Input,
-        Params, PullInHold, SupplyParams, SupplySense, SwitchParams, TickMemo, Tolerance,
-    };
+    use crate::valve::{self, Channel, halt};
+    use coilward::{Guard, Params};
     use core::sync::atomic::{AtomicI32, Ordering};
     use heapless::spsc::{Consumer, Producer, Queue};
     use stm32f4xx_hal::adc::Adc;
@@ -62,9 +63,8 @@ mod app {
     /// A guard in one of the two static slots.
     type Slot = &'static mut Guard;
 
-    /// Periods in one on/off cycle of the demo drive (3 s at 20 kHz), and the on part.
-    const CYCLE: u32 = 60_000;
-    const ON: u32 = 40_000;
+    /// PWM periods a second.
+    const RATE: u32 = 20_000;
     /// Retune when the winding's suggested model temperature moves by this much, K.
     const RETUNE_STEP: u32 = 5;
 
@@ -80,12 +80,7 @@ mod app {
         coil: PwmChannel<TIM1, 0>,
         adc: Adc<ADC1>,
         guard: Slot,
-        state: GuardState,
-        memo: TickMemo,
-        sense: SupplySense,
-        plan: PullInHold,
-        phase: HoldPhase,
-        period: u32,
+        channel: Channel,
         new_guards: Consumer<'static, Slot>,
         old_guards: Producer<'static, Slot>,
         spare: Option<Slot>,
@@ -93,42 +88,6 @@ mod app {
         from_tick: Consumer<'static, Slot>,
         params: Params,
         model_temperature: i32,
-    }
-
-    /// The valve as the firmware knows it (values invented for the example).
-    fn valve(counts: u32, winding_temperature: f32) -> Params {
-        let mut coil = CoilParams::new(0.040, 18.0);
-        coil.winding_temperature = winding_temperature;
-        Params::new(
-            SupplyParams::new(24.0, 18.0, 30.0),
-            coil,
-            SwitchParams::new(0.05, 60.0),
-            ClampPath::Freewheel {
-                forward_drop: 0.7,
-                resistance: 0.05,
-            },
-            ControlParams::new(50e-6, counts, 2.0),
-        )
-    }
-
-    /// The limits: ceiling, trip and release current (A), the clamp's pulse rating, and the
-    /// spread the guard must cover.
-    fn limits() -> GuardLimits {
-        let mut l = GuardLimits::new(1.2, 1.4, 0.05).with_tolerance(
-            Tolerance::EXACT
-                .with_inductance(0.2)
-                .with_resistance(0.05)
-                .with_supply_reading(0.02),
-        );
-        l.clamp_pulse_energy = Some(0.05);
-        l
-    }
-
-    /// Nothing to drive with: a configuration the library refuses leaves the output off.
-    fn halt() -> ! {
-        loop {
-            cortex_m::asm::wfi();
-        }
     }
 
     #[init(local = [
@@ -166,17 +125,13 @@ mod app {
         adc.enable();
 
         let model_temperature = 20;
-        let params = valve(counts, model_temperature as f32);
-        let (Ok(guard), Ok(sense)) = (
-            Guard::new(&params, &limits()),
-            SupplySense::new(3.3 * 11.0 / 4095.0, 0.0),
-        ) else {
+        let params = valve::params(1.0 / RATE as f32, counts, model_temperature as f32);
+        let Ok(guard) = Guard::new(&params, &valve::limits()) else {
             halt()
         };
-        let Ok(plan) = PullInHold::new(guard.model(), 1.0, 0.03, 0.45) else {
+        let Ok(channel) = Channel::new(&guard, RATE) else {
             halt()
         };
-        let state = guard.start_after_reset();
         let spare = cx.local.slot_b.insert(guard.clone());
         let guard = cx.local.slot_a.insert(guard);
         let (to_tick, new_guards) = cx.local.to_tick_queue.split();
@@ -190,12 +145,7 @@ mod app {
                 coil,
                 adc,
                 guard,
-                state,
-                memo: TickMemo::EMPTY,
-                sense,
-                plan,
-                phase: HoldPhase::default(),
-                period: 0,
+                channel,
                 new_guards,
                 old_guards,
                 spare: Some(spare),
@@ -209,7 +159,7 @@ mod app {
 
     /// The guard's tick: TIM1's update, at the start of every period.
     #[task(binds = TIM1_UP_TIM10, priority = 2, local = [
-        timer, coil, adc, guard, state, memo, sense, plan, phase, period, new_guards, old_guards
+        timer, coil, adc, guard, channel, new_guards, old_guards
     ])]
     fn tick(cx: tick::Context) {
         let l = cx.local;
@@ -224,25 +174,13 @@ mod app {
         }
         let guard: &Guard = l.guard;
         // The supply sampled at 1/8 of the period just ended.
-        let supply = l.sense.volts(l.adc.current_sample());
-        let on = *l.period % CYCLE < ON;
-        if l.period.is_multiple_of(CYCLE) {
-            *l.phase = HoldPhase::default();
-        }
-        let wanted = if on {
-            l.plan
-                .duty(guard.model(), l.phase, l.state.current(), supply)
-        } else {
-            0
-        };
-        let out = guard.tick_with(l.state, l.memo, Input::new(wanted, supply));
+        let out = l.channel.period(guard, l.adc.current_sample());
         // Preloaded: applies from the next update, the period this output is for. The duty is
         // at most the resolution, which is the timer's 16-bit count.
         l.coil.set_duty(out.duty as u16);
-        if let Some(t) = guard.suggested_model_temperature(l.state, RETUNE_STEP) {
+        if let Some(t) = guard.suggested_model_temperature(l.channel.state(), RETUNE_STEP) {
             SUGGESTED.store(t, Ordering::Relaxed);
         }
-        *l.period = l.period.wrapping_add(1);
     }
 
     /// The retune, in the main loop: slow (f64, table construction), never in the interrupt.
@@ -259,7 +197,7 @@ mod app {
                 && let Some(slot) = l.spare.take()
             {
                 l.params.coil.winding_temperature = wanted as f32;
-                match Guard::new(l.params, &limits()) {
+                match Guard::new(l.params, &valve::limits()) {
                     Ok(g) => {
                         *slot = g;
                         *l.model_temperature = wanted;
