@@ -371,6 +371,77 @@ struct Path {
     after_slow: bool,
 }
 
+/// The body diodes' forward drop and resistance, validated.
+fn diode_values(d: BodyDiode) -> Result<(f64, f64), ConfigError> {
+    let vf = f64::from(positive(
+        Field::BodyDiodeForwardDrop,
+        d.forward_drop,
+        0.05,
+        5.0,
+    )?);
+    let rd = f64::from(non_negative(
+        Field::BodyDiodeResistance,
+        d.resistance,
+        10.0,
+    )?);
+    Ok((vf, rd))
+}
+
+/// The share of the off part in fast decay, validated (mixed decay strictly between 0 and 1).
+fn fast_share(decay: DecayMode) -> Result<f64, ConfigError> {
+    Ok(match decay {
+        DecayMode::Fast => 1.0,
+        DecayMode::Slow => 0.0,
+        DecayMode::Mixed { fast_share } => f64::from(positive(
+            Field::DecayFastShare,
+            fast_share,
+            1.0 / 65_536.0,
+            1.0 - 1.0 / 65_536.0,
+        )?),
+    })
+}
+
+/// The gate dead time (s) in whole counts of `count` seconds, under a quarter of the `n_full`
+/// counts of a period.
+fn dead_counts(t_dead: f32, count: f64, n_full: u32) -> Result<u32, ConfigError> {
+    let t_dead = f64::from(non_negative(Field::SwitchDeadTime, t_dead, 1e-3)?);
+    // Rounded down: a shorter dead time takes less off the drive, so the estimate errs high.
+    // Within 10⁻⁴ of a count below a whole number it is that number (5 ps at a 50 ns count):
+    // the f32 inputs' rounding, not a shorter dead time (4.45 µs at 50 ns is 89 counts).
+    let dead = libm::floor(t_dead / count + 1e-4) as u32;
+    if dead >= n_full / 4 && dead > 0 {
+        return Err(ConfigError::conflict(
+            Field::SwitchDeadTime,
+            Conflict::PeriodTooShort,
+        ));
+    }
+    Ok(dead)
+}
+
+impl Bus {
+    /// The bus of capacitance `c` (F) whose supply sinks `sink` (A), with `rise` volts between
+    /// the nominal and the maximum supply, in charge bits of `charge_bit` coulombs and counts of
+    /// `count` seconds; and its headroom in coulombs.
+    fn new((c, sink): (f64, f64), rise: f64, (count, charge_bit): (f64, f64)) -> (Self, f64) {
+        let clamp_i64 = |v: f64| {
+            let x = libm::round(v);
+            if x >= 9.2e18 {
+                i64::MAX
+            } else {
+                x.max(0.0) as i64
+            }
+        };
+        let headroom = c * rise;
+        (
+            Self {
+                headroom: clamp_i64(headroom / charge_bit),
+                sink_per_count: clamp_i64(sink * count / charge_bit),
+            },
+            headroom,
+        )
+    }
+}
+
 impl BridgeModel {
     /// Validates `p` and builds the model. Same as [`BridgeParams::validate`].
     ///
@@ -381,27 +452,8 @@ impl BridgeModel {
         let (v_nom, v_min, v_max) = supply_values(&p.supply)?;
         let w = coil_values(&p.coil)?;
         let (r_on, bv) = switch_values(p.switch, v_max)?;
-        let vf = f64::from(positive(
-            Field::BodyDiodeForwardDrop,
-            p.body_diode.forward_drop,
-            0.05,
-            5.0,
-        )?);
-        let rd = f64::from(non_negative(
-            Field::BodyDiodeResistance,
-            p.body_diode.resistance,
-            10.0,
-        )?);
-        let share = match p.decay {
-            DecayMode::Fast => 1.0,
-            DecayMode::Slow => 0.0,
-            DecayMode::Mixed { fast_share } => f64::from(positive(
-                Field::DecayFastShare,
-                fast_share,
-                1.0 / 65_536.0,
-                1.0 - 1.0 / 65_536.0,
-            )?),
-        };
+        let (vf, rd) = diode_values(p.body_diode)?;
+        let share = fast_share(p.decay)?;
         let (t, n_full, fs) = control_values(&p.control)?;
         let emf = f64::from(non_negative(
             Field::MotorBackEmfLimit,
@@ -453,17 +505,7 @@ impl BridgeModel {
             ));
         }
         let count = t / f64::from(n_full);
-        let t_dead = f64::from(non_negative(Field::SwitchDeadTime, p.gate_dead_time, 1e-3)?);
-        // Rounded down: a shorter dead time takes less off the drive, so the estimate errs high.
-        // Within 10⁻⁴ of a count below a whole number it is that number (5 ps at a 50 ns count):
-        // the f32 inputs' rounding, not a shorter dead time (4.45 µs at 50 ns is 89 counts).
-        let dead = libm::floor(t_dead / count + 1e-4) as u32;
-        if dead >= n_full / 4 && dead > 0 {
-            return Err(ConfigError::conflict(
-                Field::SwitchDeadTime,
-                Conflict::PeriodTooShort,
-            ));
-        }
+        let dead = dead_counts(p.gate_dead_time, count, n_full)?;
         let r_dead_total = w.r + r_on + rd;
         let v_cap = 2.0 * v_max;
         let on_max = (v_cap + emf) / r_on_total / fs;
@@ -478,24 +520,10 @@ impl BridgeModel {
         let raw_per_amp = 1_099_511_627_776.0 / fs;
         // One Charge bit is 2^-16 of the full-scale current for one count.
         let charge_bit = fs * count / 65_536.0;
-        let clamp_i64 = |v: f64| {
-            let x = libm::round(v);
-            if x >= 9.2e18 {
-                i64::MAX
-            } else {
-                x.max(0.0) as i64
-            }
-        };
         let (bus, headroom) = match bus {
             Some((c, sink)) => {
-                let headroom = c * (v_max - v_nom);
-                (
-                    Some(Bus {
-                        headroom: clamp_i64(headroom / charge_bit),
-                        sink_per_count: clamp_i64(sink * count / charge_bit),
-                    }),
-                    headroom,
-                )
+                let (b, headroom) = Bus::new((c, sink), v_max - v_nom, (count, charge_bit));
+                (Some(b), headroom)
             }
             None => (None, 0.0),
         };
