@@ -491,6 +491,221 @@ impl BridgeGuard {
         state.latched = Conditions::NONE;
     }
 
+    /// The period just ended: the estimate's step with the duty and decay applied, the bound's
+    /// advance over it (the rail and the back-EMF between the two readings that frame it), and
+    /// the bus. Returns the estimate, the bound's magnitude before the period, and whether the
+    /// bus is still recovering from a pump.
+    fn advance(&self, state: &mut BridgeState, input: BridgeInput) -> (BridgeEstimate, i64, bool) {
+        let m = &self.model;
+        let after_slow_then = state.coil.after_slow();
+        let est = m.step_with(
+            &mut state.coil,
+            state.applied,
+            input.supply,
+            input.back_emf,
+            state.decay,
+        );
+        state.returned = state.returned.saturating_add(est.returned);
+        // The bound over the same period: the rail and the back-EMF between the two readings
+        // that frame it.
+        let bound_before = self.bound.magnitude(&state.bound);
+        let now = m.supply_bits(input.supply);
+        let before = if state.rail == 0 { now } else { state.rail };
+        self.bound.advance(
+            &mut state.bound,
+            m,
+            after_slow_then,
+            (state.applied, state.decay),
+            (before.min(now), before.max(now)),
+            (SignedVolts::from_bits(state.emf), input.back_emf),
+        );
+        state.rail = now;
+        state.emf = input.back_emf.to_bits();
+        // The bus: the period just ended, then whether it is still recovering from a pump.
+        let mut pump = false;
+        if let Some(b) = m.bus {
+            state.bus = self.bus_after(
+                state.bus,
+                state.applied,
+                state.decay,
+                est.drawn,
+                est.returned,
+            );
+            pump = state.active.contains(Condition::SupplyPump) && state.bus > b.headroom >> 1;
+        }
+        (est, bound_before, pump)
+    }
+
+    /// The conditions present now and their actions (`hold`: an action holds the output off;
+    /// trips are latched in the state): the supply window at the reading `vs` and the trip level
+    /// against the estimate's largest magnitude `top`.
+    fn conditions(&self, state: &mut BridgeState, vs: u32, top: i64) -> (Conditions, bool) {
+        let mut active = Conditions::NONE;
+        let mut hold = false;
+        let pol = self.policy;
+        let apply = crate::condition::act;
+        if let Some(a) = crate::condition::supply_window(
+            vs,
+            self.supply_min,
+            self.supply_max,
+            pol.supply_low,
+            pol.supply_high,
+        ) {
+            apply(
+                &mut active,
+                &mut hold,
+                &mut state.latched,
+                Condition::SupplyRange,
+                a,
+            );
+        }
+        // An assumed (after-reset) current is a belief, not an observation: no trip on it.
+        if state.direction != Direction::Unknown && top > self.trip {
+            apply(
+                &mut active,
+                &mut hold,
+                &mut state.latched,
+                Condition::Overcurrent,
+                pol.overcurrent,
+            );
+        }
+        (active, hold)
+    }
+
+    /// The interlock: the request after the latches and holds, and held at zero while a reversal
+    /// waits for the bound to reach the release level and then for the dead time (meanwhile
+    /// the off part decays fast); with the time left when it holds. `i_now` is the estimate,
+    /// `held` the bound now and `bound_before` the bound before the period just ended.
+    fn interlock(
+        &self,
+        state: &mut BridgeState,
+        (input, hold): (BridgeInput, bool),
+        (i_now, held, bound_before): (i64, i64, i64),
+        (active, decay): (&mut Conditions, &mut AppliedDecay),
+    ) -> (i32, Option<u32>) {
+        let m = &self.model;
+        let n_full = m.duty_resolution() as i32; // <= 65535
+        // The dead time runs from the instant the estimate reached the
+        // release level, not from the end of the period in which it did.
+        state.quiet_us = if state.applied == 0 && held <= self.release {
+            if bound_before <= self.release {
+                state.quiet_us.saturating_add(self.period_us)
+            } else {
+                // The bound fell inside the period just ended: its crossing is taken at the
+                // period's end (later than any true crossing).
+                0
+            }
+        } else {
+            0
+        };
+        // Not `clamp`: its min <= max assertion would be a panic path (n_full is positive).
+        let request = input.duty.min(n_full).max(-n_full);
+        let mut duty = if state.latched.is_empty() && !hold {
+            request
+        } else {
+            0
+        };
+        let wanted = Direction::of(i64::from(duty));
+        let mut reversal_in = None;
+        let reversing = duty != 0
+            && match state.direction {
+                Direction::None => false,
+                Direction::Unknown => true,
+                d => d != wanted,
+            };
+        if reversing && (held > self.release || state.quiet_us < self.dead_us) {
+            duty = 0;
+            active.insert(Condition::ReversalHold);
+            // The quickest decay: through the diodes, against the supply. Slow decay would
+            // keep a braking current flowing for as long as a motor turns.
+            if *decay == AppliedDecay::Configured {
+                *decay = AppliedDecay::Fast;
+            }
+            let dead_left = self.dead_us.saturating_sub(if held > self.release {
+                0
+            } else {
+                state.quiet_us
+            });
+            // The nominal decay of the magnitude acted on (with a bound: its largest).
+            let from = if i_now < 0 { -held } else { held };
+            reversal_in = m
+                .decay_time_us(
+                    Current::from_bits(from),
+                    Current::from_bits(self.release),
+                    input.supply,
+                    input.back_emf,
+                    *decay,
+                )
+                .map(|t| t.saturating_add(dead_left));
+        } else if state.direction == Direction::Unknown
+            && held <= self.release
+            && state.quiet_us >= self.dead_us
+        {
+            // The assumed current has decayed: nothing is known to flow any more.
+            state.direction = Direction::None;
+        }
+
+        (duty, reversal_in)
+    }
+
+    /// The bus over the coming period (with a bus configured): the charge the plan would return
+    /// against the headroom, before it is returned; when the plan would not keep the bus,
+    /// `supply-pump` and, by policy, a plan that spares it. `magnitude` is the bound's largest
+    /// magnitude over the coming period for a duty and decay.
+    fn keep_bus(
+        &self,
+        state: &BridgeState,
+        (input, i_now, after_slow): (BridgeInput, i64, bool),
+        (duty, decay, predicted): (&mut i32, &mut AppliedDecay, &mut i64),
+        (active, magnitude): (&mut Conditions, &dyn Fn(i32, AppliedDecay) -> i64),
+    ) {
+        let m = &self.model;
+        let (supply, emf) = (input.supply, input.back_emf);
+        let vs = m.supply_bits(supply);
+        let rails = (vs, vs);
+        if let Some(b) = m.bus {
+            let after = |duty: i32, decay: AppliedDecay| -> i64 {
+                let p = m.parts(i_now, after_slow, duty, supply, emf, decay);
+                let (drawn, returned) = (Charge::from_bits(p.drawn), Charge::from_bits(p.returned));
+                self.bus_after(state.bus, duty, decay, drawn, returned)
+            };
+            // The nominal tracker and the bound's: the charge the rail reading already shows plus
+            // the most the plan could return (the drive's draw ignored), and what stopping the
+            // current at the period's end would return, against the headroom at the lowest
+            // capacitance (`BridgeBound::keeps_bus`).
+            let keeps = |duty: i32, decay: AppliedDecay, strict: bool| {
+                let (_, fast, _) = m.split(duty, decay);
+                let sunk = b.sink_per_count.saturating_mul(i64::from(fast));
+                after(duty, decay) <= b.headroom
+                    && self.bound.keeps_bus(
+                        &state.bound,
+                        m,
+                        after_slow,
+                        (duty, decay),
+                        (rails, (emf, emf)),
+                        (input.supply, sunk),
+                        (self.ceiling, strict),
+                    )
+            };
+            if !keeps(*duty, *decay, true) {
+                active.insert(Condition::SupplyPump);
+                if self.policy.supply_pump == PumpResponse::Recirculate {
+                    let coast =
+                        self.bound
+                            .can_coast(&state.bound, m, (rails, (emf, emf)), input.supply);
+                    (*duty, *decay) = self.spare_the_bus(*duty, magnitude, &keeps, coast);
+                    *predicted = magnitude(*duty, *decay);
+                    if *predicted > self.ceiling {
+                        // Neither decay keeps both the bus and the ceiling: the bus comes first
+                        // (a rail past the switches' breakdown destroys them); the trip still
+                        // guards the current.
+                        active.insert(Condition::CurrentLimit);
+                    }
+                }
+            }
+        }
+    }
+
     /// One control period. `input.duty` is the request for the coming period; the guard
     /// advances over the period just ended with the duty and decay it applied then.
     ///
@@ -526,44 +741,8 @@ impl BridgeGuard {
     /// ```
     pub fn tick(&self, state: &mut BridgeState, input: BridgeInput) -> BridgeOutput {
         let m = &self.model;
-        let n_full = m.duty_resolution() as i32; // <= 65535
-        // 1. The period just ended.
-        let after_slow_then = state.coil.after_slow();
-        let est = m.step_with(
-            &mut state.coil,
-            state.applied,
-            input.supply,
-            input.back_emf,
-            state.decay,
-        );
-        state.returned = state.returned.saturating_add(est.returned);
-        // The bound over the same period: the rail and the back-EMF between the two readings
-        // that frame it.
-        let bound_before = self.bound.magnitude(&state.bound);
-        let now = m.supply_bits(input.supply);
-        let before = if state.rail == 0 { now } else { state.rail };
-        self.bound.advance(
-            &mut state.bound,
-            m,
-            after_slow_then,
-            (state.applied, state.decay),
-            (before.min(now), before.max(now)),
-            (SignedVolts::from_bits(state.emf), input.back_emf),
-        );
-        state.rail = m.supply_bits(input.supply);
-        state.emf = input.back_emf.to_bits();
-        // 2. The bus: the period just ended, then whether it is still recovering from a pump.
-        let mut pump = false;
-        if let Some(b) = m.bus {
-            state.bus = self.bus_after(
-                state.bus,
-                state.applied,
-                state.decay,
-                est.drawn,
-                est.returned,
-            );
-            pump = state.active.contains(Condition::SupplyPump) && state.bus > b.headroom >> 1;
-        }
+        // 1. The period just ended, and the bus over it.
+        let (est, bound_before, pump) = self.advance(state, input);
         let vs = m.supply_bits(input.supply);
         let i_now = state.coil.current().to_bits();
         let mag = i_now.unsigned_abs().min(Current::LIMIT.to_bits() as u64) as i64;
@@ -571,39 +750,12 @@ impl BridgeGuard {
         // What the interlock and the ceiling act on: the bound's largest magnitude.
         let held = self.bound.magnitude(&state.bound);
 
+        // 2. The conditions.
         let prev = state.active;
-        let mut active = Conditions::NONE;
-        let mut hold = false;
-        let pol = self.policy;
-        let apply = crate::condition::act;
-        if let Some(a) = crate::condition::supply_window(
-            vs,
-            self.supply_min,
-            self.supply_max,
-            pol.supply_low,
-            pol.supply_high,
-        ) {
-            apply(
-                &mut active,
-                &mut hold,
-                &mut state.latched,
-                Condition::SupplyRange,
-                a,
-            );
-        }
-        // An assumed (after-reset) current is a belief, not an observation: no trip on it.
-        if state.direction != Direction::Unknown && mag.max(peak) > self.trip {
-            apply(
-                &mut active,
-                &mut hold,
-                &mut state.latched,
-                Condition::Overcurrent,
-                pol.overcurrent,
-            );
-        }
+        let (mut active, hold) = self.conditions(state, vs, mag.max(peak));
         let mut decay = if pump {
             active.insert(Condition::SupplyPump);
-            match pol.supply_pump {
+            match self.policy.supply_pump {
                 PumpResponse::Recirculate => AppliedDecay::Slow,
                 PumpResponse::Report => AppliedDecay::Configured,
             }
@@ -611,70 +763,18 @@ impl BridgeGuard {
             AppliedDecay::Configured
         };
 
-        // 3. The interlock. The dead time runs from the instant the estimate reached the
-        // release level, not from the end of the period in which it did.
-        state.quiet_us = if state.applied == 0 && held <= self.release {
-            if bound_before <= self.release {
-                state.quiet_us.saturating_add(self.period_us)
-            } else {
-                // The bound fell inside the period just ended: its crossing is taken at the
-                // period's end (later than any true crossing).
-                0
-            }
-        } else {
-            0
-        };
-        // Not `clamp`: its min <= max assertion would be a panic path (n_full is positive).
-        let request = input.duty.min(n_full).max(-n_full);
-        let mut duty = if state.latched.is_empty() && !hold {
-            request
-        } else {
-            0
-        };
-        let wanted = Direction::of(i64::from(duty));
-        let mut reversal_in = None;
-        let reversing = duty != 0
-            && match state.direction {
-                Direction::None => false,
-                Direction::Unknown => true,
-                d => d != wanted,
-            };
-        if reversing && (held > self.release || state.quiet_us < self.dead_us) {
-            duty = 0;
-            active.insert(Condition::ReversalHold);
-            // The quickest decay: through the diodes, against the supply. Slow decay would
-            // keep a braking current flowing for as long as a motor turns.
-            if decay == AppliedDecay::Configured {
-                decay = AppliedDecay::Fast;
-            }
-            let dead_left = self.dead_us.saturating_sub(if held > self.release {
-                0
-            } else {
-                state.quiet_us
-            });
-            // The nominal decay of the magnitude acted on (with a bound: its largest).
-            let from = if i_now < 0 { -held } else { held };
-            reversal_in = m
-                .decay_time_us(
-                    Current::from_bits(from),
-                    Current::from_bits(self.release),
-                    input.supply,
-                    input.back_emf,
-                    decay,
-                )
-                .map(|t| t.saturating_add(dead_left));
-        } else if state.direction == Direction::Unknown
-            && held <= self.release
-            && state.quiet_us >= self.dead_us
-        {
-            // The assumed current has decayed: nothing is known to flow any more.
-            state.direction = Direction::None;
-        }
+        // 3. The interlock.
+        let (mut duty, reversal_in) = self.interlock(
+            state,
+            (input, hold),
+            (i_now, held, bound_before),
+            (&mut active, &mut decay),
+        );
 
         // 4. The ceiling, over the whole coming period. In the drive's direction the period's
         // highest current grows with the drive counts (more drive time at a voltage beyond
         // either decay's), so the largest duty that fits is found by bisection.
-        let (supply, emf) = (input.supply, input.back_emf);
+        let emf = input.back_emf;
         let after_slow = state.coil.after_slow();
         let rails = (vs, vs);
         let bounded = |f: usize, duty: i32, decay: AppliedDecay| {
@@ -721,48 +821,14 @@ impl BridgeGuard {
             predicted = magnitude(duty, decay);
             active.insert(Condition::CurrentLimit);
         }
-        // 5. The bus over the coming period: the charge the plan would return against the
-        // headroom, before it is returned.
-        if let Some(b) = m.bus {
-            let after = |duty: i32, decay: AppliedDecay| -> i64 {
-                let p = m.parts(i_now, after_slow, duty, supply, emf, decay);
-                let (drawn, returned) = (Charge::from_bits(p.drawn), Charge::from_bits(p.returned));
-                self.bus_after(state.bus, duty, decay, drawn, returned)
-            };
-            // The nominal tracker and the bound's: the charge the rail reading already shows plus
-            // the most the plan could return (the drive's draw ignored), and what stopping the
-            // current at the period's end would return, against the headroom at the lowest
-            // capacitance (`BridgeBound::keeps_bus`).
-            let keeps = |duty: i32, decay: AppliedDecay, strict: bool| {
-                let (_, fast, _) = m.split(duty, decay);
-                let sunk = b.sink_per_count.saturating_mul(i64::from(fast));
-                after(duty, decay) <= b.headroom
-                    && self.bound.keeps_bus(
-                        &state.bound,
-                        m,
-                        after_slow,
-                        (duty, decay),
-                        (rails, (emf, emf)),
-                        (input.supply, sunk),
-                        (self.ceiling, strict),
-                    )
-            };
-            if !keeps(duty, decay, true) {
-                active.insert(Condition::SupplyPump);
-                if pol.supply_pump == PumpResponse::Recirculate {
-                    let coast =
-                        self.bound
-                            .can_coast(&state.bound, m, (rails, (emf, emf)), input.supply);
-                    (duty, decay) = self.spare_the_bus(duty, &magnitude, &keeps, coast);
-                    predicted = magnitude(duty, decay);
-                    if predicted > self.ceiling {
-                        // Neither decay keeps both the bus and the ceiling: the bus comes first
-                        // (a rail past the switches' breakdown destroys them); the trip still
-                        // guards the current.
-                        active.insert(Condition::CurrentLimit);
-                    }
-                }
-            }
+        // 5. The bus over the coming period.
+        if m.bus.is_some() {
+            self.keep_bus(
+                state,
+                (input, i_now, after_slow),
+                (&mut duty, &mut decay, &mut predicted),
+                (&mut active, &magnitude),
+            );
         }
         active = active.union(state.latched);
         state.applied = duty;
