@@ -367,6 +367,17 @@ impl DutyFactors {
             self.off.get(j).copied().unwrap_or(Decay::ZERO),
         )
     }
+
+    /// Slice `j`'s (on, off) factors for duty `n` alone, evaluated without keeping them (a
+    /// search that probes one slice at many duties).
+    pub(crate) fn one(bound: &Bound, j: usize, n: u32, full: u32) -> (Decay, Decay) {
+        bound
+            .slices
+            .get(j)
+            .map_or((Decay::ZERO, Decay::ZERO), |sl| {
+                (sl.on.eval(n), sl.off.eval(full.saturating_sub(n)))
+            })
+    }
 }
 
 /// Slices of the inductance range tracked side by side in PWM, at most (see the module
