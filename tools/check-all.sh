@@ -37,6 +37,9 @@ missing=()
 command -v ngspice >/dev/null 2>&1 || missing+=(ngspice)
 command -v qemu-system-arm >/dev/null 2>&1 || missing+=(qemu-system-arm)
 command -v cc >/dev/null 2>&1 || missing+=(gcc)
+# SciPy for the sweep's failure bound (host-sim/tests/statistics.rs), in python3 or the system's.
+python3 -c 'import scipy.stats' >/dev/null 2>&1 || /usr/bin/python3 -c 'import scipy.stats' \
+    >/dev/null 2>&1 || missing+=(python3-scipy)
 if [ ${#missing[@]} -gt 0 ]; then
     step "installing Debian packages: ${missing[*]}"
     as_root apt-get update -qq
@@ -141,6 +144,13 @@ for f in irrigation-valve relay-zener relay-on-events unclamped-avalanche valve-
     grep -q '"inside_tolerance": true' "$OUT/faults-$f.json"
 done
 expect 0 "$SIM" sweep examples/scenarios/relay-zener.toml --samples 200 --json "$OUT/sweep.json"
+grep -q '"failure_upper_95"' "$OUT/sweep.json"
+# Shards with records (exit 0: their findings are in the records), merged (limited: exit 3).
+for k in 1 2; do
+    expect 0 "$SIM" sweep examples/scenarios/valve-at-ceiling.toml --samples 40 --plan latin \
+        --shard "$k/2" --records "$OUT/part$k.jsonl"
+done
+expect 3 "$SIM" merge "$OUT/part1.jsonl" "$OUT/part2.jsonl" --json "$OUT/merged.json"
 expect 0 "$SIM" fit examples/captures/valve-pull-in.csv --supply "24 V" --on-resistance "0.1 Ω" \
     --svg "$OUT/fit.svg"
 test -s "$OUT/fit.svg"

@@ -9,7 +9,7 @@
 
 use coilward_sim::scenario::Scenario;
 use coilward_sim::spice::{self, Case};
-use coilward_sim::sweep::{self, Shard};
+use coilward_sim::sweep::{self, Spec};
 use std::time::Instant;
 
 fn agree(what: &str, got: f64, want: f64, tol: f64) -> bool {
@@ -67,7 +67,7 @@ fn main() {
         .join("../examples/scenarios/irrigation-valve.toml");
     let s = Scenario::load(&path).expect("demo scenario");
     let t0 = Instant::now();
-    let r = sweep::run(&s, 1000, 1, Shard::ALL, || {});
+    let r = sweep::run(&s, &Spec::uniform(1000, 1), || {});
     let t = t0.elapsed().as_secs_f64();
     println!(
         "sweep: 1000 samples of the 200 ms irrigation-valve scenario (guard + plant) on {} threads: {t:.2} s (goal: under 10 s); {} failed",

@@ -185,7 +185,9 @@ impl Run {
 }
 
 /// What a run amounts to, the same for both topologies and for each sweep sample.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize)]
+#[derive(
+    Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, serde::Deserialize,
+)]
 #[serde(rename_all = "lowercase")]
 pub enum Verdict {
     /// No limit exceeded, and the guard never changed the request.

@@ -8,7 +8,9 @@ use coilward_sim::bridge::{self, scenario::BridgeScenario};
 use coilward_sim::cosim::{self, Options};
 use coilward_sim::report::{self, si};
 use coilward_sim::scenario::{self, Scenario};
-use coilward_sim::sweep::{self, Shard};
+use coilward_sim::sweep::records::{self, Done, Header, Writer};
+use coilward_sim::sweep::summary::Summary;
+use coilward_sim::sweep::{self, Plan, Shard, Spec};
 use indicatif::{ProgressBar, ProgressStyle};
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
@@ -75,23 +77,48 @@ enum Command {
     },
     /// Monte Carlo over the scenario's [tolerance] spreads, in parallel.
     #[command(
-        after_help = "Examples:\n  coilward-sim sweep valve.toml --samples 1000\n  coilward-sim sweep valve.toml --samples 100000 --seed 7 --shard 3/16 --json part3.json\n\nA sample is the same on every machine and shard: the shards' results together are the\nunsharded sweep's."
+        after_help = "Examples:\n  coilward-sim sweep valve.toml --samples 1000\n  coilward-sim sweep valve.toml --samples 3000 --plan latin --json summary.json\n  coilward-sim sweep valve.toml --plan corners\n  coilward-sim sweep valve.toml --samples 100000 --seed 7 --shard 3/16 --records part3.jsonl\n\nA sample is the same on every machine and shard: the shards' records merged (`merge`) give\nthe unsharded sweep's summary. With --records, each sample is written as it finishes; the same\ncommand run again after an interruption finishes the sweep from what the file holds.\n\nExit status: without --records, the worst sample's (0 pass, 3 limited, 1 fail); with --records,\n0 once the samples are written (the verdict is in the records, for `merge`); 2 bad input."
     )]
     Sweep {
         /// Scenario file (TOML).
         file: PathBuf,
-        /// Number of samples in the whole sweep.
+        /// Number of samples in the whole sweep (with --plan corners: 2^spreads, the default).
         #[arg(long)]
-        samples: u64,
+        samples: Option<u64>,
         /// Seed of the draws.
         #[arg(long, default_value_t = 1)]
         seed: u64,
+        /// How each spread is drawn: uniform, normal (the spread as ±3σ, truncated), corners
+        /// (every corner of the box), latin (Latin hypercube).
+        #[arg(long, default_value = "uniform")]
+        plan: String,
         /// Run only part K of N (samples with index mod N = K − 1).
         #[arg(long, value_name = "K/N")]
         shard: Option<String>,
-        /// Write every sample's outcome and the worst cases here (JSON).
+        /// Write each sample's outcome here as it finishes (JSON Lines); resumes from it.
+        #[arg(long, value_name = "PATH")]
+        records: Option<PathBuf>,
+        /// Write the summary here (JSON).
         #[arg(long, value_name = "PATH")]
         json: Option<PathBuf>,
+        /// The failure probability to show: the samples it needs are printed.
+        #[arg(long, default_value = "0.1 %")]
+        target: String,
+    },
+    /// Combine the records of a sweep's shards into the summary of the whole sweep.
+    #[command(
+        after_help = "Example:\n  coilward-sim merge part*.jsonl --json summary.json\n\nThe records must come from the same scenario file, seed, size and plan. The summary is the\nunsharded sweep's, bit for bit. Exit status: the worst sample's (0 pass, 3 limited, 1 fail),\n2 bad input."
+    )]
+    Merge {
+        /// Records files (JSON Lines) written by `sweep --records`.
+        #[arg(required = true)]
+        records: Vec<PathBuf>,
+        /// Write the summary here (JSON).
+        #[arg(long, value_name = "PATH")]
+        json: Option<PathBuf>,
+        /// The failure probability to show: the samples it needs are printed.
+        #[arg(long, default_value = "0.1 %")]
+        target: String,
     },
     /// Run the fault suite on the scenario: its declared tolerance's corners and random points
     /// inside, and named faults outside.
@@ -612,174 +639,249 @@ fn print_tolerance_and_clamp_power(s: &Scenario) {
     );
 }
 
-/// The failed samples, before any figure: they are what a designer must look at (five at most;
-/// all of them are in the JSON results).
-fn print_failed(results: &[sweep::Sample], failed: usize) {
-    for r in results
-        .iter()
-        .filter(|r| r.verdict == cosim::Verdict::Fail)
-        .take(5)
-    {
-        say!("  failed: sample {} ({})", r.index, r.findings.join(", "));
+/// `--target`: a probability written as a percentage (`0.1 %`) or a fraction (`0.001`).
+fn target_probability(text: &str) -> Result<f64, ExitCode> {
+    let t = text.trim();
+    let (number, scale) = match t.strip_suffix('%') {
+        Some(n) => (n.trim(), 0.01),
+        None => (t, 1.0),
+    };
+    match number.parse::<f64>() {
+        Ok(x) if x * scale > 0.0 && x * scale < 1.0 => Ok(x * scale),
+        _ => {
+            eprintln!(
+                "error: --target `{text}`: write a probability above 0 and below 100 %, e.g. 0.1 %"
+            );
+            Err(ExitCode::from(2))
+        }
     }
-    if failed > 5 {
-        say!(
-            "  failed: {} more samples (all in the JSON results)",
-            failed - 5
-        );
+}
+
+/// The sweep's size, seed, plan and shard from the command line.
+fn sweep_spec(
+    s: &Scenario,
+    (samples, seed, plan, shard): (Option<u64>, u64, &str, Option<&str>),
+) -> Result<Spec, ExitCode> {
+    let bad = |e: String| {
+        eprintln!("error: {e}");
+        ExitCode::from(2)
+    };
+    let plan = Plan::parse(plan).map_err(|e| bad(format!("--plan {e}")))?;
+    let shard = match shard {
+        Some(t) => Shard::parse(t).map_err(|e| bad(format!("--shard {e}")))?,
+        None => Shard::ALL,
+    };
+    if s.tolerance.is_empty() {
+        return Err(bad(format!(
+            "{}: no [tolerance] section, so every sample would be the same; add spreads such as inductance = \"±20 %\"",
+            s.file.display()
+        )));
     }
+    let samples = if plan == Plan::Corners {
+        let d = s.tolerance.len() as u32;
+        let corners = 1u64 << d.min(63);
+        if d > 24 {
+            return Err(bad(format!(
+                "--plan corners: {d} spreads have 2^{d} corners; use --plan latin"
+            )));
+        }
+        match samples {
+            Some(n) if n != corners => {
+                return Err(bad(format!(
+                    "--samples {n}: the box of {d} spreads has {corners} corners; leave --samples out or give {corners}"
+                )));
+            }
+            _ => corners,
+        }
+    } else {
+        match samples {
+            Some(n) if n > 0 => n,
+            Some(_) => return Err(bad("--samples must be at least 1".into())),
+            None => {
+                return Err(bad(format!(
+                    "--samples is needed with --plan {}",
+                    plan.word()
+                )));
+            }
+        }
+    };
+    Ok(Spec {
+        samples,
+        seed,
+        plan,
+        shard,
+    })
+}
+
+/// The records to append to: the file's samples folded into `summary` and marked in `done`
+/// when it holds this sweep's (a resumed sweep), else a new file.
+fn open_records(
+    path: &Path,
+    header: &Header,
+    done: &mut Done,
+    summary: &mut Summary,
+) -> Result<Writer, ExitCode> {
+    let refuse = |e: String| {
+        eprintln!("error: --records {}: {e}", path.display());
+        ExitCode::from(2)
+    };
+    if std::fs::metadata(path).map_or(true, |m| m.len() == 0) {
+        return Writer::create(path, header).map_err(refuse);
+    }
+    let found = records::read(path, done, summary).map_err(&refuse)?;
+    if let Some(why) = header.mismatch(&found.header) {
+        return Err(refuse(format!(
+            "holds another sweep's samples ({why}); give another path, or delete the file to start again"
+        )));
+    }
+    if found.header.shard != header.shard {
+        return Err(refuse(format!(
+            "holds shard {}, not {}; give each shard its own file",
+            found.header.shard, header.shard
+        )));
+    }
+    say!(
+        "  resuming: {} samples already in {}{}",
+        summary.samples,
+        path.display(),
+        if found.cut {
+            " (a last record cut short is dropped)"
+        } else {
+            ""
+        }
+    );
+    Writer::resume(path, found.complete_len).map_err(refuse)
 }
 
 fn sweep_cmd(
     file: &Path,
-    samples: u64,
-    seed: u64,
-    shard: Option<&str>,
-    json: Option<&Path>,
+    what: (Option<u64>, u64, &str, Option<&str>),
+    (records, json): (Option<&Path>, Option<&Path>),
+    target: &str,
 ) -> Result<ExitCode, ExitCode> {
     let s = load(file)?;
-    let shard = match shard {
-        Some(t) => Shard::parse(t).map_err(|e| {
-            eprintln!("error: --shard {e}");
-            ExitCode::from(2)
-        })?,
-        None => Shard::ALL,
-    };
-    if samples == 0 {
-        eprintln!("error: --samples must be at least 1");
-        return Err(ExitCode::from(2));
-    }
-    if s.tolerance.is_empty() {
-        eprintln!(
-            "error: {}: no [tolerance] section, so every sample would be the same; add spreads such as inductance = \"±20 %\"",
-            file.display()
-        );
-        return Err(ExitCode::from(2));
-    }
+    let spec = sweep_spec(&s, what)?;
+    let target = target_probability(target)?;
+    let bytes = std::fs::read(file).map_err(|e| {
+        eprintln!("error: {}: {e}", file.display());
+        ExitCode::from(2)
+    })?;
+    let header = Header::new(&s, &bytes, &spec);
+    let (mut done, mut summary) = (Done::new(spec.samples), Summary::default());
+    let writer = records
+        .map(|p| open_records(p, &header, &mut done, &mut summary))
+        .transpose()?;
     // The output is checked writable before the work.
     if let Some(p) = json {
-        writable(p, "JSON results")?;
+        writable(p, "JSON summary")?;
     }
-    let mine = (0..samples).filter(|&i| shard.owns(i)).count() as u64;
+    let mine = (0..spec.samples)
+        .filter(|&i| spec.shard.owns(i) && !done.has(i))
+        .count() as u64;
     let bar = ProgressBar::new(mine);
     bar.set_style(
         ProgressStyle::with_template("{bar:40} {pos}/{len} samples, {eta} left")
             .unwrap_or_else(|_| ProgressStyle::default_bar()),
     );
     let t0 = std::time::Instant::now();
-    let results = sweep::run(&s, samples, seed, shard, || bar.inc(1));
+    let shared = std::sync::Mutex::new((writer, summary, None::<String>));
+    sweep::each(
+        &s,
+        &spec,
+        |i| done.has(i),
+        |x| {
+            let mut g = shared.lock().unwrap_or_else(|e| e.into_inner());
+            let (writer, summary, error) = &mut *g;
+            if let Some(w) = writer
+                && let Err(e) = w.sample(&x)
+            {
+                error.get_or_insert(e);
+            }
+            summary.add(&x);
+            bar.inc(1);
+        },
+    );
     bar.finish_and_clear();
-    let [passed, limited, failed] = [
-        cosim::Verdict::Pass,
-        cosim::Verdict::Limited,
-        cosim::Verdict::Fail,
-    ]
-    .map(|v| results.iter().filter(|r| r.verdict == v).count());
+    let (_, summary, error) = shared.into_inner().unwrap_or_else(|e| e.into_inner());
+    if let (Some(e), Some(p)) = (error, records) {
+        eprintln!("error: cannot write the records to {}: {e}", p.display());
+        return Err(ExitCode::from(2));
+    }
     say!(
-        "{} ({}): {} samples (shard {}/{} of {samples}, seed {seed}) in {:.2} s",
+        "{} ({}): {} samples (shard {}/{} of {}, seed {}, plan {}), {mine} run in {:.2} s",
         s.name,
         s.file.display(),
-        results.len(),
-        shard.k,
-        shard.n,
+        summary.samples,
+        spec.shard.k,
+        spec.shard.n,
+        spec.samples,
+        spec.seed,
+        spec.plan.word(),
         t0.elapsed().as_secs_f64()
     );
-    say!("  pass {passed}, limited {limited}, fail {failed}");
-    let worst = results
-        .iter()
-        .map(|r| r.verdict)
-        .max()
-        .unwrap_or(cosim::Verdict::Pass);
-    print_failed(&results, failed);
-    let worst_json = print_worst(&results);
-    print_findings(&results);
-    if let Some(p) = json {
-        write_file(p, "JSON results", |p| {
-            let v = serde_json::json!({
-                "schema": coilward_sim::report::json::REPORT_SCHEMA,
-                "scenario": coilward_sim::report::json::scenario(&s.name, &s.file, "low-side"),
-                "samples": samples, "seed": seed, "shard": format!("{}/{}", shard.k, shard.n),
-                "verdict": worst.word(),
-                "passed": passed, "limited": limited, "failed": failed,
-                "worst": worst_json,
-                "results": results,
-            });
-            std::fs::write(
-                p,
-                serde_json::to_string_pretty(&v).map_err(|e| e.to_string())? + "\n",
-            )
-            .map_err(|e| e.to_string())
-        })?;
-    }
-    Ok(verdict(worst))
+    say_part!("{}", report::sweep::text(&summary, header.plan, target));
+    write_summary(json, &header, &summary)?;
+    Ok(if records.is_some() {
+        ExitCode::SUCCESS
+    } else {
+        verdict(summary.verdict())
+    })
 }
 
-/// One figure of a sweep's sample.
-type Figure = fn(&sweep::Sample) -> f64;
-
-/// The figures a sweep reports its worst sample for: name, unit, and the figure (a decay that
-/// never reached the release level counts as the longest).
-const WORST: [(&str, &str, Figure); 5] = [
-    ("peak current", "A", |x| x.peak_current_a),
-    ("switch-node peak", "V", |x| x.peak_drain_voltage_v),
-    ("clamp pulse", "J", |x| x.max_pulse_energy_j),
-    ("decay time", "s", |x| {
-        x.longest_decay_s.unwrap_or(f64::INFINITY)
-    }),
-    ("estimate error", "A", |x| x.max_estimate_error_a),
-];
-
-/// Prints each figure's worst sample with its drawn parameters; returns them for the JSON.
-fn print_worst(results: &[sweep::Sample]) -> serde_json::Map<String, serde_json::Value> {
-    say!("\n  worst cases:");
-    let mut worst_json = serde_json::Map::new();
-    for (what, unit, figure) in WORST {
-        let Some(w) = sweep::worst_by(results, figure) else {
-            continue;
-        };
-        let value = figure(w);
-        let params: Vec<String> = w
-            .parameters
-            .iter()
-            .map(|(k, v)| format!("{k} {}", fmt_param(k, *v)))
-            .collect();
-        let shown = if value.is_finite() {
-            si(value, unit, 4)
-        } else {
-            "not reached".into()
-        };
-        say!(
-            "  {what:<17} {shown:>11}  sample {} ({}): {}",
-            w.index,
-            w.verdict.word(),
-            params.join(", ")
-        );
-        let value = value.is_finite().then_some(value);
-        worst_json.insert(
-            what.replace([' ', '-'], "_"),
-            serde_json::json!({"value": value, "sample": w.index}),
-        );
-    }
-    worst_json
+/// Writes the JSON summary, if asked for.
+fn write_summary(json: Option<&Path>, header: &Header, summary: &Summary) -> Result<(), ExitCode> {
+    let Some(p) = json else { return Ok(()) };
+    write_file(p, "JSON summary", |p| {
+        let v = report::sweep::json(header, summary);
+        let text = serde_json::to_string_pretty(&v).map_err(|e| e.to_string())?;
+        std::fs::write(p, text + "\n").map_err(|e| e.to_string())
+    })
 }
 
-/// Prints how many samples each kind of finding came up in.
-fn print_findings(results: &[sweep::Sample]) {
-    let mut kinds: Vec<&str> = results
-        .iter()
-        .flat_map(|r| r.findings.iter().copied())
-        .collect();
-    kinds.sort_unstable();
-    kinds.dedup();
-    if !kinds.is_empty() {
-        say!("\n  findings among the samples (the limited ones: the guard acted):");
-        for k in kinds {
-            say!(
-                "  {k:<26} {} samples",
-                results.iter().filter(|r| r.findings.contains(&k)).count()
-            );
+fn merge_cmd(files: &[PathBuf], json: Option<&Path>, target: &str) -> Result<ExitCode, ExitCode> {
+    let target = target_probability(target)?;
+    let refuse = |p: &Path, e: String| {
+        eprintln!("error: {}: {e}", p.display());
+        ExitCode::from(2)
+    };
+    let Some(first) = files.first() else {
+        return Err(ExitCode::from(2));
+    };
+    let header = records::header(first).map_err(|e| refuse(first, e))?;
+    let (mut done, mut summary) = (Done::new(header.sweep_size), Summary::default());
+    let mut shards = Vec::new();
+    for p in files {
+        let found = records::read(p, &mut done, &mut summary).map_err(|e| refuse(p, e))?;
+        if let Some(why) = header.mismatch(&found.header) {
+            let why = format!("another sweep than {} ({why})", first.display());
+            return Err(refuse(p, why));
         }
+        if found.cut {
+            let why = "ends in a record cut short (its shard was interrupted): run that shard's sweep again to finish it";
+            return Err(refuse(p, why.into()));
+        }
+        shards.push(found.header.shard);
     }
+    say!(
+        "{} ({}): {} of {} samples (seed {}, plan {}) merged from {} files (shards {})",
+        header.scenario,
+        header.file,
+        summary.samples,
+        header.sweep_size,
+        header.seed,
+        header.plan.word(),
+        files.len(),
+        shards.join(", ")
+    );
+    if summary.samples < header.sweep_size {
+        say!(
+            "  warning: {} samples of the sweep are missing (a shard not merged, or not finished)",
+            header.sweep_size - summary.samples
+        );
+    }
+    say_part!("{}", report::sweep::text(&summary, header.plan, target));
+    write_summary(json, &header, &summary)?;
+    Ok(verdict(summary.verdict()))
 }
 
 /// `t=A,i=B` into its two parts.
@@ -864,18 +966,6 @@ fn fit_cmd(
     )
 }
 
-fn fmt_param(key: &str, v: f64) -> String {
-    let unit = coilward_sim::scenario::Knob::ALL
-        .iter()
-        .find(|k| k.name() == key)
-        .map_or("", |k| k.unit().symbol());
-    if unit == "°C" {
-        format!("{v:.1} °C")
-    } else {
-        si(v, unit, 4)
-    }
-}
-
 /// The scenario `new` writes.
 const LOW_SIDE_TEMPLATE: &str = include_str!("../templates/low-side.toml");
 /// The scenario `new --bridge` writes.
@@ -955,9 +1045,22 @@ fn main() -> ExitCode {
             file,
             samples,
             seed,
+            plan,
             shard,
+            records,
             json,
-        } => sweep_cmd(file, *samples, *seed, shard.as_deref(), json.as_deref()),
+            target,
+        } => sweep_cmd(
+            file,
+            (*samples, *seed, plan, shard.as_deref()),
+            (records.as_deref(), json.as_deref()),
+            target,
+        ),
+        Command::Merge {
+            records,
+            json,
+            target,
+        } => merge_cmd(records, json.as_deref(), target),
         Command::Faults { file, json } => faults_cmd(file, json.as_deref()),
         Command::New { bridge, file, .. } => new_cmd(*bridge, file.as_deref()),
         Command::Fit {

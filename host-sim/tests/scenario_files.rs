@@ -316,11 +316,15 @@ fn reports_keep_their_contract() {
 #[test]
 fn sweep_shards_reassemble_the_whole_sweep() {
     let s = Scenario::load(&demo("relay-zener.toml")).unwrap();
-    use coilward_sim::sweep::{self, Shard};
-    let whole = sweep::run(&s, 12, 9, Shard::ALL, || {});
+    use coilward_sim::sweep::{self, Shard, Spec};
+    let whole = sweep::run(&s, &Spec::uniform(12, 9), || {});
     let mut parts = Vec::new();
     for k in 1..=3 {
-        parts.extend(sweep::run(&s, 12, 9, Shard { k, n: 3 }, || {}));
+        let spec = Spec {
+            shard: Shard { k, n: 3 },
+            ..Spec::uniform(12, 9)
+        };
+        parts.extend(sweep::run(&s, &spec, || {}));
     }
     parts.sort_by_key(|x| x.index);
     assert_eq!(whole.len(), 12);
@@ -345,10 +349,10 @@ fn sweep_samples_never_stop_the_plant() {
     // a turn-off and the two modes disagreed on the sign by one rounding, toggling the diode
     // 100 000 times at one instant.
     let s = Scenario::load(&demo("irrigation-valve.toml")).unwrap();
-    let r = coilward_sim::sweep::run(&s, 48, 1, coilward_sim::sweep::Shard::ALL, || {});
+    let r = coilward_sim::sweep::run(&s, &coilward_sim::sweep::Spec::uniform(48, 1), || {});
     for x in &r {
         assert!(
-            !x.findings.contains(&"plant-stopped"),
+            !x.findings.iter().any(|f| f == "plant-stopped"),
             "sample {}: {:?}",
             x.index,
             x.findings

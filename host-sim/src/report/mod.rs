@@ -7,6 +7,7 @@ pub mod fit;
 pub mod json;
 pub mod plot;
 pub mod svg;
+pub mod sweep;
 
 use crate::cosim::Run;
 use crate::scenario::{Calls, Scenario};

@@ -1,0 +1,396 @@
+//! Monte Carlo over the scenario's `[tolerance]` spreads.
+//!
+//! Sample `i` of seed `s` draws its values from the ChaCha8 stream `i` of seed `s` by the
+//! sweep's [`Plan`], so a sample is the same whichever machine, thread or shard runs it:
+//! `--shard K/N` runs the samples with `i mod N = K − 1`, and the shards' results together are
+//! exactly the unsharded sweep's. The plant takes the drawn values; the guard keeps the
+//! scenario's beliefs (what the firmware was built with).
+//!
+//! [`summary`] folds samples into what a sweep amounts to (with the failure probability's
+//! confidence bound) in any order; [`records`] writes them as they finish, resumes an
+//! interrupted sweep and merges shards.
+
+pub mod records;
+pub mod summary;
+
+use crate::cosim::{self, Options};
+use crate::scenario::{Knob, Scenario};
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+
+/// One sample's outcome.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Sample {
+    /// Sample index.
+    pub index: u64,
+    /// "pass", "limited" or "fail".
+    pub verdict: crate::cosim::Verdict,
+    /// Kinds of the findings.
+    pub findings: Vec<String>,
+    /// True peak current, A.
+    pub peak_current_a: f64,
+    /// True peak switch-node voltage, V.
+    pub peak_drain_voltage_v: f64,
+    /// Largest single clamp pulse, J.
+    pub max_pulse_energy_j: f64,
+    /// Longest decay to the release current among the turn-offs, s (`None` if one never got
+    /// there or there were none).
+    pub longest_decay_s: Option<f64>,
+    /// Worst |estimate − true|, A.
+    pub max_estimate_error_a: f64,
+    /// The drawn values, by key, SI units.
+    pub parameters: Vec<(String, f64)>,
+}
+
+/// How a sweep draws each spread's value.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Plan {
+    /// Uniform inside the spread.
+    Uniform,
+    /// Normal around the spread's middle with the spread's half-width as 3σ, truncated at the
+    /// spread (a draw outside it is drawn again from the same stream): how a part's "±x %" is
+    /// usually meant when the parts come from a production lot.
+    Normal,
+    /// The box's corners: sample `i` takes each spread's low or high end by the bits of `i`
+    /// (spread `j` high when bit `j` is set), so `2^d` samples for `d` spreads visit them all.
+    Corners,
+    /// Latin hypercube: each spread's range cut into as many equal strata as the sweep has
+    /// samples, each stratum used by exactly one sample (a seeded permutation per spread),
+    /// uniform inside it. Covers every spread's range evenly with few samples.
+    Latin,
+}
+
+impl Plan {
+    /// Every plan, in the order the help lists them.
+    pub const ALL: [Plan; 4] = [Plan::Uniform, Plan::Normal, Plan::Corners, Plan::Latin];
+
+    /// The plan's name on the command line and in records.
+    pub fn word(self) -> &'static str {
+        match self {
+            Plan::Uniform => "uniform",
+            Plan::Normal => "normal",
+            Plan::Corners => "corners",
+            Plan::Latin => "latin",
+        }
+    }
+
+    /// Whether samples are drawn at random (so their failures bound a probability): every
+    /// plan but the corners. Clopper–Pearson assumes independent draws: exact for uniform and
+    /// normal; a Latin hypercube's estimate has at most N/(N − 1) times the variance of
+    /// independent draws for any figure (Owen, 1997, from memory), so its bound is close.
+    pub fn is_random(self) -> bool {
+        self != Plan::Corners
+    }
+
+    /// From its name.
+    pub fn parse(word: &str) -> Result<Self, String> {
+        Self::ALL
+            .into_iter()
+            .find(|p| p.word() == word)
+            .ok_or_else(|| {
+                let all: Vec<&str> = Self::ALL.iter().map(|p| p.word()).collect();
+                format!("`{word}` is not a plan; one of {}", all.join(", "))
+            })
+    }
+}
+
+/// What to sample: the whole sweep's size, its seed and plan, and the part to run.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Spec {
+    /// Samples in the whole sweep.
+    pub samples: u64,
+    /// Seed of the draws.
+    pub seed: u64,
+    /// How values are drawn.
+    pub plan: Plan,
+    /// The part of the sweep to run.
+    pub shard: Shard,
+}
+
+impl Spec {
+    /// A uniform sweep of `samples` with `seed`, all of it.
+    pub const fn uniform(samples: u64, seed: u64) -> Self {
+        Self {
+            samples,
+            seed,
+            plan: Plan::Uniform,
+            shard: Shard::ALL,
+        }
+    }
+}
+
+/// Which part of the sweep to run.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Shard {
+    /// 1-based shard number.
+    pub k: u64,
+    /// Number of shards.
+    pub n: u64,
+}
+
+impl Shard {
+    /// The whole sweep.
+    pub const ALL: Shard = Shard { k: 1, n: 1 };
+
+    /// Parses `K/N`.
+    pub fn parse(s: &str) -> Result<Self, String> {
+        let (k, n) = s
+            .split_once('/')
+            .ok_or_else(|| format!("`{s}`: write the shard as K/N, e.g. 2/8"))?;
+        let k: u64 = k
+            .trim()
+            .parse()
+            .map_err(|_| format!("`{s}`: K is not a whole number"))?;
+        let n: u64 = n
+            .trim()
+            .parse()
+            .map_err(|_| format!("`{s}`: N is not a whole number"))?;
+        if n == 0 || k == 0 || k > n {
+            return Err(format!("`{s}`: need 1 ≤ K ≤ N"));
+        }
+        Ok(Self { k, n })
+    }
+
+    /// Whether sample `i` belongs to this shard.
+    pub fn owns(self, i: u64) -> bool {
+        i % self.n == self.k - 1
+    }
+}
+
+/// Draws sample `index`'s values.
+pub fn draw(s: &Scenario, spec: &Spec, index: u64) -> crate::scenario::Values {
+    let mut rng = ChaCha8Rng::seed_from_u64(spec.seed);
+    rng.set_stream(index);
+    let mut v = s.plant;
+    for (j, &(knob, spread)) in s.tolerance.iter().enumerate() {
+        let (lo, hi) = spread.bounds(s.plant.get(knob));
+        let u = match spec.plan {
+            Plan::Uniform => rng.random::<f64>(),
+            Plan::Normal => truncated_normal(&mut rng),
+            Plan::Corners => f64::from(u8::from(j < 64 && index >> j & 1 == 1)),
+            Plan::Latin => {
+                let stratum = permute(index, spec.samples, spec.seed, j as u64);
+                (stratum as f64 + rng.random::<f64>()) / spec.samples as f64
+            }
+        };
+        v.set(knob, lo + (hi - lo) * u);
+    }
+    v
+}
+
+/// A standard normal draw at 3σ = ½ mapped onto [0, 1] (mean ½), drawn again until inside.
+fn truncated_normal(rng: &mut ChaCha8Rng) -> f64 {
+    loop {
+        let z: f64 = rng.sample(rand_distr::StandardNormal);
+        if z.abs() <= 3.0 {
+            return 0.5 + z / 6.0;
+        }
+    }
+}
+
+/// Position of `i` in a seeded permutation of `0..n` (one per `dimension`): a four-round
+/// Feistel network on the smallest even number of bits that holds `n`, walked until it lands
+/// inside (a bijection on `0..n`, computed per index in constant memory).
+pub fn permute(i: u64, n: u64, seed: u64, dimension: u64) -> u64 {
+    if n <= 1 {
+        return 0;
+    }
+    let bits = (64 - (n - 1).leading_zeros()).max(2).next_multiple_of(2);
+    let half = bits / 2;
+    let mask = (1u64 << half) - 1;
+    let mut x = i;
+    loop {
+        let (mut l, mut r) = (x >> half, x & mask);
+        for round in 0..4u64 {
+            let f = splitmix(seed ^ splitmix(dimension ^ splitmix(round ^ r << 8))) & mask;
+            (l, r) = (r, l ^ f);
+        }
+        x = l << half | r;
+        if x < n {
+            return x;
+        }
+    }
+}
+
+/// The SplitMix64 finaliser: a fixed, well-mixed 64-bit map.
+fn splitmix(mut z: u64) -> u64 {
+    z = z.wrapping_add(0x9e37_79b9_7f4a_7c15);
+    z = (z ^ z >> 30).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+    z = (z ^ z >> 27).wrapping_mul(0x94d0_49bb_1331_11eb);
+    z ^ z >> 31
+}
+
+/// Runs one sample.
+pub fn sample(s: &Scenario, spec: &Spec, index: u64) -> Sample {
+    let v = draw(s, spec, index);
+    let r = cosim::run_with(s, &v.circuit(), Options::default());
+    let longest = if r.turn_offs.iter().any(|t| t.decay_time_s.is_none()) {
+        None
+    } else {
+        r.turn_offs
+            .iter()
+            .filter_map(|t| t.decay_time_s)
+            .reduce(f64::max)
+    };
+    Sample {
+        index,
+        verdict: r.verdict(),
+        findings: r.findings.iter().map(|f| f.kind.to_string()).collect(),
+        peak_current_a: r.peak_current_a,
+        peak_drain_voltage_v: r.peak_drain_voltage_v,
+        max_pulse_energy_j: r.max_pulse_energy_j,
+        longest_decay_s: longest,
+        max_estimate_error_a: r.estimate.max_abs_error_a,
+        parameters: s
+            .tolerance
+            .iter()
+            .map(|&(k, _)| (k.name().to_string(), v.get(k)))
+            .collect(),
+    }
+}
+
+/// Runs the shard's samples that `skip` does not name, in parallel, handing each to `each` as
+/// it finishes (in no particular order; nothing is kept).
+pub fn each(
+    s: &Scenario,
+    spec: &Spec,
+    skip: impl Fn(u64) -> bool + Sync,
+    each: impl Fn(Sample) + Sync,
+) {
+    (0..spec.samples)
+        .into_par_iter()
+        .filter(|&i| spec.shard.owns(i) && !skip(i))
+        .for_each(|i| each(sample(s, spec, i)));
+}
+
+/// Runs the shard's samples in parallel and returns them by index; `tick` is called once per
+/// finished sample.
+pub fn run(s: &Scenario, spec: &Spec, tick: impl Fn() + Sync) -> Vec<Sample> {
+    let out = std::sync::Mutex::new(Vec::new());
+    each(
+        s,
+        spec,
+        |_| false,
+        |x| {
+            tick();
+            out.lock().unwrap_or_else(|e| e.into_inner()).push(x);
+        },
+    );
+    let mut out = out.into_inner().unwrap_or_else(|e| e.into_inner());
+    out.sort_by_key(|x| x.index);
+    out
+}
+
+/// The spread keys of a scenario, for headers.
+pub fn knobs(s: &Scenario) -> Vec<Knob> {
+    s.tolerance.iter().map(|&(k, _)| k).collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The permutation is a bijection on `0..n` for sizes around powers of two and odd ones,
+    /// and differs between dimensions.
+    #[test]
+    fn permute_is_a_bijection() {
+        for n in [1u64, 2, 3, 5, 16, 17, 100, 1000, 4097] {
+            let mut seen = vec![false; n as usize];
+            for i in 0..n {
+                let p = permute(i, n, 7, 3) as usize;
+                assert!(!seen[p], "n {n}: {p} twice");
+                seen[p] = true;
+            }
+        }
+        let a: Vec<u64> = (0..100).map(|i| permute(i, 100, 7, 0)).collect();
+        let b: Vec<u64> = (0..100).map(|i| permute(i, 100, 7, 1)).collect();
+        assert_ne!(a, b);
+    }
+
+    fn valve() -> Scenario {
+        let dir = concat!(env!("CARGO_MANIFEST_DIR"), "/../examples/scenarios/");
+        Scenario::load(std::path::Path::new(&format!("{dir}relay-zener.toml"))).unwrap()
+    }
+
+    /// Each spread's position in its range, per sample.
+    fn positions(s: &Scenario, spec: &Spec) -> Vec<Vec<f64>> {
+        (0..spec.samples)
+            .map(|i| {
+                let v = draw(s, spec, i);
+                s.tolerance
+                    .iter()
+                    .map(|&(k, sp)| {
+                        let (lo, hi) = sp.bounds(s.plant.get(k));
+                        (v.get(k) - lo) / (hi - lo)
+                    })
+                    .collect()
+            })
+            .collect()
+    }
+
+    /// Latin hypercube: in every spread, each of the N strata holds exactly one sample.
+    #[test]
+    fn latin_fills_every_stratum_once() {
+        let s = valve();
+        let spec = Spec {
+            plan: Plan::Latin,
+            ..Spec::uniform(50, 11)
+        };
+        let x = positions(&s, &spec);
+        for d in 0..s.tolerance.len() {
+            let mut strata: Vec<u64> = x.iter().map(|p| (p[d] * 50.0).floor() as u64).collect();
+            strata.sort_unstable();
+            assert_eq!(strata, (0..50).collect::<Vec<_>>(), "spread {d}");
+        }
+    }
+
+    /// Corners: 2^d samples visit every corner once.
+    #[test]
+    fn corners_visit_every_corner() {
+        let s = valve();
+        let d = s.tolerance.len();
+        let spec = Spec {
+            plan: Plan::Corners,
+            ..Spec::uniform(1 << d, 1)
+        };
+        let mut seen: Vec<u64> = positions(&s, &spec)
+            .iter()
+            .map(|p| {
+                p.iter().enumerate().fold(0, |c, (j, &u)| {
+                    assert!(u.abs() < 1e-9 || (u - 1.0).abs() < 1e-9, "{u}");
+                    c | u64::from(u > 0.5) << j
+                })
+            })
+            .collect();
+        seen.sort_unstable();
+        assert_eq!(seen, (0..1 << d).collect::<Vec<u64>>());
+    }
+
+    /// Normal: inside the spread, centred, σ a sixth of the range (truncation at 3σ shrinks it
+    /// by 1.4 %: σ_t/σ = √(1 − 6φ(3)/(2Φ(3) − 1)) = 0.9866, from the truncated normal's
+    /// variance).
+    #[test]
+    fn normal_is_centred_with_its_sigma() {
+        let s = valve();
+        let spec = Spec {
+            plan: Plan::Normal,
+            ..Spec::uniform(20_000, 5)
+        };
+        let x = positions(&s, &spec);
+        for d in 0..s.tolerance.len() {
+            let u: Vec<f64> = x.iter().map(|p| p[d]).collect();
+            assert!(u.iter().all(|&v| (0.0..=1.0).contains(&v)));
+            let mean = u.iter().sum::<f64>() / u.len() as f64;
+            let sd = (u.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / u.len() as f64).sqrt();
+            assert!((mean - 0.5).abs() < 0.004, "spread {d}: mean {mean}");
+            let want = 0.9866 / 6.0;
+            assert!(
+                (sd / want - 1.0).abs() < 0.02,
+                "spread {d}: σ {sd}, want {want}"
+            );
+        }
+    }
+}
