@@ -13,6 +13,7 @@ use crate::units::Volts;
 /// Calibrated conversion from ADC counts to volts.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub struct SupplySense {
     /// Volts per count, Q16.48 (at most 1.0 = 2⁴⁸): `volts_bits = counts·gain >> 32`.
     gain: u64,

@@ -166,6 +166,7 @@ impl fmt::Display for Conditions {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub enum Action {
     /// Flag it; the output is unchanged.
     Report,

@@ -96,6 +96,7 @@ pub const LIMIT_LINGER: u8 = 32;
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub enum HeldRequest {
     /// Honour it as soon as the interval ends (default).
     Defer,
@@ -107,6 +108,7 @@ pub enum HeldRequest {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub struct Policy {
     /// `overcurrent`; default [`Action::Trip`].
     pub overcurrent: Action,
@@ -451,6 +453,7 @@ impl GuardState {
 
 /// The validated guard: model, limits and replicas. See the module documentation.
 #[derive(Debug, Clone, PartialEq, Hash)]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub struct Guard {
     model: Model,
     bound: Bound,
@@ -733,12 +736,25 @@ impl Guard {
             model,
             bound,
         };
-        // The whole configuration hashed (with the fingerprint still 0); never 0 in practice
-        // (0 marks an empty memo).
-        let mut h = crate::qmath::Fnv::new();
-        core::hash::Hash::hash(&guard, &mut h);
-        guard.fingerprint = core::hash::Hasher::finish(&h).max(1);
+        guard.fingerprint = guard.hashed();
         Ok(guard)
+    }
+
+    /// The whole configuration hashed with the fingerprint 0 (as it is while [`Guard::new`]
+    /// computes it); never 0 in practice (0 marks an empty memo).
+    fn hashed(&self) -> u64 {
+        let mut h = crate::qmath::Fnv::new();
+        core::hash::Hash::hash(self, &mut h);
+        core::hash::Hasher::finish(&h).max(1)
+    }
+
+    /// Whether the stored fingerprint is the configuration's (a guard loaded from bytes).
+    #[cfg(feature = "flash")]
+    pub(crate) fn fingerprint_holds(&mut self) -> bool {
+        let stored = core::mem::replace(&mut self.fingerprint, 0);
+        let computed = self.hashed();
+        self.fingerprint = stored;
+        stored == computed
     }
 
     /// The same limits with the model rebuilt for winding temperature `temperature` (°C).

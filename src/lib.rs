@@ -27,6 +27,8 @@ pub mod bridge;
 mod clamp;
 mod condition;
 mod estimate;
+#[cfg(feature = "flash")]
+pub mod flash;
 mod guard;
 mod hal;
 mod hold;
@@ -41,6 +43,8 @@ mod units;
 pub use adc::SupplySense;
 pub use condition::{Action, Condition, Conditions, Edge, Event, EventLog};
 pub use estimate::{CoilState, PeriodEstimate};
+#[cfg(feature = "flash")]
+pub use flash::{FLASH_LAYOUT, FLASH_MAX, FlashError};
 pub use guard::{
     ClampPower, Guard, GuardLimits, GuardState, HeldRequest, Input, LIMIT_LINGER, Output, Policy,
     Retry, TickMemo,

@@ -44,6 +44,7 @@ pub(crate) const TAU_RANGE: (f64, f64) = (1e-6, 100.0);
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 #[non_exhaustive]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub enum PathKind {
     /// The switch avalanches at its breakdown.
     Avalanche,
@@ -66,6 +67,7 @@ impl PathKind {
 /// Figures derived from the parameters, in SI units (f32), for display and checks.
 #[derive(Debug, Clone, Copy, PartialEq)]
 #[non_exhaustive]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub struct Derived {
     /// Winding resistance at the winding temperature, Ω.
     pub resistance: f32,
@@ -108,6 +110,7 @@ impl core::hash::Hash for Derived {
 
 /// The saturated part of the on-segment (see the module documentation).
 #[derive(Debug, Clone, PartialEq, Hash)]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub(crate) struct SatPart {
     /// Saturation current, raw.
     pub(crate) at: i64,
@@ -129,6 +132,7 @@ pub(crate) struct SatPart {
 
 /// The immutable fixed-point model of one drive. See the module documentation.
 #[derive(Debug, Clone, PartialEq, Hash)]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub struct Model {
     /// Two-slope saturation, when the coil has it.
     pub(crate) saturation: Option<SatPart>,

@@ -26,6 +26,7 @@ pub(crate) const DUTY_DIGITS: usize = 4;
 /// `E(x) = 1 − e^(−x)` as mantissa and shift: `E = m·2^−(32+s)`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub(crate) struct Decay {
     pub(crate) m: u32,
     pub(crate) s: u32,
@@ -47,6 +48,58 @@ impl Decay {
 pub(crate) struct DecayTable<const D: usize> {
     m: [[u32; 16]; D],
     s: [u32; D],
+}
+
+/// As a tuple of `17·D` words, digit by digit (the sixteen mantissas, then the shift), written
+/// out by hand: serde's own arrays stop at 32 and know no length `D`, and a generic helper
+/// crate's loader kept a panic path.
+#[cfg(feature = "flash")]
+impl<const D: usize> serde::Serialize for DecayTable<D> {
+    fn serialize<S: serde::Serializer>(&self, to: S) -> Result<S::Ok, S::Error> {
+        use serde::ser::SerializeTuple;
+        let mut t = to.serialize_tuple(17 * D)?;
+        for (row, shift) in self.m.iter().zip(&self.s) {
+            for x in row {
+                t.serialize_element(x)?;
+            }
+            t.serialize_element(shift)?;
+        }
+        t.end()
+    }
+}
+
+#[cfg(feature = "flash")]
+impl<'de, const D: usize> serde::Deserialize<'de> for DecayTable<D> {
+    fn deserialize<F: serde::Deserializer<'de>>(from: F) -> Result<Self, F::Error> {
+        struct Words<const D: usize>;
+        impl<'de, const D: usize> serde::de::Visitor<'de> for Words<D> {
+            type Value = DecayTable<D>;
+
+            fn expecting(&self, f: &mut core::fmt::Formatter<'_>) -> core::fmt::Result {
+                f.write_str("a decay table's words")
+            }
+
+            fn visit_seq<A: serde::de::SeqAccess<'de>>(
+                self,
+                mut seq: A,
+            ) -> Result<Self::Value, A::Error> {
+                let mut t = DecayTable {
+                    m: [[0; 16]; D],
+                    s: [0; D],
+                };
+                let slots = t.m.iter_mut().zip(t.s.iter_mut());
+                let words =
+                    slots.flat_map(|(row, shift)| row.iter_mut().chain(core::iter::once(shift)));
+                for (read, x) in words.enumerate() {
+                    *x = seq
+                        .next_element()?
+                        .ok_or_else(|| serde::de::Error::invalid_length(read, &self))?;
+                }
+                Ok(t)
+            }
+        }
+        from.deserialize_tuple(17 * D, Words::<D>)
+    }
 }
 
 /// `E(x) = 1 − e^(−x)` in f64 without cancellation for small x.
@@ -142,6 +195,7 @@ fn compose(acc: u32, s: u32, e: u32, sd: u32) -> u32 {
 /// mantissa per composition, so below 2⁻²⁵ relative after 32, inside the 2⁻²⁴ contract).
 /// The scale of bit `d` is the largest `s` with `E(2^(d+1)·u)·2^s < 1`, as for a radix-16 digit.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub(crate) struct BitTable {
     m: [u32; 32],
     s: [u8; 32],
@@ -212,6 +266,7 @@ pub(crate) fn scale(d: i64, e: Decay) -> i64 {
 
 /// A positive constant gain in floating form: `g = m·2^sh` with `m` normalised to 31..32 bits.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub(crate) struct Gain {
     m: u32,
     sh: i32,
@@ -767,7 +822,8 @@ pub(crate) fn chi(lambda: u64) -> u64 {
 
 /// A 64-bit FNV-1a hasher (configuration only): the guard's fingerprint is its whole
 /// configuration hashed through it ([`core::hash::Hash`]), by which a channel's memo knows the
-/// guard it was made by. Integers are folded a byte at a time, as FNV-1a is defined.
+/// guard it was made by. Integers are folded a byte at a time, little-endian, as FNV-1a is
+/// defined; `usize` as 64 bits, so the hash is the same on every target.
 pub(crate) struct Fnv(pub(crate) u64);
 
 impl Fnv {
@@ -808,6 +864,17 @@ impl core::hash::Hasher for Fnv {
 
     fn write_i32(&mut self, v: i32) {
         self.write_u32(v as u32);
+    }
+
+    // Lengths (of the arrays the derived hashes walk) and any `usize` are hashed as 64 bits
+    // on every target, so a guard's fingerprint is the same on the host and on a 32-bit core
+    // (a guard configured on the host and flashed is checked by it).
+    fn write_usize(&mut self, v: usize) {
+        self.write_u64(v as u64);
+    }
+
+    fn write_isize(&mut self, v: isize) {
+        self.write_u64(v as u64);
     }
 }
 

@@ -128,6 +128,7 @@ impl CoilThermal {
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Hash)]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 struct Stage {
     per_period: Decay,
     /// log2(e)/τᵢ per µs: an event of t µs decays by 2^(−t·rate).
@@ -140,6 +141,7 @@ struct Stage {
 
 /// Validated clamp-device replica (see the module documentation).
 #[derive(Debug, Clone, PartialEq, Hash)]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub struct ClampReplica {
     stages: [Option<Stage>; 3],
     ambient: i64,
@@ -298,6 +300,7 @@ impl ClampReplica {
 
 /// Validated winding thermal image (see the module documentation).
 #[derive(Debug, Clone, PartialEq, Hash)]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub struct CoilReplica {
     /// Reset level of the image, Q32.32 per unit.
     reset: u64,
@@ -674,6 +677,7 @@ impl CoilReplica {
 /// period; for the per-period update `e^(−T/τ_w)` is taken as `1 − T/τ_w`, its first-order
 /// form, which decays slower and so errs high).
 #[derive(Debug, Clone, PartialEq, Hash)]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub(crate) struct ClampAverage {
     /// The limit, energy per period.
     limit: Energy,

@@ -255,6 +255,7 @@ const BODY_BITS: u32 = 98_304;
 
 /// The turn-off node-charge terms (see the module documentation, item 3).
 #[derive(Debug, Clone, PartialEq, Hash)]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 struct NodeCharge {
     /// 1.25·C/(2·L·I_fs²)·2⁴⁸: times `V_n bits²` over the current (raw) it gives the first
     /// raise in raw units.
@@ -282,6 +283,7 @@ struct NodeCharge {
 /// With nothing across the switch and a node capacitance: the ring that a turn-off leaves when
 /// the node peaks under the breakdown (see the module documentation, item 4).
 #[derive(Debug, Clone, PartialEq, Hash)]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 struct Ring {
     /// At or above this current (raw) every circuit in the box avalanches at turn-off.
     certain: i64,
@@ -298,6 +300,7 @@ struct Ring {
 
 /// The guard's bound: the two corner models, the reading error and the node charge.
 #[derive(Debug, Clone, PartialEq, Hash)]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub(crate) struct Bound {
     /// The rise corner (L_lo, R_lo, saturation at its lowest), whole box: event mode.
     pub(crate) rise: Model,
@@ -388,6 +391,7 @@ pub(crate) const SLICE_RATIO: f64 = 1.08;
 
 /// One slice `L_a ..= L_b` of the inductance range: its rise and fall tables per timer count.
 #[derive(Debug, Clone, PartialEq, Hash)]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 struct Slice {
     /// `τ = L_a/(R_lo + R_on)`.
     on: DecayTable<DUTY_DIGITS>,

@@ -120,6 +120,7 @@ impl Current {
 /// An energy: unsigned Q32.32 in units of L·I_fs² (the model's energy unit).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Default)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[cfg_attr(feature = "flash", derive(serde::Serialize, serde::Deserialize))]
 pub struct Energy(u64);
 
 impl Energy {

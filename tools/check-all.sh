@@ -57,15 +57,19 @@ cargo fmt --all -- --check
 step "lints"
 cargo clippy --workspace --all-targets -- -D warnings
 cargo clippy -p coilward --target thumbv7em-none-eabihf --features defmt -- -D warnings
+cargo clippy -p coilward --all-targets --features defmt,flash -- -D warnings
 (cd firmware && cargo clippy --release --target thumbv7em-none-eabihf --workspace \
     --exclude coilward-rp2040-valve --bins -- -D warnings)
 (cd firmware && cargo clippy --release --target thumbv6m-none-eabi -p coilward-rp2040-valve -- -D warnings)
 
 step "docs"
 RUSTDOCFLAGS="-D warnings" cargo doc --workspace --no-deps
+RUSTDOCFLAGS="-D warnings" cargo doc -p coilward --no-deps --features defmt,flash
 
 step "tests"
 cargo test --workspace
+cargo test -p coilward --features flash --lib flash
+cargo test -p coilward --features flash --doc flash
 }
 
 target() {
@@ -73,6 +77,7 @@ step "embedded builds (no std, no alloc)"
 for t in "${TARGETS[@]}"; do
     cargo build -p coilward --release --target "$t"
     cargo build -p coilward --release --target "$t" --features defmt
+    cargo build -p coilward --release --target "$t" --features flash
 done
 
 step "minimum supported Rust ($MSRV)"

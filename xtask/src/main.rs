@@ -197,6 +197,11 @@ fn target_test() -> Result<(), String> {
                 host.len()
             )),
         }
+        // The guard configured on the host, flashed as bytes: the same trace, no float code.
+        match flashed_trace(core, host_digest) {
+            Ok(line) => println!("{}: {line}", core.name),
+            Err(e) => failures.push(format!("{}: {e}", core.name)),
+        }
         if !ok || !text.contains("all checks passed") {
             failures.push(format!(
                 "{}: on-target checks failed (exit status or report)",
@@ -210,6 +215,29 @@ fn target_test() -> Result<(), String> {
     } else {
         Err(failures.join("\n"))
     }
+}
+
+/// Runs the `flashed` firmware (the trace's guard and calibration loaded from bytes the build
+/// script wrote): its digest must be the host's, and it must link no floating-point code.
+fn flashed_trace(core: &Core, host_digest: u64) -> Result<String, String> {
+    build(core, &["flashed"]).map_err(|e| format!("the flashed firmware does not build:\n{e}"))?;
+    let image = elf(core, "flashed");
+    let (ok, text) = qemu(core, &image, None)?;
+    let (_, digest) = parse_trace(&text);
+    if !ok || digest != Some(host_digest) {
+        return Err(format!(
+            "the flashed guard's trace is not the host's (digest {digest:016x?}):\n{text}"
+        ));
+    }
+    let float = float_text(&image)?;
+    if float != 0 {
+        return Err(format!(
+            "the flashed firmware links {float} bytes of float code"
+        ));
+    }
+    Ok(format!(
+        "flashed guard: golden trace identical (digest {host_digest:016x}), float code 0 bytes"
+    ))
 }
 
 /// Address of a symbol in an ELF image.
@@ -229,6 +257,37 @@ fn text_size(image: &Path) -> Result<u64, String> {
     file.section_by_name(".text")
         .map(|s| s.size())
         .ok_or(format!("{}: no .text", image.display()))
+}
+
+/// Whether a symbol is floating-point code: the compiler's soft-float routines (the ARM EABI's
+/// `__aeabi_d…`/`__aeabi_f…` and conversions, the GNU names such as `__adddf3`, wherever
+/// `compiler_builtins` defines them) or a function of `libm`.
+fn is_float_symbol(name: &str) -> bool {
+    const GNU: [&str; 12] = [
+        "sf3", "df3", "sf2", "df2", "sfsi", "dfsi", "sfdi", "dfdi", "sisf", "sidf", "disf", "didf",
+    ];
+    if name.contains("4libm") || name.contains("compiler_builtins5float") {
+        return true;
+    }
+    if let Some(rest) = name.strip_prefix("__aeabi_") {
+        let conversion = ["i2f", "i2d", "ui2f", "ui2d", "l2f", "l2d", "ul2f", "ul2d"];
+        return rest.starts_with('d') || rest.starts_with('f') || conversion.contains(&rest);
+    }
+    name.starts_with("__") && GNU.iter().any(|g| name.ends_with(g))
+}
+
+/// Floating-point code linked into an image (see [`is_float_symbol`]): bytes of its functions.
+/// On the M0 (no FPU) every float operation is such a call; on the M4F and M33 single
+/// precision runs inline on the FPU, so there the figure covers double precision and libm.
+fn float_text(image: &Path) -> Result<u64, String> {
+    let data = std::fs::read(image).map_err(|e| format!("{}: {e}", image.display()))?;
+    let file = object::File::parse(&*data).map_err(|e| e.to_string())?;
+    Ok(file
+        .symbols()
+        .filter(|s| s.kind() == object::SymbolKind::Text)
+        .filter(|s| s.name().is_ok_and(is_float_symbol))
+        .map(|s| s.size())
+        .sum())
 }
 
 fn build_plugin() -> Result<PathBuf, String> {
@@ -254,7 +313,10 @@ fn target_bench() -> Result<(), String> {
     let plugin = build_plugin()?;
     let mut report = String::new();
     for core in &CORES {
-        build(core, &["bench", "baseline", "configonly", "nopanic"])?;
+        build(
+            core,
+            &["bench", "baseline", "configonly", "nopanic", "flashed"],
+        )?;
         let image = elf(core, "bench");
         let start = symbol(&image, "coilward_bench_start")?;
         let end = symbol(&image, "coilward_bench_end")?;
@@ -341,6 +403,19 @@ fn target_bench() -> Result<(), String> {
             core.name,
             config.saturating_sub(base)
         );
+        // Float code linked: with the model flashed as bytes, and configured at run time.
+        let _ = writeln!(
+            report,
+            "size core={} float-text={}",
+            core.name,
+            float_text(&elf(core, "flashed"))?
+        );
+        let _ = writeln!(
+            report,
+            "size core={} configured-float-text={}",
+            core.name,
+            float_text(&elf(core, "nopanic"))?
+        );
     }
     print!("{report}");
     Ok(())
@@ -367,6 +442,40 @@ fn main() -> ExitCode {
         Err(e) => {
             eprintln!("{e}");
             ExitCode::FAILURE
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::is_float_symbol;
+
+    /// Names as they appear in the M0 build configured at run time (soft float and libm) and
+    /// names that only look alike (fixed-point kernels, integer and memory routines).
+    #[test]
+    fn float_symbols_are_told_apart() {
+        for name in [
+            "__aeabi_dadd",
+            "__aeabi_fcmplt",
+            "__aeabi_d2ulz",
+            "__aeabi_ui2d",
+            "__adddf3",
+            "__floatsidf",
+            "_ZN4libm4math3exp3exp17h0000000000000000E",
+            "_RNvNtNtCs0_17compiler_builtins5float3add8___adddf3",
+        ] {
+            assert!(is_float_symbol(name), "{name}");
+        }
+        for name in [
+            "__aeabi_memcpy4",
+            "__aeabi_uldivmod",
+            "__aeabi_lmul",
+            "__udivsi3",
+            "__clzsi2",
+            "_ZN8coilward5qmath4exp217h0000000000000000E",
+            "_ZN8coilward5qmath4log217h0000000000000000E",
+        ] {
+            assert!(!is_float_symbol(name), "{name}");
         }
     }
 }
