@@ -7,7 +7,7 @@
 //! Run: `cargo bench -p coilward-sim --bench plant_vs_ngspice` (ngspice from Debian's package).
 //! A benchmark, not a test: the figures go to host-sim/README.md by hand.
 
-use coilward_sim::scenario::Scenario;
+use coilward_sim::scenario::Loaded;
 use coilward_sim::spice::{self, Case};
 use coilward_sim::sweep::{self, Spec};
 use std::time::Instant;
@@ -65,7 +65,7 @@ fn main() {
 
     let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
         .join("../examples/scenarios/irrigation-valve.toml");
-    let s = Scenario::load(&path).expect("demo scenario");
+    let s = Loaded::load(&path).expect("demo scenario");
     let t0 = Instant::now();
     let r = sweep::run(&s, &Spec::uniform(1000, 1), || {});
     let t = t0.elapsed().as_secs_f64();

@@ -659,7 +659,7 @@ fn target_probability(text: &str) -> Result<f64, ExitCode> {
 
 /// The sweep's size, seed, plan and shard from the command line.
 fn sweep_spec(
-    s: &Scenario,
+    s: &scenario::Loaded,
     (samples, seed, plan, shard): (Option<u64>, u64, &str, Option<&str>),
 ) -> Result<Spec, ExitCode> {
     let bad = |e: String| {
@@ -671,14 +671,14 @@ fn sweep_spec(
         Some(t) => Shard::parse(t).map_err(|e| bad(format!("--shard {e}")))?,
         None => Shard::ALL,
     };
-    if s.tolerance.is_empty() {
+    let d = sweep::dimensions(s) as u32;
+    if d == 0 {
         return Err(bad(format!(
             "{}: no [tolerance] section, so every sample would be the same; add spreads such as inductance = \"±20 %\"",
-            s.file.display()
+            s.file().display()
         )));
     }
     let samples = if plan == Plan::Corners {
-        let d = s.tolerance.len() as u32;
         let corners = 1u64 << d.min(63);
         if d > 24 {
             return Err(bad(format!(
@@ -759,7 +759,7 @@ fn sweep_cmd(
     (records, json): (Option<&Path>, Option<&Path>),
     target: &str,
 ) -> Result<ExitCode, ExitCode> {
-    let s = load(file)?;
+    let s = refused(scenario::Loaded::load(file))?;
     let spec = sweep_spec(&s, what)?;
     let target = target_probability(target)?;
     let bytes = std::fs::read(file).map_err(|e| {
@@ -809,8 +809,8 @@ fn sweep_cmd(
     }
     say!(
         "{} ({}): {} samples (shard {}/{} of {}, seed {}, plan {}), {mine} run in {:.2} s",
-        s.name,
-        s.file.display(),
+        s.name(),
+        s.file().display(),
         summary.samples,
         spec.shard.k,
         spec.shard.n,
@@ -819,7 +819,7 @@ fn sweep_cmd(
         spec.plan.word(),
         t0.elapsed().as_secs_f64()
     );
-    say_part!("{}", report::sweep::text(&summary, header.plan, target));
+    say_part!("{}", report::sweep::text(&header, &summary, target));
     write_summary(json, &header, &summary)?;
     Ok(if records.is_some() {
         ExitCode::SUCCESS
@@ -879,7 +879,7 @@ fn merge_cmd(files: &[PathBuf], json: Option<&Path>, target: &str) -> Result<Exi
             header.sweep_size - summary.samples
         );
     }
-    say_part!("{}", report::sweep::text(&summary, header.plan, target));
+    say_part!("{}", report::sweep::text(&header, &summary, target));
     write_summary(json, &header, &summary)?;
     Ok(verdict(summary.verdict()))
 }
@@ -1034,13 +1034,6 @@ fn main() -> ExitCode {
         }),
         Command::Check { file } if is_bridge(file) => check_bridge(file),
         Command::Check { file } => check(file),
-        Command::Sweep { file, .. } if is_bridge(file) => {
-            eprintln!(
-                "error: {}: sweeps cover low-side scenarios only; run the full-bridge scenario with `run`",
-                file.display()
-            );
-            Err(ExitCode::from(2))
-        }
         Command::Sweep {
             file,
             samples,

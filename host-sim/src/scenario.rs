@@ -1047,6 +1047,64 @@ pub enum Topology {
     FullBridge,
 }
 
+impl Topology {
+    /// The word the scenario file and the reports use.
+    pub fn word(self) -> &'static str {
+        match self {
+            Topology::LowSide => "low-side",
+            Topology::FullBridge => "full-bridge",
+        }
+    }
+}
+
+/// A scenario file loaded once, whichever circuit it describes: what a command takes, so that
+/// the topology is decided in one place.
+#[derive(Debug, Clone)]
+pub enum Loaded {
+    /// One low-side switch and a clamp path (each kind boxed: they are large and unequal).
+    LowSide(Box<Scenario>),
+    /// Four switches around the coil.
+    FullBridge(Box<crate::bridge::scenario::BridgeScenario>),
+}
+
+impl Loaded {
+    /// Reads a scenario file and validates it as the topology it names.
+    pub fn load(path: &Path) -> Result<Self, ScenarioError> {
+        let text = read(path)?;
+        Ok(match topology_of(&text) {
+            Topology::LowSide => Loaded::LowSide(Box::new(Scenario::parse(path, &text)?)),
+            Topology::FullBridge => {
+                let s = crate::bridge::scenario::BridgeScenario::parse(path, &text)?;
+                Loaded::FullBridge(Box::new(s))
+            }
+        })
+    }
+
+    /// Its topology.
+    pub fn topology(&self) -> Topology {
+        match self {
+            Loaded::LowSide(_) => Topology::LowSide,
+            Loaded::FullBridge(_) => Topology::FullBridge,
+        }
+    }
+
+    /// Its name.
+    pub fn name(&self) -> &str {
+        match self {
+            Loaded::LowSide(s) => &s.name,
+            Loaded::FullBridge(s) => &s.name,
+        }
+    }
+
+    /// The file it came from.
+    pub fn file(&self) -> &Path {
+        match self {
+            Loaded::LowSide(s) => &s.file,
+            Loaded::FullBridge(s) => &s.file,
+        }
+    }
+}
+
 /// The topology named by a scenario's top-level `topology` key (the low side when it has none
 /// or the text is not TOML: the full parse then reports the problem).
 pub fn topology_of(text: &str) -> Topology {

@@ -215,12 +215,31 @@ fn the_command_line_runs_and_checks_a_bridge_scenario() {
     let json: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(dir.path().join("m.json")).unwrap()).unwrap();
     assert_eq!(json["verdict"], "limited");
+    // No [tolerance]: nothing to sweep, and the message says what to add.
     let out = Command::new(exe)
         .args(["sweep", "--samples", "2"])
         .arg(demo())
         .output()
         .unwrap();
     assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("no [tolerance]"));
+    // With one, a bridge sweeps as the low side does: the bus peak among its worst cases,
+    // limited samples (the guard brakes within the bus's maximum).
+    let door = Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("../examples/scenarios/door-motor-small-bus.toml");
+    let json = dir.path().join("door.json");
+    let out = Command::new(exe)
+        .args(["sweep", "--samples", "2", "--plan", "latin", "--json"])
+        .arg(&json)
+        .arg(&door)
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(3), "{out:?}");
+    let summary: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    assert_eq!(summary["scenario"]["topology"], "full-bridge");
+    assert_eq!(summary["limited"], 2);
+    assert!(summary["worst"]["bus_peak"]["value"].as_f64().unwrap() < 28.0);
 }
 
 /// A latching valve (no motor) switched one way, then the other, in fast decay: a circuit of

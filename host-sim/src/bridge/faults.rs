@@ -44,23 +44,31 @@ pub struct BridgeCase {
 
 /// A knob of the bridge's box: its name, its spread, and how it sets the plant's value to
 /// `nominal × (1 + x)`.
-struct Knob {
-    name: &'static str,
-    spread: f64,
-    set: fn(&mut BridgeScenario, &BridgeScenario, f64),
+pub struct Knob {
+    /// The spread's name.
+    pub name: &'static str,
+    /// ± this fraction of the nominal value.
+    pub spread: f64,
+    /// Sets the value in the first scenario to the second's nominal × (1 + x).
+    pub set: fn(&mut BridgeScenario, &BridgeScenario, f64),
+    /// The value in a scenario (SI), and its unit.
+    pub get: (fn(&BridgeScenario) -> f64, &'static str),
 }
 
-fn knobs(t: &BridgeSpreads) -> Vec<Knob> {
+/// The spreads of `t` that are not zero, as knobs.
+pub fn knobs(t: &BridgeSpreads) -> Vec<Knob> {
     let all = [
         Knob {
             name: "inductance",
             spread: t.inductance,
             set: |s, b, x| s.circuit.inductance = b.circuit.inductance * (1.0 + x),
+            get: (|s| s.circuit.inductance, "H"),
         },
         Knob {
             name: "resistance",
             spread: t.resistance,
             set: |s, b, x| s.circuit.resistance = b.circuit.resistance * (1.0 + x),
+            get: (|s| s.circuit.resistance, "Ω"),
         },
         Knob {
             name: "motor constant",
@@ -70,6 +78,7 @@ fn knobs(t: &BridgeSpreads) -> Vec<Knob> {
                     r.constant = n.constant * (1.0 + x);
                 }
             },
+            get: (|s| s.circuit.rotor.map_or(0.0, |r| r.constant), "V·s/rad"),
         },
         Knob {
             name: "bus capacitance",
@@ -79,6 +88,7 @@ fn knobs(t: &BridgeSpreads) -> Vec<Knob> {
                     c.capacitance = n.capacitance * (1.0 + x);
                 }
             },
+            get: (|s| s.circuit.bus.map_or(0.0, |c| c.capacitance), "F"),
         },
     ];
     all.into_iter().filter(|k| k.spread > 0.0).collect()

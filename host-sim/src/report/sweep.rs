@@ -2,26 +2,38 @@
 //! sweep and merged shards. JSON keys kept for scripts: `schema`, `scenario {name, file,
 //! topology}`, `seed`, `plan`, `sweep_size`, `samples`, `passed`, `limited`, `failed`, `verdict`,
 //! `failure_upper_95` (null for the corners plan), `findings {kind: {samples, upper_95}}`, `worst {figure: {value, sample,
-//! verdict, parameters}}`, `failed_samples`.
+//! verdict, parameters}}` (low side: peak_current, switch_node_peak, clamp_pulse, decay_time,
+//! estimate_error; full bridge: peak_current, bus_peak, returned_energy, decay_time,
+//! estimate_error), `failed_samples`.
 
 use super::si;
-use crate::sweep::Plan;
+use crate::scenario::Topology;
 use crate::sweep::records::Header;
-use crate::sweep::summary::{CONFIDENCE, FIGURES, Summary, samples_for};
+use crate::sweep::summary::{CONFIDENCE, Summary, figures, samples_for};
 use serde_json::{Value, json};
 use std::fmt::Write as _;
 
-/// A drawn value with its unit, as the scenario writes it.
-pub fn param(key: &str, v: f64) -> String {
-    let unit = crate::scenario::Knob::ALL
-        .iter()
-        .find(|k| k.name() == key)
-        .map_or("", |k| k.unit().symbol());
-    if unit == "°C" {
-        format!("{v:.1} °C")
-    } else {
-        si(v, unit, 4)
+/// A drawn value with its unit (from the records' header).
+fn param(h: &Header, key: &str, v: f64) -> String {
+    match h.units.get(key).map(String::as_str) {
+        Some("°C") => format!("{v:.1} °C"),
+        Some(unit) => si(v, unit, 4),
+        None => format!("{v}"),
     }
+}
+
+/// The topology the header names.
+fn topology(h: &Header) -> Topology {
+    if h.topology == Topology::FullBridge.word() {
+        Topology::FullBridge
+    } else {
+        Topology::LowSide
+    }
+}
+
+/// A worst value as printed.
+fn shown(value: Option<f64>, unit: &str) -> String {
+    value.map_or_else(|| "not reached".into(), |v| si(v, unit, 4))
 }
 
 /// A probability as a percentage with three significant digits.
@@ -42,7 +54,8 @@ fn percent(p: f64) -> String {
 
 /// The printed summary; `target` is the failure probability a designer wants to show (the
 /// samples it needs are printed).
-pub fn text(s: &Summary, plan: Plan, target: f64) -> String {
+pub fn text(h: &Header, s: &Summary, target: f64) -> String {
+    let plan = h.plan;
     let mut out = String::new();
     let _ = writeln!(
         out,
@@ -77,22 +90,20 @@ pub fn text(s: &Summary, plan: Plan, target: f64) -> String {
         let _ = writeln!(out, "  failed: {more} more samples (all in the records)");
     }
     let _ = writeln!(out, "\n  worst cases:");
-    for (w, figure) in s.worst.iter().zip(&FIGURES) {
-        let Some(w) = w else { continue };
+    for figure in figures(topology(h)) {
+        let Some(w) = s.worst.get(figure.key) else {
+            continue;
+        };
         let params: Vec<String> = w
             .parameters
             .iter()
-            .map(|(k, v)| format!("{k} {}", param(k, *v)))
+            .map(|(k, v)| format!("{k} {}", param(h, k, *v)))
             .collect();
-        let shown = if w.value.is_finite() {
-            si(w.value, figure.unit, 4)
-        } else {
-            "not reached".into()
-        };
         let _ = writeln!(
             out,
-            "  {:<17} {shown:>11}  sample {} ({}): {}",
+            "  {:<17} {:>11}  sample {} ({}): {}",
             figure.name,
+            shown(w.value, figure.unit),
             w.index,
             w.verdict.word(),
             params.join(", ")
@@ -119,17 +130,19 @@ pub fn text(s: &Summary, plan: Plan, target: f64) -> String {
 /// The JSON summary.
 pub fn json(h: &Header, s: &Summary) -> Value {
     let mut worst = serde_json::Map::new();
-    for (w, figure) in s.worst.iter().zip(&FIGURES) {
-        let Some(w) = w else { continue };
+    for figure in figures(topology(h)) {
+        let Some(w) = s.worst.get(figure.key) else {
+            continue;
+        };
         let parameters: serde_json::Map<String, Value> = w
             .parameters
             .iter()
             .map(|(k, v)| (k.clone(), json!(v)))
             .collect();
         worst.insert(
-            figure.key.into(),
+            figure.worst_key.into(),
             json!({
-                "value": w.value.is_finite().then_some(w.value),
+                "value": w.value,
                 "sample": w.index,
                 "verdict": w.verdict.word(),
                 "parameters": parameters,
@@ -147,7 +160,7 @@ pub fn json(h: &Header, s: &Summary) -> Value {
         .collect();
     json!({
         "schema": super::json::REPORT_SCHEMA,
-        "scenario": super::json::scenario(&h.scenario, std::path::Path::new(&h.file), "low-side"),
+        "scenario": super::json::scenario(&h.scenario, std::path::Path::new(&h.file), &h.topology),
         "seed": h.seed,
         "plan": h.plan.word(),
         "sweep_size": h.sweep_size,

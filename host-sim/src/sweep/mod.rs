@@ -13,12 +13,14 @@
 pub mod records;
 pub mod summary;
 
+use crate::bridge::scenario::BridgeScenario;
 use crate::cosim::{self, Options};
-use crate::scenario::{Knob, Scenario};
+use crate::scenario::{Loaded, Scenario};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
 
 /// One sample's outcome.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -29,19 +31,18 @@ pub struct Sample {
     pub verdict: crate::cosim::Verdict,
     /// Kinds of the findings.
     pub findings: Vec<String>,
-    /// True peak current, A.
-    pub peak_current_a: f64,
-    /// True peak switch-node voltage, V.
-    pub peak_drain_voltage_v: f64,
-    /// Largest single clamp pulse, J.
-    pub max_pulse_energy_j: f64,
-    /// Longest decay to the release current among the turn-offs, s (`None` if one never got
-    /// there or there were none).
-    pub longest_decay_s: Option<f64>,
-    /// Worst |estimate − true|, A.
-    pub max_estimate_error_a: f64,
+    /// The topology's figures ([`summary::figures`]) by key, SI; `None`: never reached (a
+    /// decay that did not end); a key left out: nothing to measure (no drive ended).
+    pub figures: BTreeMap<String, Option<f64>>,
     /// The drawn values, by key, SI units.
     pub parameters: Vec<(String, f64)>,
+}
+
+impl Sample {
+    /// A figure: `Some(None)` never reached, `None` not measured.
+    pub fn figure(&self, key: &str) -> Option<Option<f64>> {
+        self.figures.get(key).copied()
+    }
 }
 
 /// How a sweep draws each spread's value.
@@ -160,14 +161,13 @@ impl Shard {
     }
 }
 
-/// Draws sample `index`'s values.
-pub fn draw(s: &Scenario, spec: &Spec, index: u64) -> crate::scenario::Values {
+/// Where sample `index` puts each of `d` spreads, as a fraction of its range (0: its low end,
+/// 1: its high end), by the sweep's plan.
+pub fn positions(spec: &Spec, d: usize, index: u64) -> Vec<f64> {
     let mut rng = ChaCha8Rng::seed_from_u64(spec.seed);
     rng.set_stream(index);
-    let mut v = s.plant;
-    for (j, &(knob, spread)) in s.tolerance.iter().enumerate() {
-        let (lo, hi) = spread.bounds(s.plant.get(knob));
-        let u = match spec.plan {
+    (0..d)
+        .map(|j| match spec.plan {
             Plan::Uniform => rng.random::<f64>(),
             Plan::Normal => truncated_normal(&mut rng),
             Plan::Corners => f64::from(u8::from(j < 64 && index >> j & 1 == 1)),
@@ -175,10 +175,42 @@ pub fn draw(s: &Scenario, spec: &Spec, index: u64) -> crate::scenario::Values {
                 let stratum = permute(index, spec.samples, spec.seed, j as u64);
                 (stratum as f64 + rng.random::<f64>()) / spec.samples as f64
             }
-        };
+        })
+        .collect()
+}
+
+/// Draws sample `index`'s values of a low-side scenario's spreads.
+pub fn draw(s: &Scenario, spec: &Spec, index: u64) -> crate::scenario::Values {
+    let mut v = s.plant;
+    let u = positions(spec, s.tolerance.len(), index);
+    for (&(knob, spread), u) in s.tolerance.iter().zip(u) {
+        let (lo, hi) = spread.bounds(s.plant.get(knob));
         v.set(knob, lo + (hi - lo) * u);
     }
     v
+}
+
+/// The number of spreads a scenario's sweep draws.
+pub fn dimensions(s: &Loaded) -> usize {
+    match s {
+        Loaded::LowSide(s) => s.tolerance.len(),
+        Loaded::FullBridge(b) => bridge_knobs(b).len(),
+    }
+}
+
+/// A bridge's spreads as knobs: the fault suite's (inductance, resistance, motor constant, bus
+/// capacitance) and the supply reading's error.
+fn bridge_knobs(b: &BridgeScenario) -> Vec<crate::bridge::faults::Knob> {
+    let mut k = crate::bridge::faults::knobs(&b.tolerance);
+    if b.tolerance.supply_reading > 0.0 {
+        k.push(crate::bridge::faults::Knob {
+            name: "supply reading error",
+            spread: b.tolerance.supply_reading,
+            set: |s, b, x| s.reading_offset = x * b.circuit.supply,
+            get: (|s| s.reading_offset, "V"),
+        });
+    }
+    k
 }
 
 /// A standard normal draw at 3σ = ½ mapped onto [0, 1] (mean ½), drawn again until inside.
@@ -224,26 +256,42 @@ fn splitmix(mut z: u64) -> u64 {
 }
 
 /// Runs one sample.
-pub fn sample(s: &Scenario, spec: &Spec, index: u64) -> Sample {
+pub fn sample(s: &Loaded, spec: &Spec, index: u64) -> Sample {
+    match s {
+        Loaded::LowSide(s) => low_side_sample(s, spec, index),
+        Loaded::FullBridge(b) => bridge_sample(b, spec, index),
+    }
+}
+
+fn low_side_sample(s: &Scenario, spec: &Spec, index: u64) -> Sample {
     let v = draw(s, spec, index);
     let r = cosim::run_with(s, &v.circuit(), Options::default());
     let longest = if r.turn_offs.iter().any(|t| t.decay_time_s.is_none()) {
-        None
+        Some(None)
     } else {
         r.turn_offs
             .iter()
             .filter_map(|t| t.decay_time_s)
             .reduce(f64::max)
+            .map(Some)
     };
+    let mut figures = BTreeMap::from([
+        ("peak_current_a".to_string(), Some(r.peak_current_a)),
+        ("peak_drain_voltage_v".into(), Some(r.peak_drain_voltage_v)),
+        ("max_pulse_energy_j".into(), Some(r.max_pulse_energy_j)),
+        (
+            "max_estimate_error_a".into(),
+            Some(r.estimate.max_abs_error_a),
+        ),
+    ]);
+    if let Some(d) = longest {
+        figures.insert("longest_decay_s".into(), d);
+    }
     Sample {
         index,
         verdict: r.verdict(),
         findings: r.findings.iter().map(|f| f.kind.to_string()).collect(),
-        peak_current_a: r.peak_current_a,
-        peak_drain_voltage_v: r.peak_drain_voltage_v,
-        max_pulse_energy_j: r.max_pulse_energy_j,
-        longest_decay_s: longest,
-        max_estimate_error_a: r.estimate.max_abs_error_a,
+        figures,
         parameters: s
             .tolerance
             .iter()
@@ -252,10 +300,73 @@ pub fn sample(s: &Scenario, spec: &Spec, index: u64) -> Sample {
     }
 }
 
+fn bridge_sample(base: &BridgeScenario, spec: &Spec, index: u64) -> Sample {
+    let knobs = bridge_knobs(base);
+    let mut s = base.clone();
+    for (k, u) in knobs.iter().zip(positions(spec, knobs.len(), index)) {
+        (k.set)(&mut s, base, k.spread * (2.0 * u - 1.0));
+    }
+    let r = crate::bridge::cosim::run(&s, false);
+    let mut figures = BTreeMap::from([
+        ("peak_current_a".to_string(), Some(r.peak_current_a)),
+        ("peak_bus_v".into(), Some(r.peak_bus_v)),
+        ("returned_energy_j".into(), Some(r.returned_energy_j)),
+        ("max_estimate_error_a".into(), Some(r.max_estimate_error_a)),
+    ]);
+    // A drive ended and driven again (or the run's end) before it decayed is not a decay.
+    if let Some(d) = r
+        .stops
+        .iter()
+        .filter_map(|t| t.decay_time_s)
+        .reduce(f64::max)
+    {
+        figures.insert("longest_decay_s".into(), Some(d));
+    }
+    Sample {
+        index,
+        verdict: r.verdict(),
+        findings: r.findings.iter().map(|f| f.kind.to_string()).collect(),
+        figures,
+        parameters: knobs
+            .iter()
+            .map(|k| (k.name.replace(' ', "_"), (k.get.0)(&s)))
+            .collect(),
+    }
+}
+
+/// The keys of the values a scenario's sweep draws, in order.
+pub fn sample_keys(s: &Loaded) -> Vec<String> {
+    match s {
+        Loaded::LowSide(s) => s
+            .tolerance
+            .iter()
+            .map(|(k, _)| k.name().to_string())
+            .collect(),
+        Loaded::FullBridge(b) => bridge_knobs(b)
+            .iter()
+            .map(|k| k.name.replace(' ', "_"))
+            .collect(),
+    }
+}
+
+/// The unit of a drawn value's key, for reports.
+pub fn unit_of(s: &Loaded, key: &str) -> &'static str {
+    match s {
+        Loaded::LowSide(_) => crate::scenario::Knob::ALL
+            .iter()
+            .find(|k| k.name() == key)
+            .map_or("", |k| k.unit().symbol()),
+        Loaded::FullBridge(b) => bridge_knobs(b)
+            .iter()
+            .find(|k| k.name.replace(' ', "_") == key)
+            .map_or("", |k| k.get.1),
+    }
+}
+
 /// Runs the shard's samples that `skip` does not name, in parallel, handing each to `each` as
 /// it finishes (in no particular order; nothing is kept).
 pub fn each(
-    s: &Scenario,
+    s: &Loaded,
     spec: &Spec,
     skip: impl Fn(u64) -> bool + Sync,
     each: impl Fn(Sample) + Sync,
@@ -268,7 +379,7 @@ pub fn each(
 
 /// Runs the shard's samples in parallel and returns them by index; `tick` is called once per
 /// finished sample.
-pub fn run(s: &Scenario, spec: &Spec, tick: impl Fn() + Sync) -> Vec<Sample> {
+pub fn run(s: &Loaded, spec: &Spec, tick: impl Fn() + Sync) -> Vec<Sample> {
     let out = std::sync::Mutex::new(Vec::new());
     each(
         s,
@@ -282,11 +393,6 @@ pub fn run(s: &Scenario, spec: &Spec, tick: impl Fn() + Sync) -> Vec<Sample> {
     let mut out = out.into_inner().unwrap_or_else(|e| e.into_inner());
     out.sort_by_key(|x| x.index);
     out
-}
-
-/// The spread keys of a scenario, for headers.
-pub fn knobs(s: &Scenario) -> Vec<Knob> {
-    s.tolerance.iter().map(|&(k, _)| k).collect()
 }
 
 #[cfg(test)]
@@ -316,7 +422,7 @@ mod tests {
     }
 
     /// Each spread's position in its range, per sample.
-    fn positions(s: &Scenario, spec: &Spec) -> Vec<Vec<f64>> {
+    fn spots(s: &Scenario, spec: &Spec) -> Vec<Vec<f64>> {
         (0..spec.samples)
             .map(|i| {
                 let v = draw(s, spec, i);
@@ -339,7 +445,7 @@ mod tests {
             plan: Plan::Latin,
             ..Spec::uniform(50, 11)
         };
-        let x = positions(&s, &spec);
+        let x = spots(&s, &spec);
         for d in 0..s.tolerance.len() {
             let mut strata: Vec<u64> = x.iter().map(|p| (p[d] * 50.0).floor() as u64).collect();
             strata.sort_unstable();
@@ -356,7 +462,7 @@ mod tests {
             plan: Plan::Corners,
             ..Spec::uniform(1 << d, 1)
         };
-        let mut seen: Vec<u64> = positions(&s, &spec)
+        let mut seen: Vec<u64> = spots(&s, &spec)
             .iter()
             .map(|p| {
                 p.iter().enumerate().fold(0, |c, (j, &u)| {
@@ -379,7 +485,7 @@ mod tests {
             plan: Plan::Normal,
             ..Spec::uniform(20_000, 5)
         };
-        let x = positions(&s, &spec);
+        let x = spots(&s, &spec);
         for d in 0..s.tolerance.len() {
             let u: Vec<f64> = x.iter().map(|p| p[d]).collect();
             assert!(u.iter().all(|&v| (0.0..=1.0).contains(&v)));

@@ -24,6 +24,10 @@ pub struct Header {
     pub scenario: String,
     /// The scenario file's path as the sweep was given it.
     pub file: String,
+    /// The scenario's topology, `low-side` or `full-bridge`.
+    pub topology: String,
+    /// The unit of each drawn value, by key (for reports made from the records alone).
+    pub units: std::collections::BTreeMap<String, String>,
     /// A 64-bit FNV-1a hash of the scenario file's bytes, hex: files merged must agree.
     pub scenario_digest: String,
     /// The seed of the draws.
@@ -38,11 +42,20 @@ pub struct Header {
 
 impl Header {
     /// The header of a sweep.
-    pub fn new(s: &crate::scenario::Scenario, bytes: &[u8], spec: &super::Spec) -> Self {
+    pub fn new(s: &crate::scenario::Loaded, bytes: &[u8], spec: &super::Spec) -> Self {
+        let first = super::sample_keys(s);
         Self {
             coilward_sweep_records: RECORDS_LAYOUT,
-            scenario: s.name.clone(),
-            file: s.file.display().to_string(),
+            scenario: s.name().to_string(),
+            file: s.file().display().to_string(),
+            topology: s.topology().word().to_string(),
+            units: first
+                .into_iter()
+                .map(|k| {
+                    let unit = super::unit_of(s, &k).to_string();
+                    (k, unit)
+                })
+                .collect(),
             scenario_digest: format!("{:016x}", fnv1a(bytes)),
             seed: spec.seed,
             sweep_size: spec.samples,
@@ -54,6 +67,12 @@ impl Header {
     /// Why samples under `other` cannot be counted with samples under `self`, if they cannot
     /// (another scenario, seed, size or plan; shards may differ).
     pub fn mismatch(&self, other: &Header) -> Option<String> {
+        if self.topology != other.topology {
+            return Some(format!(
+                "a {} sweep against a {} one",
+                other.topology, self.topology
+            ));
+        }
         if self.scenario_digest != other.scenario_digest {
             return Some(format!(
                 "another scenario file (`{}`, digest {} against {})",

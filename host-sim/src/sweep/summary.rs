@@ -8,6 +8,7 @@
 
 use super::Sample;
 use crate::cosim::Verdict;
+use crate::scenario::Topology;
 use std::collections::BTreeMap;
 
 /// The confidence of the bounds reported (one-sided).
@@ -20,53 +21,79 @@ pub const NAMED_FAILURES: usize = 5;
 pub struct Figure {
     /// Name in the printed summary.
     pub name: &'static str,
-    /// Key in the JSON summary.
+    /// Key in the records ([`Sample::figures`]).
     pub key: &'static str,
+    /// Key in the JSON summary's `worst`.
+    pub worst_key: &'static str,
     /// SI unit.
     pub unit: &'static str,
-    /// The figure; larger is worse (a decay that never reached the release level is infinite).
-    pub of: fn(&Sample) -> f64,
 }
 
-/// The figures a sweep reports its worst sample for.
-pub const FIGURES: [Figure; 5] = [
+const fn figure(
+    name: &'static str,
+    key: &'static str,
+    worst_key: &'static str,
+    unit: &'static str,
+) -> Figure {
     Figure {
-        name: "peak current",
-        key: "peak_current",
-        unit: "A",
-        of: |x| x.peak_current_a,
-    },
-    Figure {
-        name: "switch-node peak",
-        key: "switch_node_peak",
-        unit: "V",
-        of: |x| x.peak_drain_voltage_v,
-    },
-    Figure {
-        name: "clamp pulse",
-        key: "clamp_pulse",
-        unit: "J",
-        of: |x| x.max_pulse_energy_j,
-    },
-    Figure {
-        name: "decay time",
-        key: "decay_time",
-        unit: "s",
-        of: |x| x.longest_decay_s.unwrap_or(f64::INFINITY),
-    },
-    Figure {
-        name: "estimate error",
-        key: "estimate_error",
-        unit: "A",
-        of: |x| x.max_estimate_error_a,
-    },
+        name,
+        key,
+        worst_key,
+        unit,
+    }
+}
+
+/// The figures a low-side sweep reports its worst sample for.
+pub const LOW_SIDE: [Figure; 5] = [
+    figure("peak current", "peak_current_a", "peak_current", "A"),
+    figure(
+        "switch-node peak",
+        "peak_drain_voltage_v",
+        "switch_node_peak",
+        "V",
+    ),
+    figure("clamp pulse", "max_pulse_energy_j", "clamp_pulse", "J"),
+    figure("decay time", "longest_decay_s", "decay_time", "s"),
+    figure(
+        "estimate error",
+        "max_estimate_error_a",
+        "estimate_error",
+        "A",
+    ),
 ];
+
+/// The figures a full-bridge sweep reports its worst sample for.
+pub const FULL_BRIDGE: [Figure; 5] = [
+    figure("peak current", "peak_current_a", "peak_current", "A"),
+    figure("bus peak", "peak_bus_v", "bus_peak", "V"),
+    figure(
+        "energy returned",
+        "returned_energy_j",
+        "returned_energy",
+        "J",
+    ),
+    figure("decay time", "longest_decay_s", "decay_time", "s"),
+    figure(
+        "estimate error",
+        "max_estimate_error_a",
+        "estimate_error",
+        "A",
+    ),
+];
+
+/// The figures of a topology's samples.
+pub fn figures(t: Topology) -> &'static [Figure] {
+    match t {
+        Topology::LowSide => &LOW_SIDE,
+        Topology::FullBridge => &FULL_BRIDGE,
+    }
+}
 
 /// The worst sample for one figure.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Worst {
-    /// The figure's value (infinite: a decay that never reached the release level).
-    pub value: f64,
+    /// The figure's value (`None`: never reached, as a decay that did not end; the worst).
+    pub value: Option<f64>,
     /// The sample's index.
     pub index: u64,
     /// The sample's verdict.
@@ -88,8 +115,8 @@ pub struct Summary {
     pub failed: u64,
     /// Per finding kind, the samples it came up in.
     pub kinds: BTreeMap<String, u64>,
-    /// Per figure of [`FIGURES`], its worst sample.
-    pub worst: [Option<Worst>; FIGURES.len()],
+    /// Per figure key, its worst sample.
+    pub worst: BTreeMap<String, Worst>,
     /// The failed samples with the lowest indices (at most [`NAMED_FAILURES`]), with their
     /// findings.
     pub first_failed: Vec<(u64, Vec<String>)>,
@@ -110,23 +137,26 @@ impl Summary {
         for k in kinds {
             *self.kinds.entry(k.clone()).or_insert(0) += 1;
         }
-        for (slot, figure) in self.worst.iter_mut().zip(&FIGURES) {
-            let value = (figure.of)(x);
-            let worse = match slot {
-                None => true,
-                Some(w) => match value.total_cmp(&w.value) {
-                    std::cmp::Ordering::Greater => true,
-                    std::cmp::Ordering::Equal => x.index < w.index,
-                    std::cmp::Ordering::Less => false,
-                },
-            };
+        for (key, &value) in &x.figures {
+            // Larger is worse; never reached is worse than any value; ties go to the lowest
+            // index (so the order samples arrive in does not matter).
+            let rank = |v: Option<f64>| v.unwrap_or(f64::INFINITY);
+            let worse =
+                self.worst
+                    .get(key)
+                    .is_none_or(|w| match rank(value).total_cmp(&rank(w.value)) {
+                        std::cmp::Ordering::Greater => true,
+                        std::cmp::Ordering::Equal => x.index < w.index,
+                        std::cmp::Ordering::Less => false,
+                    });
             if worse {
-                *slot = Some(Worst {
+                let w = Worst {
                     value,
                     index: x.index,
                     verdict: x.verdict,
                     parameters: x.parameters.clone(),
-                });
+                };
+                self.worst.insert(key.clone(), w);
             }
         }
         if x.verdict == Verdict::Fail {
