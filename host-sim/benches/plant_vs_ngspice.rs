@@ -1,21 +1,41 @@
 //! Wall time of the plant against ngspice for 1 s of 20 kHz PWM on the demo valve circuit
-//! (24 V, 40 mH, 18 Ω, diode freewheel, 470 pF at the node), at the agreement the cross-check
-//! tests require (2 % on currents, decay time and energy; 3 % on the node peak) — the bench
-//! checks that agreement on the very runs it times. Then the sweep goal: 1000 samples of the
+//! (24 V, 40 mH, 18 Ω, diode freewheel, 470 pF at the node), one run each side on the same
+//! machine, with ngspice at matched accuracy: a largest step of 1 µs and reltol 10⁻⁴, the
+//! loosest settings tried at which the two agree within 0.1 % on the peak and mean current and
+//! the decay time (checked on the very runs timed). Two figures do not tighten with ngspice's
+//! settings, so they are held to the cross-checks' tolerances instead (2 %, 3 %) and printed:
+//! the clamp energy differs by 0.17 % at every setting tried down to 125 ns and 10⁻⁵ (SPICE's
+//! diode keeps a forward drop of a few millivolts that the plant's piecewise-linear path does
+//! not have), and the node's 26 ns peak needs ngspice's tightest settings (0.06 % there, 0.27 %
+//! here). The cross-check tests run ngspice at 125 ns and 10⁻⁵; timing against those would
+//! overstate the plant's lead about five times. Then the sweep goal: 1000 samples of the
 //! 200 ms irrigation-valve scenario, all cores.
 //!
 //! Run: `cargo bench -p coilward-sim --bench plant_vs_ngspice` (ngspice from Debian's package).
-//! A benchmark, not a test: the figures go to host-sim/README.md by hand.
+//! A benchmark, not a test: it prints the figures host-sim/README.md quotes.
 
 use coilward_sim::scenario::Loaded;
-use coilward_sim::spice::{self, Case};
+use coilward_sim::spice::{self, Accuracy, Case};
 use coilward_sim::sweep::{self, Spec};
 use std::time::Instant;
+
+/// ngspice's settings for the timing: as loose as still agrees within [`MATCHED`].
+const TIMED: Accuracy = Accuracy {
+    reltol: 1e-4,
+    max_step: Some(1e-6),
+};
+
+/// The agreement the timed runs must show on the currents and the decay time, relative.
+const MATCHED: f64 = 1e-3;
+/// On the clamp energy and the node's peak: the cross-checks' tolerances (see above).
+const ENERGY: f64 = 0.02;
+/// The node peak's (see above).
+const NODE: f64 = 0.03;
 
 fn agree(what: &str, got: f64, want: f64, tol: f64) -> bool {
     let rel = (got - want).abs() / want.abs();
     println!(
-        "  {what:<18} plant {got:.6e}  ngspice {want:.6e}  ({:.3} %, limit {:.0} %)",
+        "  {what:<18} plant {got:.6e}  ngspice {want:.6e}  ({:.3} %, limit {} %)",
         rel * 100.0,
         tol * 100.0
     );
@@ -32,34 +52,36 @@ fn main() {
         rest: 10e-3,
         release: 0.05,
     };
-    // The plant: best of five.
-    let mut best = f64::INFINITY;
-    let mut m = None;
-    for _ in 0..5 {
-        let t0 = Instant::now();
-        m = Some(spice::plant(&case).expect("plant runs"));
-        best = best.min(t0.elapsed().as_secs_f64());
-    }
-    let (ipk, imean, tdec, energy, vpk) = m.unwrap();
+    // One run each side, on the same machine.
     let t0 = Instant::now();
-    let ng = spice::ngspice(case.name, &spice::netlist(&case)).expect("ngspice runs");
+    let (ipk, imean, tdec, energy, vpk) = spice::plant(&case).expect("plant runs");
+    let t_plant = t0.elapsed().as_secs_f64();
+    let t0 = Instant::now();
+    let ng = spice::ngspice(case.name, &spice::netlist_at(&case, TIMED)).expect("ngspice runs");
     let t_ng = t0.elapsed().as_secs_f64();
-    println!("1 s of 20 kHz PWM (35 %) on the valve circuit, then the release:");
-    let mut ok = agree("peak current", ipk, ng["ipk"], 0.02);
-    ok &= agree("mean current", imean, ng["imean"], 0.02);
+    println!(
+        "1 s of 20 kHz PWM (35 %) on the valve circuit, then the release; ngspice at reltol {} and a largest step of {} s:",
+        TIMED.reltol,
+        TIMED.max_step.unwrap_or(0.0)
+    );
+    let mut ok = agree("peak current", ipk, ng["ipk"], MATCHED);
+    ok &= agree("mean current", imean, ng["imean"], MATCHED);
     ok &= agree(
         "decay time",
         tdec.expect("decays") - case.t_off(),
         ng["tdec"],
-        0.02,
+        MATCHED,
     );
-    ok &= agree("clamp energy", energy, ng["ecl"] + ng["eav"], 0.02);
-    ok &= agree("node peak", vpk, ng["vpk"], 0.03);
-    println!("  plant   {best:.4} s (best of 5)");
+    ok &= agree("clamp energy", energy, ng["ecl"] + ng["eav"], ENERGY);
+    ok &= agree("node peak", vpk, ng["vpk"], NODE);
+    println!("  plant   {t_plant:.4} s (one run)");
     println!("  ngspice {t_ng:.2} s (one run)");
-    println!("  ratio   {:.0}× faster", t_ng / best);
+    println!(
+        "  ratio   {:.0}× faster at matched accuracy (goal 1000×)",
+        t_ng / t_plant
+    );
     if !ok {
-        eprintln!("the plant and ngspice disagree beyond the cross-check tolerances");
+        eprintln!("the plant and ngspice disagree beyond the matched accuracy");
         std::process::exit(1);
     }
 
@@ -70,7 +92,7 @@ fn main() {
     let r = sweep::run(&s, &Spec::uniform(1000, 1), || {});
     let t = t0.elapsed().as_secs_f64();
     println!(
-        "sweep: 1000 samples of the 200 ms irrigation-valve scenario (guard + plant) on {} threads: {t:.2} s (goal: under 10 s); {} failed",
+        "sweep: 1000 samples of the 200 ms irrigation-valve scenario (guard + plant) on {} threads: {t:.2} s (goal: under 3 s); {} failed",
         rayon::current_num_threads(),
         r.iter()
             .filter(|x| x.verdict == coilward_sim::cosim::Verdict::Fail)

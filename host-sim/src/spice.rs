@@ -81,6 +81,29 @@ impl Case {
 /// the last period), `tdec` (decay time to the release current), `ecl` and `eav` (energy into
 /// the clamp path and into the avalanche after the turn-off) and `vpk` (node peak after it).
 pub fn netlist(k: &Case) -> String {
+    netlist_at(k, Accuracy::REFERENCE)
+}
+
+/// ngspice's accuracy settings: relative tolerance and largest time step.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Accuracy {
+    /// `.options reltol`.
+    pub reltol: f64,
+    /// The largest time step, s (`None`: 1/400 of the period, and 1/2000 of the rest after
+    /// the drive, whichever is shorter).
+    pub max_step: Option<f64>,
+}
+
+impl Accuracy {
+    /// The cross-checks' settings: reltol 10⁻⁵, a step of 1/400 of the period.
+    pub const REFERENCE: Accuracy = Accuracy {
+        reltol: 1e-5,
+        max_step: None,
+    };
+}
+
+/// [`netlist`] at other accuracy settings.
+pub fn netlist_at(k: &Case, accuracy: Accuracy) -> String {
     let c = &k.c;
     let r = |x: f64| x.max(crate::plant::MIN_RESISTANCE);
     let t_off = f64::from(k.periods - 1) * k.period + k.on;
@@ -140,8 +163,15 @@ pub fn netlist(k: &Case) -> String {
         }
     }
     writeln!(n, ".model dideal D(IS=1e-14 N=0.002)").unwrap();
-    writeln!(n, ".options reltol=1e-5 abstol=1e-10 vntol=1e-7").unwrap();
-    let step = (k.period / 400.0).min(k.rest / 2000.0);
+    writeln!(
+        n,
+        ".options reltol={} abstol=1e-10 vntol=1e-7",
+        accuracy.reltol
+    )
+    .unwrap();
+    let step = accuracy
+        .max_step
+        .unwrap_or((k.period / 400.0).min(k.rest / 2000.0));
     writeln!(n, ".tran {step} {t_end} 0 {step} uic").unwrap();
     let last = f64::from(k.periods - 1) * k.period;
     writeln!(n, ".meas tran ipk MAX i(Vsense) from=0 to={t_end}").unwrap();

@@ -33,6 +33,24 @@ pub struct Wave {
     terms: usize,
 }
 
+/// e^x, with 0 below −708 (where e^x is subnormal: every term it scales is below 10⁻³⁰⁰ of
+/// the wave, and the library's underflow path is slow; a stiff mode decays there within
+/// picoseconds of every segment).
+#[inline]
+fn exp(x: f64) -> f64 {
+    if x < -708.0 { 0.0 } else { x.exp() }
+}
+
+/// e^z for complex z, with the same cut (and no sine or cosine below it).
+#[inline]
+fn cexp(z: C) -> C {
+    if z.re < -708.0 {
+        C::new(0.0, 0.0)
+    } else {
+        z.exp()
+    }
+}
+
 /// φ(μ, T) = (e^{μT} − 1)/μ, accurate for small |μT|.
 fn phi(mu: C, t: f64) -> C {
     let x = mu * t;
@@ -41,7 +59,7 @@ fn phi(mu: C, t: f64) -> C {
     } else if mu.im == 0.0 {
         C::new(x.re.exp_m1() / mu.re, 0.0)
     } else {
-        (x.exp() - 1.0) / mu
+        (cexp(x) - 1.0) / mu
     }
 }
 
@@ -54,13 +72,13 @@ impl Wave {
         if self.terms == 2 {
             // Real modes: no complex exponential (its sine and cosine would be wasted).
             return self.alpha
-                + self.z[0].re * (self.mu[0].re * t).exp()
-                + self.z[1].re * (self.mu[1].re * t).exp();
+                + self.z[0].re * exp(self.mu[0].re * t)
+                + self.z[1].re * exp(self.mu[1].re * t);
         }
         let mut g = self.alpha;
         for k in 0..self.terms {
             if self.z[k] != C::new(0.0, 0.0) {
-                g += (self.z[k] * (self.mu[k] * t).exp()).re;
+                g += (self.z[k] * cexp(self.mu[k] * t)).re;
             }
         }
         g
@@ -100,7 +118,7 @@ impl Wave {
                 if t > 0.0 {
                     // Once the oscillation has decayed below 10⁻¹² of its start, the rest of
                     // the segment is monotonic for every purpose here.
-                    if (m * t).exp() * amp0 < 1e-12 * (amp0 + self.alpha.abs()) {
+                    if exp(m * t) * amp0 < 1e-12 * (amp0 + self.alpha.abs()) {
                         break;
                     }
                     out[n] = t;
@@ -126,7 +144,18 @@ impl Wave {
             .iter()
             .map(|z| z.re.abs() + z.im.abs())
             .sum();
-        if self.alpha + reach <= 0.0 && self.mu[..self.terms].iter().all(|m| m.re <= 0.0) {
+        let decaying = self.mu[..self.terms].iter().all(|m| m.re <= 0.0);
+        if self.alpha + reach <= 0.0 && decaying {
+            return None;
+        }
+        // Nor one that cannot climb to zero within t_end: |g′| ≤ Σ|z_k||μ_k| while every mode
+        // decays (|·| bounded by |re| + |im| again).
+        let climb: f64 = self.z[..self.terms]
+            .iter()
+            .zip(&self.mu)
+            .map(|(z, m)| (z.re.abs() + z.im.abs()) * (m.re.abs() + m.im.abs()))
+            .sum();
+        if decaying && ga + t_end * climb <= 0.0 {
             return None;
         }
         let mut tp = [0.0; 64];
@@ -145,8 +174,8 @@ impl Wave {
     /// g(t) and g′(t), sharing the exponentials.
     fn with_slope(&self, t: f64) -> (f64, f64) {
         if self.terms == 2 {
-            let e0 = self.z[0].re * (self.mu[0].re * t).exp();
-            let e1 = self.z[1].re * (self.mu[1].re * t).exp();
+            let e0 = self.z[0].re * exp(self.mu[0].re * t);
+            let e1 = self.z[1].re * exp(self.mu[1].re * t);
             return (
                 self.alpha + e0 + e1,
                 e0 * self.mu[0].re + e1 * self.mu[1].re,
@@ -154,7 +183,7 @@ impl Wave {
         }
         let (mut g, mut d) = (self.alpha, 0.0);
         for k in 0..self.terms {
-            let e = self.z[k] * (self.mu[k] * t).exp();
+            let e = self.z[k] * cexp(self.mu[k] * t);
             g += e.re;
             d += (e * self.mu[k]).re;
         }
@@ -244,8 +273,15 @@ impl Wave {
         for j in 0..self.terms {
             for k in 0..h.terms {
                 let (p, q) = (self.z[j], h.z[k]);
-                s += 0.5 * (p * q * phi(self.mu[j] + h.mu[k], t_end)).re;
-                s += 0.5 * (p * q.conj() * phi(self.mu[j] + h.mu[k].conj(), t_end)).re;
+                let same = phi(self.mu[j] + h.mu[k], t_end);
+                // A real mode is its own conjugate: the same φ, not computed twice.
+                let conj = if h.mu[k].im == 0.0 {
+                    same
+                } else {
+                    phi(self.mu[j] + h.mu[k].conj(), t_end)
+                };
+                s += 0.5 * (p * q * same).re;
+                s += 0.5 * (p * q.conj() * conj).re;
             }
         }
         s
@@ -356,14 +392,14 @@ impl Solution {
         let mut x = self.xp;
         if self.terms == 2 {
             for k in 0..2 {
-                let e = (self.mu[k].re * t).exp();
+                let e = exp(self.mu[k].re * t);
                 x[0] += self.z[k][0].re * e;
                 x[1] += self.z[k][1].re * e;
             }
             return x;
         }
         for k in 0..self.terms {
-            let e = (self.mu[k] * t).exp();
+            let e = cexp(self.mu[k] * t);
             x[0] += (self.z[k][0] * e).re;
             x[1] += (self.z[k][1] * e).re;
         }
