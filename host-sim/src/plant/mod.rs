@@ -29,7 +29,7 @@
 
 pub mod wave;
 
-use wave::{Singular, Solution, Wave};
+use wave::{Modes, Singular, Solution, Wave};
 
 /// The resistance given to a path the scenario calls ideal (0 Ω), Ω.
 ///
@@ -237,7 +237,13 @@ pub struct Plant {
     pub state: State,
     mode: Mode,
     mode_known: bool,
+    /// The modes of the systems met so far, by conduction mode and switch, for the circuit
+    /// they were solved for (a steady drive meets the same few again every period).
+    modes: ([Option<Solved>; 8], usize, Circuit),
 }
+
+/// A system's modes, by the conduction mode and the switch it was solved for.
+type Solved = (Mode, bool, Modes);
 
 /// A linear functional c·x + d of the state.
 type Functional = ([f64; 2], f64);
@@ -250,6 +256,7 @@ impl Plant {
             state,
             mode: Mode::default(),
             mode_known: false,
+            modes: ([None; 8], 0, circuit),
         }
     }
 
@@ -369,9 +376,8 @@ impl Plant {
         let mut left = duration;
         let mut events = 0usize;
         while left > 0.0 {
-            let (a, b) = self.system(self.mode, on);
             let x0 = [self.state.current, self.state.node];
-            let sol = Solution::new(a, b, x0)?;
+            let sol = self.modes_of(self.mode, on)?.from(x0);
             // The earliest part to change.
             let mut end = left;
             let mut change = None;
@@ -405,6 +411,24 @@ impl Plant {
             }
         }
         Ok(())
+    }
+
+    /// The modes of the system in mode `m` with the switch `on`, solved once per circuit.
+    fn modes_of(&mut self, m: Mode, on: bool) -> Result<Modes, PlantError> {
+        let (kept, _, solved_for) = &mut self.modes;
+        if *solved_for != self.circuit {
+            *kept = [None; 8];
+            *solved_for = self.circuit;
+        }
+        if let Some((_, _, k)) = kept.iter().flatten().find(|e| e.0 == m && e.1 == on) {
+            return Ok(*k);
+        }
+        let (a, b) = self.system(m, on);
+        let k = Modes::new(a, b)?;
+        let (kept, next, _) = &mut self.modes;
+        kept[*next % 8] = Some((m, on, k));
+        *next += 1;
+        Ok(k)
     }
 
     /// Adds one segment of `t` seconds to the tally, in closed form.

@@ -194,9 +194,19 @@ impl Wave {
     /// inside the bracket (bisection — geometric across decades — whenever a step would leave it
     /// or not shrink it by half);
     /// returns a point where g > 0 within a relative 10⁻¹³ (or 10⁻¹⁸ s) of the crossing.
-    fn bracket(&self, mut a: f64, _ga: f64, mut b: f64, _gb: f64) -> f64 {
+    fn bracket(&self, mut a: f64, ga: f64, mut b: f64, _gb: f64) -> f64 {
         let lo = if a > 0.0 { a } else { b * 1e-20 };
-        let mut t = if b > 8.0 * lo {
+        // From the start of a segment, a first Newton step from t = 0 (its slope needs no
+        // exponential): a crossing a node's linear charge reaches lands next to it.
+        let slope0: f64 = (0..self.terms).map(|k| (self.z[k] * self.mu[k]).re).sum();
+        let newton0 = if a == 0.0 && slope0 > 0.0 {
+            -ga / slope0
+        } else {
+            f64::NAN
+        };
+        let mut t = if newton0 > a && newton0 < b {
+            newton0
+        } else if b > 8.0 * lo {
             (lo * b).sqrt()
         } else {
             0.5 * (a + b)
@@ -302,10 +312,31 @@ pub struct Solution {
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Singular;
 
-impl Solution {
-    /// Solves the segment. A must be non-singular (every mode of the plant has det A > 0:
-    /// the coil's inductance and the node capacitance are both positive).
-    pub fn new(a: [[f64; 2]; 2], b: [f64; 2], x0: [f64; 2]) -> Result<Self, Singular> {
+/// What a segment's solution takes from its system x′ = A·x + b alone: the particular
+/// solution and the modes. The same for every segment in one conduction mode, so a plant keeps
+/// it per mode instead of solving the eigenproblem again each time.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Modes {
+    a: [[f64; 2]; 2],
+    xp: [f64; 2],
+    /// (A − mI) applied below; m and the split of the eigenvalues.
+    m: f64,
+    h: f64,
+    kind: Kind,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Kind {
+    /// Real eigenvalues λ₁, λ₂ and their gap.
+    Real { l1: f64, l2: f64, gap: f64 },
+    /// A complex pair m ± iω.
+    Complex { w: f64 },
+}
+
+impl Modes {
+    /// The modes of x′ = A·x + b. A must be non-singular (every mode of the plant has det A >
+    /// 0: the coil's inductance and the node capacitance are both positive).
+    pub fn new(a: [[f64; 2]; 2], b: [f64; 2]) -> Result<Self, Singular> {
         let det = a[0][0] * a[1][1] - a[0][1] * a[1][0];
         if !(det.is_finite() && det != 0.0) {
             return Err(Singular);
@@ -314,13 +345,10 @@ impl Solution {
             -(a[1][1] * b[0] - a[0][1] * b[1]) / det,
             -(a[0][0] * b[1] - a[1][0] * b[0]) / det,
         ];
-        let dx = [x0[0] - xp[0], x0[1] - xp[1]];
         let m = 0.5 * (a[0][0] + a[1][1]);
         let h = 0.5 * (a[0][0] - a[1][1]);
-        // (A − mI)·Δ
-        let ad = [h * dx[0] + a[0][1] * dx[1], a[1][0] * dx[0] - h * dx[1]];
         let disc = h * h + a[0][1] * a[1][0];
-        if disc >= 0.0 {
+        let kind = if disc >= 0.0 {
             let mut d = disc.sqrt();
             let min_gap = 5e-8 * m.abs().max(1e-300);
             if d < min_gap {
@@ -339,34 +367,60 @@ impl Solution {
             } else {
                 (m + d, m - d)
             };
-            let gap = l1 - l2;
-            let half = 0.5;
-            let z1 = [
-                C::new(half * dx[0] + ad[0] / gap, 0.0),
-                C::new(half * dx[1] + ad[1] / gap, 0.0),
-            ];
-            let z2 = [
-                C::new(half * dx[0] - ad[0] / gap, 0.0),
-                C::new(half * dx[1] - ad[1] / gap, 0.0),
-            ];
-            Ok(Self {
-                x0,
-                xp,
-                z: [z1, z2],
-                mu: [C::new(l1, 0.0), C::new(l2, 0.0)],
-                terms: 2,
-            })
+            Kind::Real {
+                l1,
+                l2,
+                gap: l1 - l2,
+            }
         } else {
-            let w = (-disc).sqrt();
-            let z = [C::new(dx[0], -ad[0] / w), C::new(dx[1], -ad[1] / w)];
-            Ok(Self {
-                x0,
-                xp,
-                z: [z, [C::new(0.0, 0.0); 2]],
-                mu: [C::new(m, w), C::new(0.0, 0.0)],
-                terms: 1,
-            })
+            Kind::Complex { w: (-disc).sqrt() }
+        };
+        Ok(Self { a, xp, m, h, kind })
+    }
+
+    /// The segment's solution from x(0) = x0.
+    pub fn from(&self, x0: [f64; 2]) -> Solution {
+        let (a, xp, h) = (self.a, self.xp, self.h);
+        let dx = [x0[0] - xp[0], x0[1] - xp[1]];
+        // (A − mI)·Δ
+        let ad = [h * dx[0] + a[0][1] * dx[1], a[1][0] * dx[0] - h * dx[1]];
+        match self.kind {
+            Kind::Real { l1, l2, gap } => {
+                let half = 0.5;
+                let z1 = [
+                    C::new(half * dx[0] + ad[0] / gap, 0.0),
+                    C::new(half * dx[1] + ad[1] / gap, 0.0),
+                ];
+                let z2 = [
+                    C::new(half * dx[0] - ad[0] / gap, 0.0),
+                    C::new(half * dx[1] - ad[1] / gap, 0.0),
+                ];
+                Solution {
+                    x0,
+                    xp,
+                    z: [z1, z2],
+                    mu: [C::new(l1, 0.0), C::new(l2, 0.0)],
+                    terms: 2,
+                }
+            }
+            Kind::Complex { w } => {
+                let z = [C::new(dx[0], -ad[0] / w), C::new(dx[1], -ad[1] / w)];
+                Solution {
+                    x0,
+                    xp,
+                    z: [z, [C::new(0.0, 0.0); 2]],
+                    mu: [C::new(self.m, w), C::new(0.0, 0.0)],
+                    terms: 1,
+                }
+            }
         }
+    }
+}
+
+impl Solution {
+    /// Solves the segment x′ = A·x + b from x(0) = x0 (see [`Modes::new`]).
+    pub fn new(a: [[f64; 2]; 2], b: [f64; 2], x0: [f64; 2]) -> Result<Self, Singular> {
+        Ok(Modes::new(a, b)?.from(x0))
     }
 
     /// The wave of c·x + d.
