@@ -177,17 +177,6 @@ enum Command {
     },
 }
 
-/// Whether the file is a full-bridge scenario (unreadable files go down the low-side path,
-/// which reports the problem).
-fn is_bridge(file: &Path) -> bool {
-    std::fs::read_to_string(file)
-        .is_ok_and(|t| scenario::topology_of(&t) == scenario::Topology::FullBridge)
-}
-
-fn load_bridge(file: &Path) -> Result<BridgeScenario, ExitCode> {
-    refused(BridgeScenario::load(file))
-}
-
 /// Where `run` writes its reports.
 struct Outputs<'a> {
     json: Option<&'a Path>,
@@ -280,21 +269,19 @@ fn verdict(v: cosim::Verdict) -> ExitCode {
     ExitCode::from(v.exit_status())
 }
 
-fn run_bridge(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
-    let s = load_bridge(file)?;
+fn run_bridge(s: &BridgeScenario, out: &Outputs) -> Result<ExitCode, ExitCode> {
     out.check()?;
-    let r = bridge::cosim::run(&s, out.rows());
-    say_part!("{}", bridge::report::summary(&s, &r));
+    let r = bridge::cosim::run(s, out.rows());
+    say_part!("{}", bridge::report::summary(s, &r));
     out.write(
-        || bridge::report::json(&s, &r),
+        || bridge::report::json(s, &r),
         |w| bridge::report::csv(&r.rows, w),
-        |p| bridge::report::svg_window(&s, &r, p, out.window),
+        |p| bridge::report::svg_window(s, &r, p, out.window),
     )?;
     Ok(verdict(r.verdict()))
 }
 
-fn check_bridge(file: &Path) -> Result<ExitCode, ExitCode> {
-    let s = load_bridge(file)?;
+fn check_bridge(s: &BridgeScenario) -> Result<ExitCode, ExitCode> {
     let guard = s.guard().map_err(|e| {
         eprintln!("error: {}", s.config_error(&e));
         ExitCode::from(2)
@@ -349,10 +336,6 @@ fn check_bridge(file: &Path) -> Result<ExitCode, ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
-fn load(file: &Path) -> Result<Scenario, ExitCode> {
-    refused(Scenario::load(file))
-}
-
 /// A scenario that did not load: its error printed, exit status 2.
 fn refused<T>(loaded: Result<T, scenario::ScenarioError>) -> Result<T, ExitCode> {
     loaded.map_err(|e| {
@@ -379,27 +362,24 @@ fn writable(path: &Path, what: &str) -> Result<(), ExitCode> {
     })
 }
 
-fn faults_cmd(file: &Path, json: Option<&Path>) -> Result<ExitCode, ExitCode> {
+fn faults_cmd(s: &scenario::Loaded, json: Option<&Path>) -> Result<ExitCode, ExitCode> {
     use rayon::prelude::*;
-    let bridge = is_bridge(file);
-    let (name, outcomes): (String, Vec<_>) = if bridge {
-        let s = load_bridge(file)?;
-        if let Some(p) = json {
-            writable(p, "fault report")?;
+    // The output is checked writable before the work.
+    if let Some(p) = json {
+        writable(p, "fault report")?;
+    }
+    let bridge = s.topology() == scenario::Topology::FullBridge;
+    let outcomes: Vec<_> = match s {
+        scenario::Loaded::FullBridge(s) => {
+            let run = |c| bridge::faults::run(c).0;
+            bridge::faults::suite(s).par_iter().map(run).collect()
         }
-        let cases = bridge::faults::suite(&s);
-        let run = |c| bridge::faults::run(c).0;
-        (s.name.clone(), cases.par_iter().map(run).collect())
-    } else {
-        let s = load(file)?;
-        // The output is checked writable before the work.
-        if let Some(p) = json {
-            writable(p, "fault report")?;
+        scenario::Loaded::LowSide(s) => {
+            let run = |c| coilward_sim::faults::run(c).0;
+            coilward_sim::faults::suite(s).par_iter().map(run).collect()
         }
-        let cases = coilward_sim::faults::suite(&s);
-        let run = |c| coilward_sim::faults::run(c).0;
-        (s.name.clone(), cases.par_iter().map(run).collect())
     };
+    let (name, file) = (s.name(), s.file());
     say!("{name} ({})", file.display());
     // The third column: the bus on a bridge, the clamp pulse on a low side.
     let third = if bridge { "bus/max" } else { "pulse/rat." };
@@ -442,10 +422,9 @@ fn faults_cmd(file: &Path, json: Option<&Path>) -> Result<ExitCode, ExitCode> {
         .count();
     say!("\n  inside the declared tolerance: {inside} cases, {bad} exceeded");
     if let Some(p) = json {
-        let topology = if bridge { "full-bridge" } else { "low-side" };
         let doc = serde_json::json!({
             "schema": coilward_sim::report::json::REPORT_SCHEMA,
-            "scenario": coilward_sim::report::json::scenario(&name, file, topology),
+            "scenario": coilward_sim::report::json::scenario(name, file, s.topology().word()),
             "cases": outcomes,
         });
         write_file(p, "fault report", |p| {
@@ -459,19 +438,18 @@ fn faults_cmd(file: &Path, json: Option<&Path>) -> Result<ExitCode, ExitCode> {
     Ok(ExitCode::from(u8::from(bad > 0)))
 }
 
-fn run(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
-    let s = load(file)?;
+fn run(s: &Scenario, out: &Outputs) -> Result<ExitCode, ExitCode> {
     out.check()?;
     let r = cosim::run(
-        &s,
+        s,
         Options {
             rows: out.rows(),
             wave: None,
         },
     );
-    say_part!("{}", report::summary(&s, &r));
+    say_part!("{}", report::summary(s, &r));
     out.write(
-        || report::json::report(&s, &r),
+        || report::json::report(s, &r),
         |w| report::csv::write(&r.rows, w),
         |p| {
             // A window of at most 200 periods shows the plant's full wave, from a second run
@@ -484,17 +462,16 @@ fn run(file: &Path, out: &Outputs) -> Result<ExitCode, ExitCode> {
                         rows: false,
                         wave: Some(w),
                     };
-                    cosim::run(&s, opts).wave
+                    cosim::run(s, opts).wave
                 })
                 .unwrap_or_default();
-            report::svg::write_window(&s, &r, p, out.window, &wave)
+            report::svg::write_window(s, &r, p, out.window, &wave)
         },
     )?;
     Ok(verdict(r.verdict()))
 }
 
-fn check(file: &Path) -> Result<ExitCode, ExitCode> {
-    let s = load(file)?;
+fn check(s: &Scenario) -> Result<ExitCode, ExitCode> {
     let guard = s.guard().map_err(|e| {
         eprintln!("error: {}", s.config_error(&e));
         ExitCode::from(2)
@@ -579,7 +556,7 @@ fn check(file: &Path) -> Result<ExitCode, ExitCode> {
             );
         }
     }
-    print_tolerance_and_clamp_power(&s);
+    print_tolerance_and_clamp_power(s);
     if !s.tolerance.is_empty() {
         say!("\n  tolerance spreads (for sweep):");
         for (k, sp) in &s.tolerance {
@@ -754,19 +731,19 @@ fn open_records(
 }
 
 fn sweep_cmd(
-    file: &Path,
+    s: &scenario::Loaded,
     what: (Option<u64>, u64, &str, Option<&str>),
     (records, json): (Option<&Path>, Option<&Path>),
     target: &str,
 ) -> Result<ExitCode, ExitCode> {
-    let s = refused(scenario::Loaded::load(file))?;
-    let spec = sweep_spec(&s, what)?;
+    let file = s.file();
+    let spec = sweep_spec(s, what)?;
     let target = target_probability(target)?;
     let bytes = std::fs::read(file).map_err(|e| {
         eprintln!("error: {}: {e}", file.display());
         ExitCode::from(2)
     })?;
-    let header = Header::new(&s, &bytes, &spec);
+    let header = Header::new(s, &bytes, &spec);
     let (mut done, mut summary) = (Done::new(spec.samples), Summary::default());
     let writer = records
         .map(|p| open_records(p, &header, &mut done, &mut summary))
@@ -786,7 +763,7 @@ fn sweep_cmd(
     let t0 = std::time::Instant::now();
     let shared = std::sync::Mutex::new((writer, summary, None::<String>));
     sweep::each(
-        &s,
+        s,
         &spec,
         |i| done.has(i),
         |x| {
@@ -1009,6 +986,37 @@ fn new_cmd(bridge: bool, file: Option<&Path>) -> Result<ExitCode, ExitCode> {
     }
 }
 
+/// What to do with a scenario file.
+enum OnScenario<'a> {
+    /// `run`, writing these reports.
+    Run(Outputs<'a>),
+    /// `check`.
+    Check,
+    /// `sweep` with its sample choice, outputs and target.
+    Sweep {
+        what: (Option<u64>, u64, &'a str, Option<&'a str>),
+        out: (Option<&'a Path>, Option<&'a Path>),
+        target: &'a str,
+    },
+    /// `faults`, writing the report here.
+    Faults(Option<&'a Path>),
+}
+
+/// A command on a scenario file, loaded once: the one place the topology is decided (`run`
+/// and `check` differ by topology; `sweep` and `faults` take either).
+fn on_scenario(file: &Path, what: OnScenario<'_>) -> Result<ExitCode, ExitCode> {
+    use scenario::Loaded::{FullBridge, LowSide};
+    let s = refused(scenario::Loaded::load(file))?;
+    match (what, &s) {
+        (OnScenario::Run(out), LowSide(s)) => run(s, &out),
+        (OnScenario::Run(out), FullBridge(s)) => run_bridge(s, &out),
+        (OnScenario::Check, LowSide(s)) => check(s),
+        (OnScenario::Check, FullBridge(s)) => check_bridge(s),
+        (OnScenario::Sweep { what, out, target }, _) => sweep_cmd(&s, what, out, target),
+        (OnScenario::Faults(json), _) => faults_cmd(&s, json),
+    }
+}
+
 fn main() -> ExitCode {
     let cli = Cli::parse();
     let r = match &cli.command {
@@ -1026,14 +1034,9 @@ fn main() -> ExitCode {
                 svg: svg.as_deref(),
                 window,
             };
-            if is_bridge(file) {
-                run_bridge(file, &out)
-            } else {
-                run(file, &out)
-            }
+            on_scenario(file, OnScenario::Run(out))
         }),
-        Command::Check { file } if is_bridge(file) => check_bridge(file),
-        Command::Check { file } => check(file),
+        Command::Check { file } => on_scenario(file, OnScenario::Check),
         Command::Sweep {
             file,
             samples,
@@ -1043,18 +1046,20 @@ fn main() -> ExitCode {
             records,
             json,
             target,
-        } => sweep_cmd(
+        } => on_scenario(
             file,
-            (*samples, *seed, plan, shard.as_deref()),
-            (records.as_deref(), json.as_deref()),
-            target,
+            OnScenario::Sweep {
+                what: (*samples, *seed, plan, shard.as_deref()),
+                out: (records.as_deref(), json.as_deref()),
+                target,
+            },
         ),
+        Command::Faults { file, json } => on_scenario(file, OnScenario::Faults(json.as_deref())),
         Command::Merge {
             records,
             json,
             target,
         } => merge_cmd(records, json.as_deref(), target),
-        Command::Faults { file, json } => faults_cmd(file, json.as_deref()),
         Command::New { bridge, file, .. } => new_cmd(*bridge, file.as_deref()),
         Command::Fit {
             file,
