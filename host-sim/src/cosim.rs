@@ -726,6 +726,13 @@ fn simulate(
         out.periods += 1;
         out.simulated_s = tk + len;
     }
+    finish(out, &lim, &walk);
+    Ok(())
+}
+
+/// After the last period: the largest clamp pulse and those over the rating, the estimate's
+/// RMS error, the findings in time order.
+fn finish(out: &mut Run, lim: &Limits, walk: &Walk) {
     for i in 0..out.turn_offs.len() {
         let t = out.turn_offs[i];
         out.max_pulse_energy_j = out.max_pulse_energy_j.max(t.clamp_energy_j);
@@ -735,7 +742,6 @@ fn simulate(
         out.estimate.rms_error_a = (walk.sum_sq / walk.count as f64).sqrt();
     }
     out.findings.sort_by(|a, b| a.t_s.total_cmp(&b.t_s));
-    Ok(())
 }
 
 impl Walk {

@@ -1167,575 +1167,19 @@ impl Scenario {
             "supply", "coil", "switch", "clamp", "control", "guard", "run",
         ])?;
         let raw: Raw = cx.document()?;
-        let s = &raw.supply;
-        let voltage = cx.required("supply.voltage", &s.voltage, Unit::Volt)?;
-        let supply_min = cx.value("supply.min", &s.min, Unit::Volt)?;
-        let supply_max = cx.value("supply.max", &s.max, Unit::Volt)?;
         let mut assumed = Vec::new();
-        if supply_min.is_none() {
-            assumed.push(format!("supply.min = supply.voltage ({voltage} V)"));
-        }
-        if supply_max.is_none() {
-            assumed.push(format!("supply.max = supply.voltage ({voltage} V)"));
-        }
-        let source_resistance = cx
-            .value("supply.source_resistance", &s.source_resistance, Unit::Ohm)?
-            .unwrap_or(0.0);
-        cx.check(
-            "supply.source_resistance",
-            source_resistance >= 0.0,
-            "must not be negative",
-        )?;
-
-        let c = &raw.coil;
-        let inductance = cx.required("coil.inductance", &c.inductance, Unit::Henry)?;
-        let resistance = cx.required("coil.resistance", &c.resistance, Unit::Ohm)?;
-        let reference_temperature = cx
-            .value(
-                "coil.reference_temperature",
-                &c.reference_temperature,
-                Unit::Celsius,
-            )?
-            .unwrap_or(20.0);
-        let temperature = cx
-            .value("coil.temperature", &c.temperature, Unit::Celsius)?
-            .unwrap_or(reference_temperature);
-        let temperature_coefficient = cx
-            .value(
-                "coil.temperature_coefficient",
-                &c.temperature_coefficient,
-                Unit::PerKelvin,
-            )?
-            .unwrap_or(f64::from(coilward::COPPER_TEMPERATURE_COEFFICIENT));
-        let saturation_current = cx.value(
-            "coil.saturation_current",
-            &c.saturation_current,
-            Unit::Ampere,
-        )?;
-        let saturated_inductance = cx.value(
-            "coil.saturated_inductance",
-            &c.saturated_inductance,
-            Unit::Henry,
-        )?;
-        match (saturation_current, saturated_inductance) {
-            (Some(_), None) => {
-                return Err(cx.error(
-                    "coil.saturated_inductance",
-                    cx.spans.get("coil.saturation_current").cloned(),
-                    "missing: saturation_current needs saturated_inductance",
-                ));
-            }
-            (None, Some(_)) => {
-                return Err(cx.error(
-                    "coil.saturation_current",
-                    cx.spans.get("coil.saturated_inductance").cloned(),
-                    "missing: saturated_inductance needs saturation_current",
-                ));
-            }
-            (Some(i), Some(l)) => {
-                cx.check("coil.saturation_current", i > 0.0, "must be positive")?;
-                cx.check(
-                    "coil.saturated_inductance",
-                    l > 0.0 && l <= inductance,
-                    "must be positive and at most coil.inductance",
-                )?;
-            }
-            (None, None) => {}
-        }
-
-        let w = &raw.switch;
-        let on_resistance = cx.required("switch.on_resistance", &w.on_resistance, Unit::Ohm)?;
-        let capacitance = match cx.value("switch.capacitance", &w.capacitance, Unit::Farad)? {
-            Some(c) => c,
-            None => {
-                assumed.push("switch.capacitance = 100 pF".to_string());
-                100e-12
-            }
-        };
-        cx.check(
-            "switch.capacitance",
-            capacitance > 0.0 && capacitance <= 1e-3,
-            "must be above 0 and at most 1 mF",
-        )?;
-        let breakdown = cx.required("switch.breakdown", &w.breakdown, Unit::Volt)?;
-        let body_diode_voltage = match cx.value(
-            "switch.body_diode_voltage",
-            &w.body_diode_voltage,
-            Unit::Volt,
-        )? {
-            Some(v) => v,
-            None => {
-                assumed.push("switch.body_diode_voltage = 0.8 V".to_string());
-                0.8
-            }
-        };
-        cx.check(
-            "switch.body_diode_voltage",
-            body_diode_voltage >= 0.0,
-            "must not be negative",
-        )?;
-        let avalanche_resistance = cx
-            .value(
-                "switch.avalanche_resistance",
-                &w.avalanche_resistance,
-                Unit::Ohm,
-            )?
-            .unwrap_or(0.0);
-        cx.check(
-            "switch.avalanche_resistance",
-            avalanche_resistance >= 0.0,
-            "must not be negative",
-        )?;
-
-        let k = &raw.clamp;
-        let kind = match cx.word(
-            "clamp.path",
-            &k.path,
-            &["none", "freewheel", "freewheel-zener", "switch-clamp"],
-        )? {
-            Some("none") => PathName::None,
-            Some("freewheel") => PathName::Freewheel,
-            Some("freewheel-zener") => PathName::FreewheelZener,
-            Some(_) => PathName::SwitchClamp,
-            None => {
-                return Err(cx.error(
-                    "clamp.path",
-                    None,
-                    "missing; one of none, freewheel, freewheel-zener, switch-clamp",
-                ));
-            }
-        };
-        let forward_voltage = cx.value("clamp.forward_voltage", &k.forward_voltage, Unit::Volt)?;
-        let zener_voltage = cx.value("clamp.zener_voltage", &k.zener_voltage, Unit::Volt)?;
-        let clamp_voltage = cx.value("clamp.clamp_voltage", &k.clamp_voltage, Unit::Volt)?;
-        let clamp_resistance = cx.value("clamp.resistance", &k.resistance, Unit::Ohm)?;
-        let needs = |key: &str, v: Option<f64>, cx: &Cx| -> Result<f64, ScenarioError> {
-            v.ok_or_else(|| {
-                cx.error(
-                    key,
-                    cx.spans.get("clamp.path").cloned(),
-                    format!("missing: path \"{}\" needs it", kind.name()),
-                )
-            })
-        };
-        let refuse = |key: &str, v: Option<f64>, cx: &Cx| -> Result<(), ScenarioError> {
-            if v.is_some() {
-                Err(cx.error(
-                    key,
-                    None,
-                    format!("does not apply to path \"{}\"", kind.name()),
-                ))
-            } else {
-                Ok(())
-            }
-        };
-        let (fv, zv, kv) = match kind {
-            PathName::None => {
-                refuse("clamp.forward_voltage", forward_voltage, &cx)?;
-                refuse("clamp.zener_voltage", zener_voltage, &cx)?;
-                refuse("clamp.clamp_voltage", clamp_voltage, &cx)?;
-                refuse("clamp.resistance", clamp_resistance, &cx)?;
-                (0.0, 0.0, 0.0)
-            }
-            PathName::Freewheel => {
-                refuse("clamp.zener_voltage", zener_voltage, &cx)?;
-                refuse("clamp.clamp_voltage", clamp_voltage, &cx)?;
-                (
-                    needs("clamp.forward_voltage", forward_voltage, &cx)?,
-                    0.0,
-                    0.0,
-                )
-            }
-            PathName::FreewheelZener => {
-                refuse("clamp.clamp_voltage", clamp_voltage, &cx)?;
-                (
-                    needs("clamp.forward_voltage", forward_voltage, &cx)?,
-                    needs("clamp.zener_voltage", zener_voltage, &cx)?,
-                    0.0,
-                )
-            }
-            PathName::SwitchClamp => {
-                refuse("clamp.forward_voltage", forward_voltage, &cx)?;
-                refuse("clamp.zener_voltage", zener_voltage, &cx)?;
-                (0.0, 0.0, needs("clamp.clamp_voltage", clamp_voltage, &cx)?)
-            }
-        };
-
-        let mut plant = Values {
-            voltage,
-            supply_min: supply_min.unwrap_or(voltage),
-            supply_max: supply_max.unwrap_or(voltage),
-            source_resistance,
-            inductance,
-            resistance,
-            temperature,
-            reference_temperature,
-            temperature_coefficient,
-            saturation_current,
-            saturated_inductance,
-            on_resistance,
-            capacitance,
-            breakdown,
-            avalanche_resistance,
-            body_diode_voltage,
-            path: kind,
-            forward_voltage: fv,
-            zener_voltage: zv,
-            clamp_voltage: kv,
-            clamp_resistance: clamp_resistance.unwrap_or(0.0),
-        };
-        cx.check(
-            "clamp.resistance",
-            plant.clamp_resistance >= 0.0,
-            "must not be negative",
-        )?;
-
-        // [model]: the firmware's beliefs.
-        let mut beliefs = plant;
-        let mut overridden = Vec::new();
-        for (key, value) in raw.model.iter().flatten() {
-            let name = format!("model.{key}");
-            let knob = Knob::from_name(key).ok_or_else(|| {
-                cx.error(
-                    &name,
-                    Some(value.span()),
-                    format!(
-                        "unknown key; [model] takes {}",
-                        Knob::ALL.map(Knob::name).join(", ")
-                    ),
-                )
-            })?;
-            if !plant.applies(knob) {
-                return Err(cx.error(&name, Some(value.span()), "does not apply to this circuit"));
-            }
-            if !knob.guard_uses() {
-                return Err(cx.error(
-                    &name,
-                    Some(value.span()),
-                    "the guard has no such parameter, so a belief about it would change nothing; \
-                     remove it (the plant's value stays in its own section)",
-                ));
-            }
-            let x = cx.required(&name, &Some(value.clone()), knob.unit())?;
-            beliefs.set(knob, x);
-            overridden.push(knob);
-        }
-
-        // [control]
-        let ct = &raw.control;
-        let period = cx.required("control.period", &ct.period, Unit::Second)?;
-        cx.check(
-            "control.period",
-            period > 0.0 && period <= 1.0,
-            "must be above 0 s and at most 1 s",
-        )?;
-        let duty_resolution =
-            match cx.count("control.duty_resolution", &ct.duty_resolution, 1..65_536)? {
-                Some(n) => u32::try_from(n).unwrap_or(1000),
-                None => {
-                    assumed.push("control.duty_resolution = 1000".to_string());
-                    1000
-                }
-            };
-
-        // [guard]
-        let g = &raw.guard;
-        let ceiling = cx.required("guard.current_ceiling", &g.current_ceiling, Unit::Ampere)?;
-        let trip = cx.required("guard.trip_current", &g.trip_current, Unit::Ampere)?;
-        let release = cx.required("guard.release_current", &g.release_current, Unit::Ampere)?;
-        let current_full_scale = match cx.value(
-            "control.current_full_scale",
-            &ct.current_full_scale,
-            Unit::Ampere,
-        )? {
-            Some(a) => a,
-            None => {
-                assumed.push(format!(
-                    "control.current_full_scale = guard.trip_current ({trip} A)"
-                ));
-                trip
-            }
-        };
-        let mut limits = GuardLimits::new(ceiling as f32, trip as f32, release as f32);
-        limits.clamp_pulse_energy = cx
-            .value(
-                "guard.clamp_pulse_energy",
-                &g.clamp_pulse_energy,
-                Unit::Joule,
-            )?
-            .map(|x| x as f32);
-        let max_power = cx.value("guard.clamp_max_power", &g.clamp_max_power, Unit::Watt)?;
-        let window = cx.value(
-            "guard.clamp_power_window",
-            &g.clamp_power_window,
-            Unit::Second,
-        )?;
-        if max_power.is_some() || window.is_some() {
-            let d = coilward::ClampPower::DEFAULT;
-            limits.clamp_power = Some(coilward::ClampPower::new(
-                max_power.map_or(d.max_average, |x| x as f32),
-                window.map_or(d.window, |x| x as f32),
-            ));
-        }
-        let cooldown = cx.value("guard.retry_cooldown", &g.retry_cooldown, Unit::Second)?;
-        let retries = cx.count("guard.max_retries", &g.max_retries, 0..256)?;
-        limits.retry = match (cooldown, retries) {
-            (Some(c), r) => Some(Retry::new(
-                c as f32,
-                u8::try_from(r.unwrap_or(3)).unwrap_or(3),
-            )),
-            (None, Some(_)) => {
-                return Err(cx.error(
-                    "guard.retry_cooldown",
-                    cx.spans.get("guard.max_retries").cloned(),
-                    "missing: max_retries needs retry_cooldown",
-                ));
-            }
-            (None, None) => None,
-        };
-        let mut policy = limits.policy;
-        policy.overcurrent = cx.action("guard.overcurrent", &g.overcurrent, policy.overcurrent)?;
-        policy.clamp_pulse = cx.action("guard.clamp_pulse", &g.clamp_pulse, policy.clamp_pulse)?;
-        policy.clamp_power = cx.action("guard.clamp_power", &g.clamp_power, policy.clamp_power)?;
-        policy.clamp_overheat = cx.action(
-            "guard.clamp_overheat",
-            &g.clamp_overheat,
-            policy.clamp_overheat,
-        )?;
-        policy.coil_overheat = cx.action(
-            "guard.coil_overheat",
-            &g.coil_overheat,
-            policy.coil_overheat,
-        )?;
-        policy.supply_low = cx.action("guard.supply_low", &g.supply_low, policy.supply_low)?;
-        policy.supply_high = cx.action("guard.supply_high", &g.supply_high, policy.supply_high)?;
-        policy.held_request =
-            match cx.word("guard.held_request", &g.held_request, &["defer", "drop"])? {
-                Some("drop") => HeldRequest::Drop,
-                _ => HeldRequest::Defer,
-            };
-        limits.policy = policy;
-        limits.clamp_thermal = clamp_thermal(&mut cx, g)?;
-        limits.coil_thermal = coil_thermal(&mut cx, g)?;
-
-        // [adc]
-        let adc = match &raw.adc {
-            None => Adc {
-                bits: None,
-                full_scale: 0.0,
-                noise: 0.0,
-                offset: 0.0,
-                seed: 0,
-                stuck: None,
-            },
-            Some(a) => {
-                let bits = cx
-                    .count("adc.bits", &a.bits, 1..25)?
-                    .map(|b| u32::try_from(b).unwrap_or(12));
-                let full_scale = cx.value("adc.full_scale", &a.full_scale, Unit::Volt)?;
-                if bits.is_some() && full_scale.is_none() {
-                    return Err(cx.error(
-                        "adc.full_scale",
-                        cx.spans.get("adc.bits").cloned(),
-                        "missing: adc.bits needs the supply voltage that reads as the full count",
-                    ));
-                }
-                let noise = cx.value("adc.noise", &a.noise, Unit::Volt)?.unwrap_or(0.0);
-                cx.check("adc.noise", noise >= 0.0, "must not be negative")?;
-                let fs = full_scale.unwrap_or(0.0);
-                cx.check(
-                    "adc.full_scale",
-                    full_scale.is_none() || fs > 0.0,
-                    "must be positive",
-                )?;
-                Adc {
-                    bits,
-                    full_scale: fs,
-                    noise,
-                    offset: cx
-                        .value("adc.offset", &a.offset, Unit::Volt)?
-                        .unwrap_or(0.0),
-                    seed: cx
-                        .count("adc.seed", &a.seed, 0..i64::MAX)?
-                        .map_or(1, |s| s as u64),
-                    stuck: match cx.word("adc.stuck", &a.stuck, &["zero", "full"])? {
-                        Some("zero") => Some(0.0),
-                        Some(_) if full_scale.is_some() => Some(fs),
-                        Some(_) => {
-                            return Err(cx.error(
-                                "adc.stuck",
-                                None,
-                                "\"full\" needs adc.full_scale (the reading at the top code)",
-                            ));
-                        }
-                        None => None,
-                    },
-                }
-            }
-        };
-
-        // [ticks]
-        let ticks = match &raw.ticks {
-            None => Ticks::default(),
-            Some(k) => {
-                let missed = cx
-                    .value("ticks.missed", &k.missed, Unit::Percent)?
-                    .unwrap_or(0.0);
-                let late = cx
-                    .value("ticks.late", &k.late, Unit::Percent)?
-                    .unwrap_or(0.0);
-                cx.check(
-                    "ticks.missed",
-                    (0.0..=1.0).contains(&missed),
-                    "must be within 0 % ..= 100 %",
-                )?;
-                cx.check(
-                    "ticks.late",
-                    (0.0..=1.0).contains(&late),
-                    "must be within 0 % ..= 100 %",
-                )?;
-                cx.check(
-                    "ticks.late",
-                    missed + late <= 1.0,
-                    "missed and late together exceed 100 %",
-                )?;
-                Ticks {
-                    missed,
-                    late,
-                    seed: cx
-                        .count("ticks.seed", &k.seed, 0..i64::MAX)?
-                        .map_or(1, |s| s as u64),
-                }
-            }
-        };
-
-        // [start]
-        let start = match &raw.start {
-            None => Start {
-                current: 0.0,
-                guard_told: true,
-            },
-            Some(st) => Start {
-                current: cx
-                    .value("start.current", &st.current, Unit::Ampere)?
-                    .unwrap_or(0.0),
-                guard_told: cx.word("start.guard", &st.guard, &["told", "reset"])? != Some("reset"),
-            },
-        };
-
-        // [[drive]]
-        let mut drive = Vec::new();
-        for (n, d) in raw.drive.iter().enumerate() {
-            let key_at = format!("drive[{n}].at");
-            let key_duty = format!("drive[{n}].duty");
-            let at = cx.required(&key_at, &d.at, Unit::Second)?;
-            let duty = cx.required(&key_duty, &d.duty, Unit::Percent)?;
-            cx.check(
-                &key_duty,
-                (0.0..=1.0).contains(&duty),
-                "must be within 0 % ..= 100 %",
-            )?;
-            cx.check(&key_at, at >= 0.0, "must not be negative")?;
-            if let Some(prev) = drive.last().map(|s: &Step| s.at) {
-                cx.check(&key_at, at >= prev, "the drive steps must be in time order")?;
-            }
-            drive.push(Step { at, duty });
-        }
-        if drive.is_empty() {
-            return Err(ScenarioError { file: path.to_path_buf(), at: None, key: Some("drive".into()), message: "no [[drive]] steps: give at least one, e.g. [[drive]] at = \"0 s\" duty = \"100 %\"".into() });
-        }
+        let mut plant = plant_values(&mut cx, &raw, &mut assumed)?;
+        let (beliefs, overridden) = beliefs_of(&mut cx, &raw, &plant)?;
+        let (period, duty_resolution) = control_values(&mut cx, &raw.control, &mut assumed)?;
+        let (mut limits, current_full_scale, trip) = guard_limits(&mut cx, &raw, &mut assumed)?;
+        let adc = adc_values(&mut cx, &raw)?;
+        let ticks = ticks_values(&mut cx, &raw)?;
+        let start = start_values(&mut cx, &raw)?;
+        let drive = drive_steps(&mut cx, &raw, path)?;
         let calls = calls(&mut cx, &raw, &drive, &mut assumed)?;
-
-        // The supply's steps and ripple.
-        let ripple = cx.value("supply.ripple", &s.ripple, Unit::Volt)?;
-        let ripple_frequency =
-            cx.value("supply.ripple_frequency", &s.ripple_frequency, Unit::Hertz)?;
-        let ripple = match (ripple, ripple_frequency) {
-            (Some(a), Some(f)) => {
-                cx.check("supply.ripple", a >= 0.0, "must not be negative")?;
-                cx.check("supply.ripple_frequency", f > 0.0, "must be positive")?;
-                Some((a, f))
-            }
-            (None, None) => None,
-            (Some(_), None) => {
-                return Err(cx.error(
-                    "supply.ripple_frequency",
-                    cx.spans.get("supply.ripple").cloned(),
-                    "missing: supply.ripple needs its frequency",
-                ));
-            }
-            (None, Some(_)) => {
-                return Err(cx.error(
-                    "supply.ripple",
-                    cx.spans.get("supply.ripple_frequency").cloned(),
-                    "missing: supply.ripple_frequency needs the ripple's amplitude",
-                ));
-            }
-        };
-        let mut changes: Vec<(f64, f64)> = Vec::new();
-        for (n, c) in raw.supply_change.iter().enumerate() {
-            let key_at = format!("supply_change[{n}].at");
-            let key_v = format!("supply_change[{n}].voltage");
-            let at = cx.required(&key_at, &c.at, Unit::Second)?;
-            let v = cx.required(&key_v, &c.voltage, Unit::Volt)?;
-            cx.check(&key_at, at >= 0.0, "must not be negative")?;
-            cx.check(&key_v, v >= 0.0, "must not be negative")?;
-            if let Some(&(prev, _)) = changes.last() {
-                cx.check(
-                    &key_at,
-                    at >= prev,
-                    "the supply changes must be in time order",
-                )?;
-            }
-            changes.push((at, v));
-        }
-        let supply_profile = SupplyProfile { changes, ripple };
-
-        // [run]
-        let duration = cx.required("run.duration", &raw.run.duration, Unit::Second)?;
-        cx.check(
-            "run.duration",
-            duration > 0.0 && duration <= 3600.0,
-            "must be above 0 s and at most 1 h",
-        )?;
-        cx.check(
-            "run.duration",
-            duration / period <= 1e8,
-            "more than 10⁸ control periods",
-        )?;
-
-        // [tolerance]
-        let mut tolerance = Vec::new();
-        let mut supply_reading = 0.0;
-        for (key, value) in raw.tolerance.iter().flatten() {
-            let name = format!("tolerance.{key}");
-            if key == SUPPLY_READING {
-                supply_reading = match units::parse_spread(value.get_ref(), Unit::Volt) {
-                    Ok(Spread::Relative(f)) => f,
-                    Ok(Spread::Absolute(a)) => a / beliefs.voltage,
-                    Err(e) => return Err(cx.error(&name, Some(value.span()), e.0)),
-                };
-                cx.spans.insert(name, value.span());
-                continue;
-            }
-            let knob = Knob::from_name(key).ok_or_else(|| {
-                cx.error(
-                    &name,
-                    Some(value.span()),
-                    format!(
-                        "unknown key; [tolerance] takes {SUPPLY_READING}, {}",
-                        Knob::ALL.map(Knob::name).join(", ")
-                    ),
-                )
-            })?;
-            if !plant.applies(knob) {
-                return Err(cx.error(&name, Some(value.span()), "does not apply to this circuit"));
-            }
-            let spread = units::parse_spread(value.get_ref(), knob.unit())
-                .map_err(|e| cx.error(&name, Some(value.span()), e.0))?;
-            cx.spans.insert(name, value.span());
-            tolerance.push((knob, spread));
-        }
+        let supply_profile = supply_profile(&mut cx, &raw)?;
+        let duration = run_duration(&mut cx, &raw, period)?;
+        let (tolerance, supply_reading) = tolerance_spreads(&mut cx, &raw, &plant, &beliefs)?;
         plant.supply_min = plant.supply_min.min(plant.voltage);
         limits.tolerance = declared(&beliefs, &tolerance, supply_reading);
         let mut warnings = late_steps(drive.iter().map(|d| d.at), duration);
@@ -1844,6 +1288,702 @@ impl Scenario {
     pub fn duty_in_period(&self, k: u64) -> f64 {
         duty_in_period(&self.drive, |s| (s.at, s.duty), self.period, k)
     }
+}
+
+/// `[supply]`, `[coil]`, `[switch]` and `[clamp]`: the plant's values.
+fn plant_values(
+    cx: &mut Cx,
+    raw: &Raw,
+    assumed: &mut Vec<String>,
+) -> Result<Values, ScenarioError> {
+    let (voltage, supply_min, supply_max, source_resistance) =
+        supply_values(cx, &raw.supply, assumed)?;
+    let coil = coil_values(cx, &raw.coil)?;
+    let (on_resistance, capacitance, breakdown, body_diode_voltage, avalanche_resistance) =
+        switch_values(cx, &raw.switch, assumed)?;
+    let (kind, fv, zv, kv, clamp_resistance) = clamp_values(cx, &raw.clamp)?;
+    let CoilValues {
+        inductance,
+        resistance,
+        temperature,
+        reference_temperature,
+        temperature_coefficient,
+        saturation_current,
+        saturated_inductance,
+    } = coil;
+    let plant = Values {
+        voltage,
+        supply_min: supply_min.unwrap_or(voltage),
+        supply_max: supply_max.unwrap_or(voltage),
+        source_resistance,
+        inductance,
+        resistance,
+        temperature,
+        reference_temperature,
+        temperature_coefficient,
+        saturation_current,
+        saturated_inductance,
+        on_resistance,
+        capacitance,
+        breakdown,
+        avalanche_resistance,
+        body_diode_voltage,
+        path: kind,
+        forward_voltage: fv,
+        zener_voltage: zv,
+        clamp_voltage: kv,
+        clamp_resistance: clamp_resistance.unwrap_or(0.0),
+    };
+    cx.check(
+        "clamp.resistance",
+        plant.clamp_resistance >= 0.0,
+        "must not be negative",
+    )?;
+
+    Ok(plant)
+}
+
+/// `[supply]`: voltage, min, max (as given) and the source resistance.
+fn supply_values(
+    cx: &mut Cx,
+    s: &RawSupply,
+    assumed: &mut Vec<String>,
+) -> Result<(f64, Option<f64>, Option<f64>, f64), ScenarioError> {
+    let voltage = cx.required("supply.voltage", &s.voltage, Unit::Volt)?;
+    let supply_min = cx.value("supply.min", &s.min, Unit::Volt)?;
+    let supply_max = cx.value("supply.max", &s.max, Unit::Volt)?;
+    if supply_min.is_none() {
+        assumed.push(format!("supply.min = supply.voltage ({voltage} V)"));
+    }
+    if supply_max.is_none() {
+        assumed.push(format!("supply.max = supply.voltage ({voltage} V)"));
+    }
+    let source_resistance = cx
+        .value("supply.source_resistance", &s.source_resistance, Unit::Ohm)?
+        .unwrap_or(0.0);
+    cx.check(
+        "supply.source_resistance",
+        source_resistance >= 0.0,
+        "must not be negative",
+    )?;
+
+    Ok((voltage, supply_min, supply_max, source_resistance))
+}
+
+/// `[coil]`'s values.
+struct CoilValues {
+    inductance: f64,
+    resistance: f64,
+    temperature: f64,
+    reference_temperature: f64,
+    temperature_coefficient: f64,
+    saturation_current: Option<f64>,
+    saturated_inductance: Option<f64>,
+}
+
+/// `[coil]`.
+fn coil_values(cx: &mut Cx, c: &RawCoil) -> Result<CoilValues, ScenarioError> {
+    let inductance = cx.required("coil.inductance", &c.inductance, Unit::Henry)?;
+    let resistance = cx.required("coil.resistance", &c.resistance, Unit::Ohm)?;
+    let reference_temperature = cx
+        .value(
+            "coil.reference_temperature",
+            &c.reference_temperature,
+            Unit::Celsius,
+        )?
+        .unwrap_or(20.0);
+    let temperature = cx
+        .value("coil.temperature", &c.temperature, Unit::Celsius)?
+        .unwrap_or(reference_temperature);
+    let temperature_coefficient = cx
+        .value(
+            "coil.temperature_coefficient",
+            &c.temperature_coefficient,
+            Unit::PerKelvin,
+        )?
+        .unwrap_or(f64::from(coilward::COPPER_TEMPERATURE_COEFFICIENT));
+    let saturation_current = cx.value(
+        "coil.saturation_current",
+        &c.saturation_current,
+        Unit::Ampere,
+    )?;
+    let saturated_inductance = cx.value(
+        "coil.saturated_inductance",
+        &c.saturated_inductance,
+        Unit::Henry,
+    )?;
+    match (saturation_current, saturated_inductance) {
+        (Some(_), None) => {
+            return Err(cx.error(
+                "coil.saturated_inductance",
+                cx.spans.get("coil.saturation_current").cloned(),
+                "missing: saturation_current needs saturated_inductance",
+            ));
+        }
+        (None, Some(_)) => {
+            return Err(cx.error(
+                "coil.saturation_current",
+                cx.spans.get("coil.saturated_inductance").cloned(),
+                "missing: saturated_inductance needs saturation_current",
+            ));
+        }
+        (Some(i), Some(l)) => {
+            cx.check("coil.saturation_current", i > 0.0, "must be positive")?;
+            cx.check(
+                "coil.saturated_inductance",
+                l > 0.0 && l <= inductance,
+                "must be positive and at most coil.inductance",
+            )?;
+        }
+        (None, None) => {}
+    }
+
+    Ok(CoilValues {
+        inductance,
+        resistance,
+        temperature,
+        reference_temperature,
+        temperature_coefficient,
+        saturation_current,
+        saturated_inductance,
+    })
+}
+
+/// `[switch]`: on-resistance, capacitance, breakdown, body diode, avalanche resistance.
+fn switch_values(
+    cx: &mut Cx,
+    w: &RawSwitch,
+    assumed: &mut Vec<String>,
+) -> Result<(f64, f64, f64, f64, f64), ScenarioError> {
+    let on_resistance = cx.required("switch.on_resistance", &w.on_resistance, Unit::Ohm)?;
+    let capacitance = match cx.value("switch.capacitance", &w.capacitance, Unit::Farad)? {
+        Some(c) => c,
+        None => {
+            assumed.push("switch.capacitance = 100 pF".to_string());
+            100e-12
+        }
+    };
+    cx.check(
+        "switch.capacitance",
+        capacitance > 0.0 && capacitance <= 1e-3,
+        "must be above 0 and at most 1 mF",
+    )?;
+    let breakdown = cx.required("switch.breakdown", &w.breakdown, Unit::Volt)?;
+    let body_diode_voltage = match cx.value(
+        "switch.body_diode_voltage",
+        &w.body_diode_voltage,
+        Unit::Volt,
+    )? {
+        Some(v) => v,
+        None => {
+            assumed.push("switch.body_diode_voltage = 0.8 V".to_string());
+            0.8
+        }
+    };
+    cx.check(
+        "switch.body_diode_voltage",
+        body_diode_voltage >= 0.0,
+        "must not be negative",
+    )?;
+    let avalanche_resistance = cx
+        .value(
+            "switch.avalanche_resistance",
+            &w.avalanche_resistance,
+            Unit::Ohm,
+        )?
+        .unwrap_or(0.0);
+    cx.check(
+        "switch.avalanche_resistance",
+        avalanche_resistance >= 0.0,
+        "must not be negative",
+    )?;
+
+    Ok((
+        on_resistance,
+        capacitance,
+        breakdown,
+        body_diode_voltage,
+        avalanche_resistance,
+    ))
+}
+
+/// `[clamp]`: the path and its forward, zener and clamp voltages (0 where they do not apply),
+/// and its resistance as given.
+fn clamp_values(
+    cx: &mut Cx,
+    k: &RawClamp,
+) -> Result<(PathName, f64, f64, f64, Option<f64>), ScenarioError> {
+    let kind = match cx.word(
+        "clamp.path",
+        &k.path,
+        &["none", "freewheel", "freewheel-zener", "switch-clamp"],
+    )? {
+        Some("none") => PathName::None,
+        Some("freewheel") => PathName::Freewheel,
+        Some("freewheel-zener") => PathName::FreewheelZener,
+        Some(_) => PathName::SwitchClamp,
+        None => {
+            return Err(cx.error(
+                "clamp.path",
+                None,
+                "missing; one of none, freewheel, freewheel-zener, switch-clamp",
+            ));
+        }
+    };
+    let forward_voltage = cx.value("clamp.forward_voltage", &k.forward_voltage, Unit::Volt)?;
+    let zener_voltage = cx.value("clamp.zener_voltage", &k.zener_voltage, Unit::Volt)?;
+    let clamp_voltage = cx.value("clamp.clamp_voltage", &k.clamp_voltage, Unit::Volt)?;
+    let clamp_resistance = cx.value("clamp.resistance", &k.resistance, Unit::Ohm)?;
+    let needs = |key: &str, v: Option<f64>, cx: &Cx| -> Result<f64, ScenarioError> {
+        v.ok_or_else(|| {
+            cx.error(
+                key,
+                cx.spans.get("clamp.path").cloned(),
+                format!("missing: path \"{}\" needs it", kind.name()),
+            )
+        })
+    };
+    let refuse = |key: &str, v: Option<f64>, cx: &Cx| -> Result<(), ScenarioError> {
+        if v.is_some() {
+            Err(cx.error(
+                key,
+                None,
+                format!("does not apply to path \"{}\"", kind.name()),
+            ))
+        } else {
+            Ok(())
+        }
+    };
+    let (fv, zv, kv) = match kind {
+        PathName::None => {
+            refuse("clamp.forward_voltage", forward_voltage, cx)?;
+            refuse("clamp.zener_voltage", zener_voltage, cx)?;
+            refuse("clamp.clamp_voltage", clamp_voltage, cx)?;
+            refuse("clamp.resistance", clamp_resistance, cx)?;
+            (0.0, 0.0, 0.0)
+        }
+        PathName::Freewheel => {
+            refuse("clamp.zener_voltage", zener_voltage, cx)?;
+            refuse("clamp.clamp_voltage", clamp_voltage, cx)?;
+            (
+                needs("clamp.forward_voltage", forward_voltage, cx)?,
+                0.0,
+                0.0,
+            )
+        }
+        PathName::FreewheelZener => {
+            refuse("clamp.clamp_voltage", clamp_voltage, cx)?;
+            (
+                needs("clamp.forward_voltage", forward_voltage, cx)?,
+                needs("clamp.zener_voltage", zener_voltage, cx)?,
+                0.0,
+            )
+        }
+        PathName::SwitchClamp => {
+            refuse("clamp.forward_voltage", forward_voltage, cx)?;
+            refuse("clamp.zener_voltage", zener_voltage, cx)?;
+            (0.0, 0.0, needs("clamp.clamp_voltage", clamp_voltage, cx)?)
+        }
+    };
+
+    Ok((kind, fv, zv, kv, clamp_resistance))
+}
+
+/// `[model]`: the firmware's beliefs (the plant's values unless overridden), and the keys
+/// overridden.
+fn beliefs_of(
+    cx: &mut Cx,
+    raw: &Raw,
+    plant: &Values,
+) -> Result<(Values, Vec<Knob>), ScenarioError> {
+    let mut beliefs = *plant;
+    let mut overridden = Vec::new();
+    for (key, value) in raw.model.iter().flatten() {
+        let name = format!("model.{key}");
+        let knob = Knob::from_name(key).ok_or_else(|| {
+            cx.error(
+                &name,
+                Some(value.span()),
+                format!(
+                    "unknown key; [model] takes {}",
+                    Knob::ALL.map(Knob::name).join(", ")
+                ),
+            )
+        })?;
+        if !plant.applies(knob) {
+            return Err(cx.error(&name, Some(value.span()), "does not apply to this circuit"));
+        }
+        if !knob.guard_uses() {
+            return Err(cx.error(
+                &name,
+                Some(value.span()),
+                "the guard has no such parameter, so a belief about it would change nothing; \
+                 remove it (the plant's value stays in its own section)",
+            ));
+        }
+        let x = cx.required(&name, &Some(value.clone()), knob.unit())?;
+        beliefs.set(knob, x);
+        overridden.push(knob);
+    }
+
+    Ok((beliefs, overridden))
+}
+
+/// `[control]`: the period and the duty resolution.
+fn control_values(
+    cx: &mut Cx,
+    ct: &RawControl,
+    assumed: &mut Vec<String>,
+) -> Result<(f64, u32), ScenarioError> {
+    let period = cx.required("control.period", &ct.period, Unit::Second)?;
+    cx.check(
+        "control.period",
+        period > 0.0 && period <= 1.0,
+        "must be above 0 s and at most 1 s",
+    )?;
+    let duty_resolution =
+        match cx.count("control.duty_resolution", &ct.duty_resolution, 1..65_536)? {
+            Some(n) => u32::try_from(n).unwrap_or(1000),
+            None => {
+                assumed.push("control.duty_resolution = 1000".to_string());
+                1000
+            }
+        };
+
+    Ok((period, duty_resolution))
+}
+
+/// `[guard]` (and `control.current_full_scale`, which defaults to its trip current): the
+/// limits, the full scale and the trip current.
+fn guard_limits(
+    cx: &mut Cx,
+    raw: &Raw,
+    assumed: &mut Vec<String>,
+) -> Result<(GuardLimits, f64, f64), ScenarioError> {
+    let ct = &raw.control;
+    let g = &raw.guard;
+    let ceiling = cx.required("guard.current_ceiling", &g.current_ceiling, Unit::Ampere)?;
+    let trip = cx.required("guard.trip_current", &g.trip_current, Unit::Ampere)?;
+    let release = cx.required("guard.release_current", &g.release_current, Unit::Ampere)?;
+    let current_full_scale = match cx.value(
+        "control.current_full_scale",
+        &ct.current_full_scale,
+        Unit::Ampere,
+    )? {
+        Some(a) => a,
+        None => {
+            assumed.push(format!(
+                "control.current_full_scale = guard.trip_current ({trip} A)"
+            ));
+            trip
+        }
+    };
+    let mut limits = GuardLimits::new(ceiling as f32, trip as f32, release as f32);
+    limits.clamp_pulse_energy = cx
+        .value(
+            "guard.clamp_pulse_energy",
+            &g.clamp_pulse_energy,
+            Unit::Joule,
+        )?
+        .map(|x| x as f32);
+    let max_power = cx.value("guard.clamp_max_power", &g.clamp_max_power, Unit::Watt)?;
+    let window = cx.value(
+        "guard.clamp_power_window",
+        &g.clamp_power_window,
+        Unit::Second,
+    )?;
+    if max_power.is_some() || window.is_some() {
+        let d = coilward::ClampPower::DEFAULT;
+        limits.clamp_power = Some(coilward::ClampPower::new(
+            max_power.map_or(d.max_average, |x| x as f32),
+            window.map_or(d.window, |x| x as f32),
+        ));
+    }
+    let cooldown = cx.value("guard.retry_cooldown", &g.retry_cooldown, Unit::Second)?;
+    let retries = cx.count("guard.max_retries", &g.max_retries, 0..256)?;
+    limits.retry = match (cooldown, retries) {
+        (Some(c), r) => Some(Retry::new(
+            c as f32,
+            u8::try_from(r.unwrap_or(3)).unwrap_or(3),
+        )),
+        (None, Some(_)) => {
+            return Err(cx.error(
+                "guard.retry_cooldown",
+                cx.spans.get("guard.max_retries").cloned(),
+                "missing: max_retries needs retry_cooldown",
+            ));
+        }
+        (None, None) => None,
+    };
+    let mut policy = limits.policy;
+    policy.overcurrent = cx.action("guard.overcurrent", &g.overcurrent, policy.overcurrent)?;
+    policy.clamp_pulse = cx.action("guard.clamp_pulse", &g.clamp_pulse, policy.clamp_pulse)?;
+    policy.clamp_power = cx.action("guard.clamp_power", &g.clamp_power, policy.clamp_power)?;
+    policy.clamp_overheat = cx.action(
+        "guard.clamp_overheat",
+        &g.clamp_overheat,
+        policy.clamp_overheat,
+    )?;
+    policy.coil_overheat = cx.action(
+        "guard.coil_overheat",
+        &g.coil_overheat,
+        policy.coil_overheat,
+    )?;
+    policy.supply_low = cx.action("guard.supply_low", &g.supply_low, policy.supply_low)?;
+    policy.supply_high = cx.action("guard.supply_high", &g.supply_high, policy.supply_high)?;
+    policy.held_request =
+        match cx.word("guard.held_request", &g.held_request, &["defer", "drop"])? {
+            Some("drop") => HeldRequest::Drop,
+            _ => HeldRequest::Defer,
+        };
+    limits.policy = policy;
+    limits.clamp_thermal = clamp_thermal(cx, g)?;
+    limits.coil_thermal = coil_thermal(cx, g)?;
+
+    Ok((limits, current_full_scale, trip))
+}
+
+/// `[adc]`: the supply reading's converter (a perfect one without the section).
+fn adc_values(cx: &mut Cx, raw: &Raw) -> Result<Adc, ScenarioError> {
+    Ok(match &raw.adc {
+        None => Adc {
+            bits: None,
+            full_scale: 0.0,
+            noise: 0.0,
+            offset: 0.0,
+            seed: 0,
+            stuck: None,
+        },
+        Some(a) => {
+            let bits = cx
+                .count("adc.bits", &a.bits, 1..25)?
+                .map(|b| u32::try_from(b).unwrap_or(12));
+            let full_scale = cx.value("adc.full_scale", &a.full_scale, Unit::Volt)?;
+            if bits.is_some() && full_scale.is_none() {
+                return Err(cx.error(
+                    "adc.full_scale",
+                    cx.spans.get("adc.bits").cloned(),
+                    "missing: adc.bits needs the supply voltage that reads as the full count",
+                ));
+            }
+            let noise = cx.value("adc.noise", &a.noise, Unit::Volt)?.unwrap_or(0.0);
+            cx.check("adc.noise", noise >= 0.0, "must not be negative")?;
+            let fs = full_scale.unwrap_or(0.0);
+            cx.check(
+                "adc.full_scale",
+                full_scale.is_none() || fs > 0.0,
+                "must be positive",
+            )?;
+            Adc {
+                bits,
+                full_scale: fs,
+                noise,
+                offset: cx
+                    .value("adc.offset", &a.offset, Unit::Volt)?
+                    .unwrap_or(0.0),
+                seed: cx
+                    .count("adc.seed", &a.seed, 0..i64::MAX)?
+                    .map_or(1, |s| s as u64),
+                stuck: match cx.word("adc.stuck", &a.stuck, &["zero", "full"])? {
+                    Some("zero") => Some(0.0),
+                    Some(_) if full_scale.is_some() => Some(fs),
+                    Some(_) => {
+                        return Err(cx.error(
+                            "adc.stuck",
+                            None,
+                            "\"full\" needs adc.full_scale (the reading at the top code)",
+                        ));
+                    }
+                    None => None,
+                },
+            }
+        }
+    })
+}
+
+/// `[ticks]`: missed and late control periods.
+fn ticks_values(cx: &mut Cx, raw: &Raw) -> Result<Ticks, ScenarioError> {
+    Ok(match &raw.ticks {
+        None => Ticks::default(),
+        Some(k) => {
+            let missed = cx
+                .value("ticks.missed", &k.missed, Unit::Percent)?
+                .unwrap_or(0.0);
+            let late = cx
+                .value("ticks.late", &k.late, Unit::Percent)?
+                .unwrap_or(0.0);
+            cx.check(
+                "ticks.missed",
+                (0.0..=1.0).contains(&missed),
+                "must be within 0 % ..= 100 %",
+            )?;
+            cx.check(
+                "ticks.late",
+                (0.0..=1.0).contains(&late),
+                "must be within 0 % ..= 100 %",
+            )?;
+            cx.check(
+                "ticks.late",
+                missed + late <= 1.0,
+                "missed and late together exceed 100 %",
+            )?;
+            Ticks {
+                missed,
+                late,
+                seed: cx
+                    .count("ticks.seed", &k.seed, 0..i64::MAX)?
+                    .map_or(1, |s| s as u64),
+            }
+        }
+    })
+}
+
+/// `[start]`: the current at the start and whether the guard is told it.
+fn start_values(cx: &mut Cx, raw: &Raw) -> Result<Start, ScenarioError> {
+    Ok(match &raw.start {
+        None => Start {
+            current: 0.0,
+            guard_told: true,
+        },
+        Some(st) => Start {
+            current: cx
+                .value("start.current", &st.current, Unit::Ampere)?
+                .unwrap_or(0.0),
+            guard_told: cx.word("start.guard", &st.guard, &["told", "reset"])? != Some("reset"),
+        },
+    })
+}
+
+/// `[[drive]]`: the steps, in time order, at least one.
+fn drive_steps(cx: &mut Cx, raw: &Raw, path: &Path) -> Result<Vec<Step>, ScenarioError> {
+    let mut drive = Vec::new();
+    for (n, d) in raw.drive.iter().enumerate() {
+        let key_at = format!("drive[{n}].at");
+        let key_duty = format!("drive[{n}].duty");
+        let at = cx.required(&key_at, &d.at, Unit::Second)?;
+        let duty = cx.required(&key_duty, &d.duty, Unit::Percent)?;
+        cx.check(
+            &key_duty,
+            (0.0..=1.0).contains(&duty),
+            "must be within 0 % ..= 100 %",
+        )?;
+        cx.check(&key_at, at >= 0.0, "must not be negative")?;
+        if let Some(prev) = drive.last().map(|s: &Step| s.at) {
+            cx.check(&key_at, at >= prev, "the drive steps must be in time order")?;
+        }
+        drive.push(Step { at, duty });
+    }
+    if drive.is_empty() {
+        return Err(ScenarioError { file: path.to_path_buf(), at: None, key: Some("drive".into()), message: "no [[drive]] steps: give at least one, e.g. [[drive]] at = \"0 s\" duty = \"100 %\"".into() });
+    }
+
+    Ok(drive)
+}
+
+/// The supply's steps (`[[supply_change]]`) and ripple (`supply.ripple`, its frequency).
+fn supply_profile(cx: &mut Cx, raw: &Raw) -> Result<SupplyProfile, ScenarioError> {
+    let s = &raw.supply;
+    let ripple = cx.value("supply.ripple", &s.ripple, Unit::Volt)?;
+    let ripple_frequency = cx.value("supply.ripple_frequency", &s.ripple_frequency, Unit::Hertz)?;
+    let ripple = match (ripple, ripple_frequency) {
+        (Some(a), Some(f)) => {
+            cx.check("supply.ripple", a >= 0.0, "must not be negative")?;
+            cx.check("supply.ripple_frequency", f > 0.0, "must be positive")?;
+            Some((a, f))
+        }
+        (None, None) => None,
+        (Some(_), None) => {
+            return Err(cx.error(
+                "supply.ripple_frequency",
+                cx.spans.get("supply.ripple").cloned(),
+                "missing: supply.ripple needs its frequency",
+            ));
+        }
+        (None, Some(_)) => {
+            return Err(cx.error(
+                "supply.ripple",
+                cx.spans.get("supply.ripple_frequency").cloned(),
+                "missing: supply.ripple_frequency needs the ripple's amplitude",
+            ));
+        }
+    };
+    let mut changes: Vec<(f64, f64)> = Vec::new();
+    for (n, c) in raw.supply_change.iter().enumerate() {
+        let key_at = format!("supply_change[{n}].at");
+        let key_v = format!("supply_change[{n}].voltage");
+        let at = cx.required(&key_at, &c.at, Unit::Second)?;
+        let v = cx.required(&key_v, &c.voltage, Unit::Volt)?;
+        cx.check(&key_at, at >= 0.0, "must not be negative")?;
+        cx.check(&key_v, v >= 0.0, "must not be negative")?;
+        if let Some(&(prev, _)) = changes.last() {
+            cx.check(
+                &key_at,
+                at >= prev,
+                "the supply changes must be in time order",
+            )?;
+        }
+        changes.push((at, v));
+    }
+
+    Ok(SupplyProfile { changes, ripple })
+}
+
+/// `[run]`: the duration (at most 1 h and 10⁸ control periods).
+fn run_duration(cx: &mut Cx, raw: &Raw, period: f64) -> Result<f64, ScenarioError> {
+    let duration = cx.required("run.duration", &raw.run.duration, Unit::Second)?;
+    cx.check(
+        "run.duration",
+        duration > 0.0 && duration <= 3600.0,
+        "must be above 0 s and at most 1 h",
+    )?;
+    cx.check(
+        "run.duration",
+        duration / period <= 1e8,
+        "more than 10⁸ control periods",
+    )?;
+
+    Ok(duration)
+}
+
+/// `[tolerance]`: the spreads (the plant's keys) and the supply reading's, as a fraction.
+fn tolerance_spreads(
+    cx: &mut Cx,
+    raw: &Raw,
+    plant: &Values,
+    beliefs: &Values,
+) -> Result<(Vec<(Knob, Spread)>, f64), ScenarioError> {
+    let mut tolerance = Vec::new();
+    let mut supply_reading = 0.0;
+    for (key, value) in raw.tolerance.iter().flatten() {
+        let name = format!("tolerance.{key}");
+        if key == SUPPLY_READING {
+            supply_reading = match units::parse_spread(value.get_ref(), Unit::Volt) {
+                Ok(Spread::Relative(f)) => f,
+                Ok(Spread::Absolute(a)) => a / beliefs.voltage,
+                Err(e) => return Err(cx.error(&name, Some(value.span()), e.0)),
+            };
+            cx.spans.insert(name, value.span());
+            continue;
+        }
+        let knob = Knob::from_name(key).ok_or_else(|| {
+            cx.error(
+                &name,
+                Some(value.span()),
+                format!(
+                    "unknown key; [tolerance] takes {SUPPLY_READING}, {}",
+                    Knob::ALL.map(Knob::name).join(", ")
+                ),
+            )
+        })?;
+        if !plant.applies(knob) {
+            return Err(cx.error(&name, Some(value.span()), "does not apply to this circuit"));
+        }
+        let spread = units::parse_spread(value.get_ref(), knob.unit())
+            .map_err(|e| cx.error(&name, Some(value.span()), e.0))?;
+        cx.spans.insert(name, value.span());
+        tolerance.push((knob, spread));
+    }
+    Ok((tolerance, supply_reading))
 }
 
 /// `[control] calls` and `poll`: an on-events run switches the load fully on or off and has no
