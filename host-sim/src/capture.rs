@@ -117,12 +117,82 @@ impl Capture {
 
     /// Reads capture text (`path` names it in messages).
     pub fn parse(path: &Path, text: &str, opts: &ReadOptions) -> Result<Self, CaptureError> {
-        let err = |line: Option<usize>, message: String| CaptureError {
+        let err = |(line, message): (Option<usize>, String)| CaptureError {
             file: path.to_path_buf(),
             line,
             message,
         };
         let lines: Vec<&str> = text.lines().collect();
+        let layout =
+            Layout::of(&lines).ok_or_else(|| err((None, "no rows of numbers found".into())))?;
+        let tc = layout
+            .column(
+                &opts.time_column,
+                &|n| {
+                    n == "t" || n.starts_with("time") || n == "x" || n == "second" || n == "seconds"
+                },
+                "time",
+            )
+            .map_err(err)?;
+        let ic = layout
+            .column(
+                &opts.current_column,
+                &|n| n == "i" || n.contains("current") || n.starts_with("i_") || n == "amps",
+                "current",
+            )
+            .map_err(err)?;
+        if tc == ic {
+            return Err(err((
+                None,
+                "the time and current columns are the same".into(),
+            )));
+        }
+        let tu = layout.unit(tc, &opts.time_unit, "time").map_err(err)?;
+        let iu = layout
+            .unit(ic, &opts.current_unit, "current")
+            .map_err(err)?;
+        let t_scale =
+            scale(&tu, Unit::Second).map_err(|m| err((None, format!("time unit: {m}"))))?;
+        let i_scale = current_scale(&iu, opts.shunt).map_err(|m| err((None, m)))?;
+        let (t, i, skipped) = layout
+            .rows(&lines, (tc, ic), (t_scale, i_scale), &tu)
+            .map_err(err)?;
+        if t.len() < 20 {
+            return Err(err((
+                None,
+                format!("only {} samples: a fit needs at least 20", t.len()),
+            )));
+        }
+        Ok(Self {
+            file: path.to_path_buf(),
+            t,
+            i,
+            time_header: layout.headers[tc].clone(),
+            current_header: layout.headers[ic].clone(),
+            skipped,
+        })
+    }
+}
+
+/// A problem with a capture: the line (1-based) it is on, if one, and what it is.
+type Problem = (Option<usize>, String);
+
+/// How a capture's text is laid out: its delimiter, whether numbers use a decimal comma, where
+/// the header and the first data row are, and the column names.
+struct Layout {
+    delim: char,
+    decimal_comma: bool,
+    first_data: usize,
+    /// The header's line index (0-based), if the file has one.
+    header_line: Option<usize>,
+    headers: Vec<String>,
+}
+
+impl Layout {
+    /// The layout of `lines` (`None`: no rows of numbers). The delimiter is the one most of
+    /// the first 40 non-empty lines carry (`;`, tab, else `,`; a decimal comma with the first
+    /// two); the header is the last non-numeric line before the first run of numeric rows.
+    fn of(lines: &[&str]) -> Option<Self> {
         let sample: Vec<&str> = lines
             .iter()
             .copied()
@@ -137,142 +207,144 @@ impl Capture {
         } else {
             ','
         };
-        let decimal_comma = delim != ',';
-        let split =
-            |l: &str| -> Vec<String> { l.split(delim).map(|f| f.trim().to_string()).collect() };
-        let numeric = |l: &str| {
-            let f = split(l);
-            f.len() >= 2 && f.iter().all(|x| number(x, decimal_comma).is_some())
+        let mut layout = Layout {
+            delim,
+            decimal_comma: delim != ',',
+            first_data: 0,
+            header_line: None,
+            headers: Vec::new(),
         };
-        // The header: the last non-numeric line before the first run of numeric rows.
-        let first_data = lines
-            .iter()
-            .enumerate()
-            .position(|(n, l)| {
-                numeric(l)
-                    && lines
-                        .get(n + 1)
-                        .is_none_or(|m| numeric(m) || m.trim().is_empty())
-            })
-            .ok_or_else(|| err(None, "no rows of numbers found".into()))?;
+        let numeric = |l: &str| {
+            let f = layout.split(l);
+            f.len() >= 2 && f.iter().all(|x| number(x, layout.decimal_comma).is_some())
+        };
+        let first_data = lines.iter().enumerate().position(|(n, l)| {
+            numeric(l)
+                && lines
+                    .get(n + 1)
+                    .is_none_or(|m| numeric(m) || m.trim().is_empty())
+        })?;
         let header_line = lines[..first_data]
             .iter()
             .rposition(|l| !l.trim().is_empty());
-        let headers: Vec<String> = match header_line {
-            Some(h) => split(lines[h]),
-            None => (1..=split(lines[first_data]).len())
+        layout.headers = match header_line {
+            Some(h) => layout.split(lines[h]),
+            None => (1..=layout.split(lines[first_data]).len())
                 .map(|k| format!("column {k}"))
                 .collect(),
         };
-        let pick = |want: &Option<String>,
-                    guess: &dyn Fn(&str) -> bool,
-                    what: &str|
-         -> Result<usize, CaptureError> {
-            if let Some(w) = want {
-                if let Ok(k) = w.trim().parse::<usize>() {
-                    return if k >= 1 && k <= headers.len() {
-                        Ok(k - 1)
-                    } else {
-                        Err(err(
-                            None,
-                            format!(
-                                "column {k} does not exist: the file has {} columns",
-                                headers.len()
-                            ),
-                        ))
-                    };
-                }
-                let wl = w.trim().to_lowercase();
-                return headers
-                    .iter()
-                    .position(|h| {
-                        h.trim().trim_matches('"').to_lowercase() == wl || header_name(h) == wl
-                    })
-                    .ok_or_else(|| {
-                        err(
-                            header_line.map(|h| h + 1),
-                            format!(
-                                "no column named `{w}`; the columns are: {}",
-                                headers.join(" | ")
-                            ),
-                        )
-                    });
-            }
-            let found: Vec<usize> = headers
-                .iter()
-                .enumerate()
-                .filter(|(_, h)| guess(&header_name(h)))
-                .map(|(k, _)| k)
-                .collect();
-            match found.as_slice() {
-                [k] => Ok(*k),
-                _ => Err(err(
-                    header_line.map(|h| h + 1),
-                    format!(
-                        "cannot tell which column is the {what}; name it with --column t=NAME,i=NAME (the columns are: {})",
-                        headers.join(" | ")
-                    ),
-                )),
-            }
-        };
-        let tc = pick(
-            &opts.time_column,
-            &|n| n == "t" || n.starts_with("time") || n == "x" || n == "second" || n == "seconds",
-            "time",
-        )?;
-        let ic = pick(
-            &opts.current_column,
-            &|n| n == "i" || n.contains("current") || n.starts_with("i_") || n == "amps",
-            "current",
-        )?;
-        if tc == ic {
-            return Err(err(
-                None,
-                "the time and current columns are the same".into(),
-            ));
-        }
-        let unit_of = |col: usize,
-                       given: &Option<String>,
-                       what: &str|
-         -> Result<String, CaptureError> {
-            given
-                .clone()
-                .or_else(|| header_unit(&headers[col]).map(str::to_string))
-                .ok_or_else(|| err(header_line.map(|h| h + 1), format!("the {what} column `{}` has no unit: write it in the header, e.g. `{what} (ms)`, or give --units t=ms,i=mA", headers[col])))
-        };
-        let tu = unit_of(tc, &opts.time_unit, "time")?;
-        let iu = unit_of(ic, &opts.current_unit, "current")?;
-        let t_scale = scale(&tu, Unit::Second).map_err(|m| err(None, format!("time unit: {m}")))?;
-        let i_scale = match scale(&iu, Unit::Ampere) {
-            Ok(s) => s,
-            Err(_) => match (scale(&iu, Unit::Volt), opts.shunt) {
-                (Ok(v), Some(r)) if r > 0.0 => v / r,
-                (Ok(_), _) => {
-                    return Err(err(
+        layout.first_data = first_data;
+        layout.header_line = header_line;
+        Some(layout)
+    }
+
+    /// A line's fields, trimmed.
+    fn split(&self, l: &str) -> Vec<String> {
+        l.split(self.delim).map(|f| f.trim().to_string()).collect()
+    }
+
+    /// The header's line number (1-based), for messages.
+    fn header_number(&self) -> Option<usize> {
+        self.header_line.map(|h| h + 1)
+    }
+
+    /// The column `want` names (a 1-based number or a header), else the one header `guess`
+    /// accepts.
+    fn column(
+        &self,
+        want: &Option<String>,
+        guess: &dyn Fn(&str) -> bool,
+        what: &str,
+    ) -> Result<usize, Problem> {
+        let headers = &self.headers;
+        if let Some(w) = want {
+            if let Ok(k) = w.trim().parse::<usize>() {
+                return if k >= 1 && k <= headers.len() {
+                    Ok(k - 1)
+                } else {
+                    Err((
                         None,
                         format!(
-                            "the current column is in {iu}: give the shunt it was measured across, e.g. --shunt \"0.1 Ω\""
+                            "column {k} does not exist: the file has {} columns",
+                            headers.len()
                         ),
-                    ));
-                }
-                (Err(m), _) => return Err(err(None, format!("current unit: {m}"))),
-            },
-        };
+                    ))
+                };
+            }
+            let wl = w.trim().to_lowercase();
+            return headers
+                .iter()
+                .position(|h| {
+                    h.trim().trim_matches('"').to_lowercase() == wl || header_name(h) == wl
+                })
+                .ok_or_else(|| {
+                    (
+                        self.header_number(),
+                        format!(
+                            "no column named `{w}`; the columns are: {}",
+                            headers.join(" | ")
+                        ),
+                    )
+                });
+        }
+        let found: Vec<usize> = headers
+            .iter()
+            .enumerate()
+            .filter(|(_, h)| guess(&header_name(h)))
+            .map(|(k, _)| k)
+            .collect();
+        match found.as_slice() {
+            [k] => Ok(*k),
+            _ => Err((
+                self.header_number(),
+                format!(
+                    "cannot tell which column is the {what}; name it with --column t=NAME,i=NAME (the columns are: {})",
+                    headers.join(" | ")
+                ),
+            )),
+        }
+    }
+
+    /// The unit of column `col`: as given, else from its header.
+    fn unit(&self, col: usize, given: &Option<String>, what: &str) -> Result<String, Problem> {
+        given
+            .clone()
+            .or_else(|| header_unit(&self.headers[col]).map(str::to_string))
+            .ok_or_else(|| {
+                (
+                    self.header_number(),
+                    format!(
+                        "the {what} column `{}` has no unit: write it in the header, e.g. `{what} (ms)`, or give --units t=ms,i=mA",
+                        self.headers[col]
+                    ),
+                )
+            })
+    }
+
+    /// The samples (SI) from the first data row on, and how many rows were skipped (not two
+    /// numbers); time must increase.
+    fn rows(
+        &self,
+        lines: &[&str],
+        (tc, ic): (usize, usize),
+        (t_scale, i_scale): (f64, f64),
+        tu: &str,
+    ) -> Result<(Vec<f64>, Vec<f64>, usize), Problem> {
         let (mut t, mut i, mut skipped) = (Vec::new(), Vec::new(), 0);
-        for (n, l) in lines.iter().enumerate().skip(first_data) {
+        for (n, l) in lines.iter().enumerate().skip(self.first_data) {
             if l.trim().is_empty() {
                 continue;
             }
-            let f = split(l);
+            let f = self.split(l);
             match (
-                f.get(tc).and_then(|x| number(x, decimal_comma)),
-                f.get(ic).and_then(|x| number(x, decimal_comma)),
+                f.get(tc).and_then(|x| number(x, self.decimal_comma)),
+                f.get(ic).and_then(|x| number(x, self.decimal_comma)),
             ) {
                 (Some(a), Some(b)) => {
                     if let Some(&last) = t.last()
                         && a * t_scale <= last
                     {
-                        return Err(err(
+                        return Err((
                             Some(n + 1),
                             format!("time goes backwards or repeats ({a} {tu})"),
                         ));
@@ -283,20 +355,22 @@ impl Capture {
                 _ => skipped += 1,
             }
         }
-        if t.len() < 20 {
-            return Err(err(
-                None,
-                format!("only {} samples: a fit needs at least 20", t.len()),
-            ));
-        }
-        Ok(Self {
-            file: path.to_path_buf(),
-            t,
-            i,
-            time_header: headers[tc].clone(),
-            current_header: headers[ic].clone(),
-            skipped,
-        })
+        Ok((t, i, skipped))
+    }
+}
+
+/// The scale of the current column's unit to amperes: a current unit, or a voltage across
+/// `shunt`.
+fn current_scale(iu: &str, shunt: Option<f64>) -> Result<f64, String> {
+    match scale(iu, Unit::Ampere) {
+        Ok(s) => Ok(s),
+        Err(_) => match (scale(iu, Unit::Volt), shunt) {
+            (Ok(v), Some(r)) if r > 0.0 => Ok(v / r),
+            (Ok(_), _) => Err(format!(
+                "the current column is in {iu}: give the shunt it was measured across, e.g. --shunt \"0.1 Ω\""
+            )),
+            (Err(m), _) => Err(format!("current unit: {m}")),
+        },
     }
 }
 

@@ -334,109 +334,21 @@ impl BridgeScenario {
         cx.word("topology", &topology, &["full-bridge"])?;
         let mut assumed = Vec::new();
 
-        let s = &raw.supply;
-        let voltage = cx.required("supply.voltage", &s.voltage, Unit::Volt)?;
-        let min = cx
-            .value("supply.min", &s.min, Unit::Volt)?
-            .unwrap_or_else(|| {
-                assumed.push(format!("supply.min = supply.voltage ({voltage} V)"));
-                voltage
-            });
-        let max = cx
-            .value("supply.max", &s.max, Unit::Volt)?
-            .unwrap_or_else(|| {
-                assumed.push(format!("supply.max = supply.voltage ({voltage} V)"));
-                voltage
-            });
-        let l = cx.required("coil.inductance", &raw.coil.inductance, Unit::Henry)?;
-        let r = cx.required("coil.resistance", &raw.coil.resistance, Unit::Ohm)?;
-        let sw = &raw.switch;
-        let r_on = cx.required("switch.on_resistance", &sw.on_resistance, Unit::Ohm)?;
-        let bv = cx.required("switch.breakdown", &sw.breakdown, Unit::Volt)?;
-        let dead_time = cx
-            .value("switch.dead_time", &sw.dead_time, Unit::Second)?
-            .unwrap_or_else(|| {
-                assumed.push("switch.dead_time = 0 s".into());
-                0.0
-            });
-        cx.check(
-            "switch.dead_time",
-            (0.0..=1e-3).contains(&dead_time),
-            "must be within 0 ..= 1 ms",
-        )?;
-        let d = &raw.body_diode;
-        let vf = cx.required("body_diode.forward_voltage", &d.forward_voltage, Unit::Volt)?;
-        let rd = cx
-            .value("body_diode.resistance", &d.resistance, Unit::Ohm)?
-            .unwrap_or(0.0);
-        let decay = match cx.word("decay.mode", &raw.decay.mode, &["fast", "slow", "mixed"])? {
-            Some("fast") => DecayMode::Fast,
-            Some("slow") => DecayMode::Slow,
-            Some(_) => {
-                let share =
-                    cx.required("decay.fast_share", &raw.decay.fast_share, Unit::Percent)?;
-                DecayMode::Mixed {
-                    fast_share: share as f32,
-                }
-            }
-            None => {
-                return Err(cx.error("decay.mode", None, "missing; one of fast, slow, mixed"));
-            }
-        };
-        if !matches!(decay, DecayMode::Mixed { .. }) && raw.decay.fast_share.is_some() {
-            return Err(cx.error(
-                "decay.fast_share",
-                raw.decay.fast_share.as_ref().map(Spanned::span),
-                "applies to mode = \"mixed\" only",
-            ));
-        }
-
-        let (rotor, motor, speed_feedback) = match &raw.motor {
-            None => (None, MotorParams::default(), false),
-            Some(m) => {
-                let k = cx.required("motor.constant", &m.constant, Unit::VoltSecondPerRadian)?;
-                let j = cx.required("motor.inertia", &m.inertia, Unit::KilogramSquareMetre)?;
-                let b = cx.required("motor.friction", &m.friction, Unit::NewtonMetreSecond)?;
-                cx.check("motor.inertia", j > 0.0, "must be greater than zero")?;
-                cx.check(
-                    "motor.friction",
-                    b > 0.0,
-                    "must be greater than zero (every rotor has some)",
-                )?;
-                let limit = cx
-                    .value("motor.back_emf_limit", &m.back_emf_limit, Unit::Volt)?
-                    .unwrap_or_else(|| {
-                        assumed.push(format!("motor.back_emf_limit = supply.min ({min} V)"));
-                        min
-                    });
-                let feedback = m.speed_feedback.unwrap_or(false);
-                (
-                    Some(Rotor {
-                        constant: k,
-                        inertia: j,
-                        friction: b,
-                    }),
-                    MotorParams::new(limit as f32, k as f32),
-                    feedback,
-                )
-            }
-        };
-        let bus = match &raw.bus {
-            None => None,
-            Some(b) => {
-                let c = cx.required("bus.capacitance", &b.capacitance, Unit::Farad)?;
-                let sink = cx
-                    .value("bus.sink_current", &b.sink_current, Unit::Ampere)?
-                    .unwrap_or_else(|| {
-                        assumed.push("bus.sink_current = 0 A (a supply that cannot sink)".into());
-                        0.0
-                    });
-                Some(Bus {
-                    capacitance: c,
-                    sink_current: sink,
-                })
-            }
-        };
+        let CircuitValues {
+            voltage,
+            min,
+            max,
+            l,
+            r,
+            r_on,
+            bv,
+            dead_time,
+            vf,
+            rd,
+        } = circuit_values(&mut cx, &raw, &mut assumed)?;
+        let decay = decay_mode(&mut cx, &raw)?;
+        let (rotor, motor, speed_feedback) = motor_values(&mut cx, &raw, min, &mut assumed)?;
+        let bus = bus_values(&mut cx, &raw, &mut assumed)?;
 
         let c = &raw.control;
         let period = cx.required("control.period", &c.period, Unit::Second)?;
@@ -451,68 +363,9 @@ impl BridgeScenario {
                 assumed.push("control.duty_resolution = 1000".into());
                 1000
             }) as u32;
-        let g = &raw.guard;
-        let trip = cx.required("guard.trip_current", &g.trip_current, Unit::Ampere)?;
-        let full_scale = cx
-            .value(
-                "control.current_full_scale",
-                &c.current_full_scale,
-                Unit::Ampere,
-            )?
-            .unwrap_or_else(|| {
-                assumed.push(format!(
-                    "control.current_full_scale = 2 × guard.trip_current ({} A)",
-                    2.0 * trip
-                ));
-                2.0 * trip
-            });
-        let ceiling = cx.required("guard.current_ceiling", &g.current_ceiling, Unit::Ampere)?;
-        let release = cx.required("guard.release_current", &g.release_current, Unit::Ampere)?;
-        let dead = cx.required(
-            "guard.reversal_dead_time",
-            &g.reversal_dead_time,
-            Unit::Second,
-        )?;
-        let mut limits =
-            BridgeLimits::new(ceiling as f32, trip as f32, release as f32, dead as f32);
-        limits.policy.overcurrent = cx.action(
-            "guard.overcurrent",
-            &g.overcurrent,
-            limits.policy.overcurrent,
-        )?;
-        limits.policy.supply_pump = match cx.word(
-            "guard.supply_pump",
-            &g.supply_pump,
-            &["recirculate", "report"],
-        )? {
-            Some("report") => PumpResponse::Report,
-            _ => PumpResponse::Recirculate,
-        };
+        let (mut limits, full_scale, trip) = guard_limits(&mut cx, &raw, &mut assumed)?;
 
-        let mut drive = Vec::new();
-        for (n, d) in raw.drive.iter().enumerate() {
-            let key_at = format!("drive[{n}].at");
-            let key_duty = format!("drive[{n}].duty");
-            let at = cx.required(&key_at, &d.at, Unit::Second)?;
-            let duty = cx.required(&key_duty, &d.duty, Unit::Percent)?;
-            cx.check(
-                &key_duty,
-                (-1.0..=1.0).contains(&duty),
-                "must be within -100 % ..= 100 % (the sign is the direction)",
-            )?;
-            cx.check(&key_at, at >= 0.0, "must not be negative")?;
-            if let Some(prev) = drive.last().map(|s: &BridgeStep| s.at) {
-                cx.check(&key_at, at >= prev, "the drive steps must be in time order")?;
-            }
-            drive.push(BridgeStep { at, duty });
-        }
-        if drive.is_empty() {
-            return Err(cx.error(
-                "drive",
-                None,
-                "no [[drive]] steps: give at least one, e.g. [[drive]] at = \"0 s\" duty = \"-60 %\"",
-            ));
-        }
+        let drive = drive_steps(&mut cx, &raw)?;
         let duration = cx.required("run.duration", &raw.run.duration, Unit::Second)?;
         cx.check(
             "run.duration",
@@ -605,6 +458,243 @@ impl BridgeScenario {
     pub fn duty_in_period(&self, k: u64) -> f64 {
         crate::scenario::duty_in_period(&self.drive, |s| (s.at, s.duty), self.period, k)
     }
+}
+
+/// `[supply]`, `[coil]`, `[switch]` and `[body_diode]`: supply nominal, min and max; coil L
+/// and R; on-resistance, breakdown and gate dead time; the body diode's drop and resistance.
+fn circuit_values(
+    cx: &mut Cx,
+    raw: &Raw,
+    assumed: &mut Vec<String>,
+) -> Result<CircuitValues, ScenarioError> {
+    let s = &raw.supply;
+    let voltage = cx.required("supply.voltage", &s.voltage, Unit::Volt)?;
+    let min = cx
+        .value("supply.min", &s.min, Unit::Volt)?
+        .unwrap_or_else(|| {
+            assumed.push(format!("supply.min = supply.voltage ({voltage} V)"));
+            voltage
+        });
+    let max = cx
+        .value("supply.max", &s.max, Unit::Volt)?
+        .unwrap_or_else(|| {
+            assumed.push(format!("supply.max = supply.voltage ({voltage} V)"));
+            voltage
+        });
+    let l = cx.required("coil.inductance", &raw.coil.inductance, Unit::Henry)?;
+    let r = cx.required("coil.resistance", &raw.coil.resistance, Unit::Ohm)?;
+    let sw = &raw.switch;
+    let r_on = cx.required("switch.on_resistance", &sw.on_resistance, Unit::Ohm)?;
+    let bv = cx.required("switch.breakdown", &sw.breakdown, Unit::Volt)?;
+    let dead_time = cx
+        .value("switch.dead_time", &sw.dead_time, Unit::Second)?
+        .unwrap_or_else(|| {
+            assumed.push("switch.dead_time = 0 s".into());
+            0.0
+        });
+    cx.check(
+        "switch.dead_time",
+        (0.0..=1e-3).contains(&dead_time),
+        "must be within 0 ..= 1 ms",
+    )?;
+    let d = &raw.body_diode;
+    let vf = cx.required("body_diode.forward_voltage", &d.forward_voltage, Unit::Volt)?;
+    let rd = cx
+        .value("body_diode.resistance", &d.resistance, Unit::Ohm)?
+        .unwrap_or(0.0);
+    Ok(CircuitValues {
+        voltage,
+        min,
+        max,
+        l,
+        r,
+        r_on,
+        bv,
+        dead_time,
+        vf,
+        rd,
+    })
+}
+
+/// What [`circuit_values`] reads, SI.
+struct CircuitValues {
+    voltage: f64,
+    min: f64,
+    max: f64,
+    l: f64,
+    r: f64,
+    r_on: f64,
+    bv: f64,
+    dead_time: f64,
+    vf: f64,
+    rd: f64,
+}
+
+/// `[decay]`: the mode, and the fast share of a mixed one.
+fn decay_mode(cx: &mut Cx, raw: &Raw) -> Result<DecayMode, ScenarioError> {
+    let decay = match cx.word("decay.mode", &raw.decay.mode, &["fast", "slow", "mixed"])? {
+        Some("fast") => DecayMode::Fast,
+        Some("slow") => DecayMode::Slow,
+        Some(_) => {
+            let share = cx.required("decay.fast_share", &raw.decay.fast_share, Unit::Percent)?;
+            DecayMode::Mixed {
+                fast_share: share as f32,
+            }
+        }
+        None => {
+            return Err(cx.error("decay.mode", None, "missing; one of fast, slow, mixed"));
+        }
+    };
+    if !matches!(decay, DecayMode::Mixed { .. }) && raw.decay.fast_share.is_some() {
+        return Err(cx.error(
+            "decay.fast_share",
+            raw.decay.fast_share.as_ref().map(Spanned::span),
+            "applies to mode = \"mixed\" only",
+        ));
+    }
+
+    Ok(decay)
+}
+
+/// `[motor]`: the rotor the plant turns, the guard's motor parameters, and whether the
+/// firmware feeds it the speed (none of them without the section).
+fn motor_values(
+    cx: &mut Cx,
+    raw: &Raw,
+    min: f64,
+    assumed: &mut Vec<String>,
+) -> Result<(Option<Rotor>, MotorParams, bool), ScenarioError> {
+    Ok(match &raw.motor {
+        None => (None, MotorParams::default(), false),
+        Some(m) => {
+            let k = cx.required("motor.constant", &m.constant, Unit::VoltSecondPerRadian)?;
+            let j = cx.required("motor.inertia", &m.inertia, Unit::KilogramSquareMetre)?;
+            let b = cx.required("motor.friction", &m.friction, Unit::NewtonMetreSecond)?;
+            cx.check("motor.inertia", j > 0.0, "must be greater than zero")?;
+            cx.check(
+                "motor.friction",
+                b > 0.0,
+                "must be greater than zero (every rotor has some)",
+            )?;
+            let limit = cx
+                .value("motor.back_emf_limit", &m.back_emf_limit, Unit::Volt)?
+                .unwrap_or_else(|| {
+                    assumed.push(format!("motor.back_emf_limit = supply.min ({min} V)"));
+                    min
+                });
+            let feedback = m.speed_feedback.unwrap_or(false);
+            (
+                Some(Rotor {
+                    constant: k,
+                    inertia: j,
+                    friction: b,
+                }),
+                MotorParams::new(limit as f32, k as f32),
+                feedback,
+            )
+        }
+    })
+}
+
+/// `[bus]`: the supply's bus capacitance and what it can sink (none without the section).
+fn bus_values(
+    cx: &mut Cx,
+    raw: &Raw,
+    assumed: &mut Vec<String>,
+) -> Result<Option<Bus>, ScenarioError> {
+    Ok(match &raw.bus {
+        None => None,
+        Some(b) => {
+            let c = cx.required("bus.capacitance", &b.capacitance, Unit::Farad)?;
+            let sink = cx
+                .value("bus.sink_current", &b.sink_current, Unit::Ampere)?
+                .unwrap_or_else(|| {
+                    assumed.push("bus.sink_current = 0 A (a supply that cannot sink)".into());
+                    0.0
+                });
+            Some(Bus {
+                capacitance: c,
+                sink_current: sink,
+            })
+        }
+    })
+}
+
+/// `[guard]` (and `control.current_full_scale`, which defaults to twice its trip current): the
+/// limits, the full scale and the trip current.
+fn guard_limits(
+    cx: &mut Cx,
+    raw: &Raw,
+    assumed: &mut Vec<String>,
+) -> Result<(BridgeLimits, f64, f64), ScenarioError> {
+    let c = &raw.control;
+    let g = &raw.guard;
+    let trip = cx.required("guard.trip_current", &g.trip_current, Unit::Ampere)?;
+    let full_scale = cx
+        .value(
+            "control.current_full_scale",
+            &c.current_full_scale,
+            Unit::Ampere,
+        )?
+        .unwrap_or_else(|| {
+            assumed.push(format!(
+                "control.current_full_scale = 2 × guard.trip_current ({} A)",
+                2.0 * trip
+            ));
+            2.0 * trip
+        });
+    let ceiling = cx.required("guard.current_ceiling", &g.current_ceiling, Unit::Ampere)?;
+    let release = cx.required("guard.release_current", &g.release_current, Unit::Ampere)?;
+    let dead = cx.required(
+        "guard.reversal_dead_time",
+        &g.reversal_dead_time,
+        Unit::Second,
+    )?;
+    let mut limits = BridgeLimits::new(ceiling as f32, trip as f32, release as f32, dead as f32);
+    limits.policy.overcurrent = cx.action(
+        "guard.overcurrent",
+        &g.overcurrent,
+        limits.policy.overcurrent,
+    )?;
+    limits.policy.supply_pump = match cx.word(
+        "guard.supply_pump",
+        &g.supply_pump,
+        &["recirculate", "report"],
+    )? {
+        Some("report") => PumpResponse::Report,
+        _ => PumpResponse::Recirculate,
+    };
+
+    Ok((limits, full_scale, trip))
+}
+
+/// `[[drive]]`: the signed steps, in time order, at least one.
+fn drive_steps(cx: &mut Cx, raw: &Raw) -> Result<Vec<BridgeStep>, ScenarioError> {
+    let mut drive = Vec::new();
+    for (n, d) in raw.drive.iter().enumerate() {
+        let key_at = format!("drive[{n}].at");
+        let key_duty = format!("drive[{n}].duty");
+        let at = cx.required(&key_at, &d.at, Unit::Second)?;
+        let duty = cx.required(&key_duty, &d.duty, Unit::Percent)?;
+        cx.check(
+            &key_duty,
+            (-1.0..=1.0).contains(&duty),
+            "must be within -100 % ..= 100 % (the sign is the direction)",
+        )?;
+        cx.check(&key_at, at >= 0.0, "must not be negative")?;
+        if let Some(prev) = drive.last().map(|s: &BridgeStep| s.at) {
+            cx.check(&key_at, at >= prev, "the drive steps must be in time order")?;
+        }
+        drive.push(BridgeStep { at, duty });
+    }
+    if drive.is_empty() {
+        return Err(cx.error(
+            "drive",
+            None,
+            "no [[drive]] steps: give at least one, e.g. [[drive]] at = \"0 s\" duty = \"-60 %\"",
+        ));
+    }
+    Ok(drive)
 }
 
 #[cfg(test)]
