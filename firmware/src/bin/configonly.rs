@@ -1,6 +1,5 @@
-//! Only the configuration (`Guard::new`, `BridgeGuard::new`, and loading a guard from bytes):
-//! subtracted from the panic-free build by `cargo xtask target-bench`, so that the reported
-//! .text is the guard's run-time code alone.
+//! Only the configuration (`Guard::new`, `BridgeGuard::new`): subtracted from the panic-free build by
+//! `cargo xtask target-bench`, so that the reported .text is the guard's run-time code alone.
 #![no_std]
 #![no_main]
 
@@ -8,10 +7,6 @@ use coilward::Guard;
 use coilward_firmware::trace;
 use core::hint::black_box;
 use cortex_m_rt::entry;
-
-/// The trace's guard and calibration as the build script wrote them.
-static FLASHED_GUARD: &[u8] = include_bytes!(concat!(env!("OUT_DIR"), "/guard.flash"));
-static FLASHED_SENSE: &[u8] = include_bytes!(concat!(env!("OUT_DIR"), "/sense.flash"));
 
 #[panic_handler]
 fn panic(_: &core::panic::PanicInfo) -> ! {
@@ -29,9 +24,6 @@ fn main() -> ! {
         &black_box(trace::bridge_limits()),
     );
     black_box(&bridge);
-    let flashed = Guard::from_flash(black_box(FLASHED_GUARD));
-    black_box(&flashed);
-    black_box(coilward::SupplySense::from_flash(black_box(FLASHED_SENSE)).ok());
     loop {
         black_box(0u32);
     }

@@ -1,5 +1,5 @@
-//! Panic-free by construction: this firmware calls every per-tick entry point of the guard, the
-//! configuration and the loading of a guard from bytes (feature `flash`), with inputs the optimiser cannot see through, and its panic handler
+//! Panic-free by construction: this firmware calls every per-tick entry point of the guard and
+//! the configuration, with inputs the optimiser cannot see through, and its panic handler
 //! references a symbol that exists nowhere. A release (LTO) build links only if no panic path
 //! is left. When it fails, the linker names `coilward_panic_path_is_reachable`; find the caller
 //! with `arm-none-eabi-objdump -d` (or `cargo objdump`) and a search for the panic functions
@@ -19,10 +19,6 @@ unsafe extern "C" {
     /// Defined nowhere: any reachable panic makes the link fail.
     fn coilward_panic_path_is_reachable() -> !;
 }
-
-/// The trace's guard and calibration as the build script wrote them.
-static FLASHED_GUARD: &[u8] = include_bytes!(concat!(env!("OUT_DIR"), "/guard.flash"));
-static FLASHED_SENSE: &[u8] = include_bytes!(concat!(env!("OUT_DIR"), "/sense.flash"));
 
 #[panic_handler]
 fn panic(_: &core::panic::PanicInfo) -> ! {
@@ -60,10 +56,6 @@ fn main() -> ! {
     );
     let mut ring_state = ring.as_ref().ok().map(Guard::start_after_reset);
     let mut memo = coilward::TickMemo::EMPTY;
-    // A guard and a calibration loaded from bytes (any bytes: the optimiser cannot see them).
-    let flashed = Guard::from_flash(black_box(FLASHED_GUARD));
-    black_box(flashed.as_ref().map(Guard::ceiling).ok());
-    black_box(SupplySense::from_flash(black_box(FLASHED_SENSE)).ok());
     loop {
         if let (Ok(g), Some(s)) = (&ring, ring_state.as_mut()) {
             let v = Volts::from_bits(black_box(24 << 16));
