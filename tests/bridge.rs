@@ -554,3 +554,77 @@ proptest! {
         let _ = g.start_after_reset();
     }
 }
+
+/// The bridge's winding image (`BridgeLimits::coil_thermal`) on a stalled winding held at one
+/// duty: `coil-overheat` is raised no later than the IEC 60255-149 cold trip time for the true
+/// mean current, t = τ·ln(I²/(I² − (k·I_B)²)) (shared/REFERENCES.md §7), since the image heats
+/// with the bound's largest magnitude in each period, and no earlier than that formula gives
+/// for the estimate's peak (the image is not more pessimistic than the ripple's top). α = 0:
+/// the pure IEC characteristic. A reset starts the image at its trip level, a restored one
+/// where it was.
+#[test]
+fn bridge_winding_image_trips_within_the_iec_characteristic() {
+    let p = {
+        let mut p = params(DecayMode::Slow);
+        p.coil.temperature_coefficient = 0.0;
+        p
+    };
+    let mut limits = BridgeLimits::new(3.0, 3.5, 0.05, 1e-3);
+    let (tau, basic, k) = (0.5_f64, 1.0_f64, 1.05_f64);
+    limits.coil_thermal = Some(coilward::thermal::CoilThermal::new(
+        tau as f32,
+        basic as f32,
+        k as f32,
+        25.0,
+        60.0,
+    ));
+    let g = BridgeGuard::new(&p, &limits).unwrap();
+    let mut s = g.start_idle();
+    let vs = Volts::from_num(12);
+    let duty = 600; // a stalled 4 Ω winding: about 1.7 A at 12 V
+    let (mut t, mut sum, mut n, mut top) = (0.0_f64, 0.0_f64, 0u32, 0.0_f64);
+    let tripped_at = loop {
+        let out = g.tick(&mut s, BridgeInput::new(duty, vs));
+        if out.active.contains(Condition::CoilOverheat) {
+            break t;
+        }
+        assert_eq!(out.duty, duty, "held at one duty until the image trips");
+        // After the rise (ten electrical time constants), the estimate's mean and top.
+        if t > 10.0 * L / R {
+            let e = out.estimate;
+            let amps = |c: Current| c.to_fraction().to_num::<f64>() * FS;
+            sum += (amps(e.start) + amps(e.end)) / 2.0;
+            n += 1;
+            top = top.max(amps(e.peak_magnitude()));
+        }
+        t += T;
+        assert!(t < 10.0 * tau, "no trip");
+    };
+    let mean = sum / f64::from(n);
+    let iec = |i: f64| tau * (i * i / (i * i - (k * basic).powi(2))).ln();
+    assert!(mean > 1.5 && top < 2.5, "mean {mean} A, top {top} A");
+    assert!(
+        tripped_at <= iec(mean) + T,
+        "tripped at {tripped_at} s, IEC for the mean {mean:.4} A: {} s",
+        iec(mean)
+    );
+    assert!(
+        tripped_at >= iec(top) * 0.99,
+        "tripped at {tripped_at} s, IEC for the top {top:.4} A: {} s",
+        iec(top)
+    );
+    // The output is held off while the image cools.
+    let out = g.tick(&mut s, BridgeInput::new(duty, vs));
+    assert_eq!(out.duty, 0);
+    // After a reset the image starts at its trip level, so the output stays off; restored, it
+    // starts where it was saved.
+    let mut reset = g.start_after_reset();
+    let out = g.tick(&mut reset, BridgeInput::new(duty, vs));
+    assert!(out.active.contains(Condition::CoilOverheat));
+    assert_eq!(out.duty, 0);
+    let cold = g.start_after_reset_restored(Some(g.start_idle().coil_heat()));
+    assert_eq!(
+        g.winding_temperature(&cold),
+        g.winding_temperature(&g.start_idle())
+    );
+}

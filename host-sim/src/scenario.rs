@@ -2111,19 +2111,47 @@ fn clamp_thermal(cx: &mut Cx, g: &RawGuard) -> Result<Option<ClampThermal>, Scen
     Ok(Some(t))
 }
 
+/// The `[guard]` keys of the winding's thermal image, the same in both topologies' files.
+pub(crate) struct CoilThermalKeys<'a> {
+    pub(crate) coil_time_constant: &'a Text,
+    pub(crate) coil_basic_current: &'a Text,
+    pub(crate) coil_overload_factor: &'a Option<Spanned<f64>>,
+    pub(crate) coil_reset_level: &'a Option<Spanned<f64>>,
+    pub(crate) coil_ambient: &'a Text,
+    pub(crate) coil_rise: &'a Text,
+}
+
 fn coil_thermal(cx: &mut Cx, g: &RawGuard) -> Result<Option<CoilThermal>, ScenarioError> {
+    coil_thermal_of(
+        cx,
+        &CoilThermalKeys {
+            coil_time_constant: &g.coil_time_constant,
+            coil_basic_current: &g.coil_basic_current,
+            coil_overload_factor: &g.coil_overload_factor,
+            coil_reset_level: &g.coil_reset_level,
+            coil_ambient: &g.coil_ambient,
+            coil_rise: &g.coil_rise,
+        },
+    )
+}
+
+/// The winding's thermal image from its `[guard]` keys (`None` when none is given).
+pub(crate) fn coil_thermal_of(
+    cx: &mut Cx,
+    g: &CoilThermalKeys,
+) -> Result<Option<CoilThermal>, ScenarioError> {
     let tau = cx.value(
         "guard.coil_time_constant",
-        &g.coil_time_constant,
+        g.coil_time_constant,
         Unit::Second,
     )?;
     let basic = cx.value(
         "guard.coil_basic_current",
-        &g.coil_basic_current,
+        g.coil_basic_current,
         Unit::Ampere,
     )?;
-    let ambient = cx.value("guard.coil_ambient", &g.coil_ambient, Unit::Celsius)?;
-    let rise = cx.value("guard.coil_rise", &g.coil_rise, Unit::Kelvin)?;
+    let ambient = cx.value("guard.coil_ambient", g.coil_ambient, Unit::Celsius)?;
+    let rise = cx.value("guard.coil_rise", g.coil_rise, Unit::Kelvin)?;
     let k = g.coil_overload_factor.as_ref().map(|s| {
         cx.spans
             .insert("guard.coil_overload_factor".into(), s.span());

@@ -325,3 +325,27 @@ fn a_reversal_waits_the_whole_dead_time_from_the_true_release() {
         assert!(gap < d + 2.0 * t, "{gap} vs {d}");
     }
 }
+
+/// The bridge's winding image from the scenario's `[guard]` keys (the low side's): the latching
+/// valve held on for 12 ms with a 5 ms image and a basic current of a third of its 1 A raises
+/// `coil-overheat` and the guard holds the output off (limited, nothing exceeded); a key
+/// missing from the set is named.
+#[test]
+fn bridge_winding_image_from_the_scenario() {
+    let text = latching_valve("50 us", "1 ms").replace(
+        "[guard]\n",
+        "[guard]\ncoil_time_constant = \"5 ms\"\ncoil_basic_current = \"0.3 A\"\ncoil_ambient = \"25 °C\"\ncoil_rise = \"60 K\"\n",
+    );
+    let s = scenario(&text);
+    assert!(s.limits.coil_thermal.is_some());
+    let r = run(&s, false);
+    assert!(
+        r.events.iter().any(|e| e.condition == "coil-overheat"),
+        "{:?}",
+        r.events
+    );
+    assert_eq!(r.verdict(), Verdict::Limited, "{:?}", r.findings);
+    let missing = text.replace("coil_rise = \"60 K\"\n", "");
+    let e = BridgeScenario::parse(Path::new("valve.toml"), &missing).unwrap_err();
+    assert_eq!(e.key.as_deref(), Some("guard.coil_rise"), "{e}");
+}

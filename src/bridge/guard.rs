@@ -44,8 +44,10 @@ use crate::bridge::drive::PeriodPlan;
 use crate::bridge::{AppliedDecay, BridgeCoil, BridgeEstimate, BridgeModel, BridgeParams};
 use crate::condition::{Action, Condition, Conditions};
 use crate::params::{ConfigError, Conflict, Field};
+use crate::thermal::{CoilHeat, CoilReplica, CoilThermal};
 use crate::tolerance::Tolerance;
 use crate::units::{Charge, Current, SignedVolts, Volts};
+use fixed::types::I32F32;
 
 /// What the guard does while `supply-pump` is active.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
@@ -71,6 +73,9 @@ pub struct BridgePolicy {
     pub supply_high: Action,
     /// `supply-pump`; default [`PumpResponse::Recirculate`].
     pub supply_pump: PumpResponse,
+    /// `coil-overheat` (the winding image, with [`BridgeLimits::coil_thermal`]); default
+    /// [`Action::Trip`].
+    pub coil_overheat: Action,
 }
 
 impl Default for BridgePolicy {
@@ -80,6 +85,7 @@ impl Default for BridgePolicy {
             supply_low: Action::Report,
             supply_high: Action::Trip,
             supply_pump: PumpResponse::Recirculate,
+            coil_overheat: Action::Trip,
         }
     }
 }
@@ -106,6 +112,11 @@ pub struct BridgeLimits {
     /// resistance, supply reading, back-EMF constant and bulk capacitance (the low side's
     /// node-capacitance, saturation and clamp spreads are refused: the bridge has no such part).
     pub tolerance: Tolerance,
+    /// The winding's thermal image (`coil-overheat`), as on the low side
+    /// ([`crate::GuardLimits::coil_thermal`]); `None`: no image. It is fed each period with
+    /// the bound's largest magnitude over the period, so it never runs cooler than the winding
+    /// inside the declared tolerance.
+    pub coil_thermal: Option<CoilThermal>,
 }
 
 impl BridgeLimits {
@@ -124,6 +135,7 @@ impl BridgeLimits {
             reversal_dead_time,
             policy: BridgePolicy::default(),
             tolerance: Tolerance::EXACT,
+            coil_thermal: None,
         }
     }
 
@@ -249,9 +261,17 @@ pub struct BridgeState {
     returned: Charge,
     active: Conditions,
     latched: Conditions,
+    /// The winding image (ambient without one).
+    coil_heat: CoilHeat,
 }
 
 impl BridgeState {
+    /// The winding image's state (with [`BridgeLimits::coil_thermal`]; save it where a reset
+    /// leaves it and start from it with [`BridgeGuard::start_after_reset_restored`]).
+    pub const fn coil_heat(&self) -> CoilHeat {
+        self.coil_heat
+    }
+
     /// The signed coil current estimate.
     pub const fn current(&self) -> Current {
         self.coil.current()
@@ -301,6 +321,8 @@ pub struct BridgeGuard {
     /// The upper bound the decisions act on (over the declared tolerance; with none, over the
     /// model's own rounding).
     bound: BridgeBound,
+    /// The winding image.
+    coil: Option<CoilReplica>,
 }
 
 fn amps_to_raw(model: &BridgeModel, field: Field, amps: f32) -> Result<i64, ConfigError> {
@@ -348,6 +370,16 @@ impl BridgeGuard {
             SignedVolts::from_bits(-((f64::from(params.motor.back_emf_limit) * 65_536.0) as i32));
         let worst_current = model.steady_drive(v_max, helping).max(trip);
         let bound = BridgeBound::new(params, &model, &limits.tolerance, trip)?;
+        let coil = match &limits.coil_thermal {
+            Some(c) => Some(CoilReplica::new(
+                c,
+                model.derived().period,
+                model.derived().full_scale,
+                params.coil.reference_temperature,
+                params.coil.temperature_coefficient,
+            )?),
+            None => None,
+        };
         Ok(Self {
             ceiling,
             trip,
@@ -361,6 +393,7 @@ impl BridgeGuard {
             worst_current,
             model,
             bound,
+            coil,
         })
     }
 
@@ -404,6 +437,7 @@ impl BridgeGuard {
             returned: Charge::ZERO,
             active: Conditions::NONE,
             latched: Conditions::NONE,
+            coil_heat: CoilHeat::default(),
         }
     }
 
@@ -420,14 +454,35 @@ impl BridgeGuard {
     }
 
     /// State after a reset: the coil may carry the worst-case current in either direction, so
-    /// both directions wait for its full decay and the dead time.
+    /// both directions wait for its full decay and the dead time; the winding image starts at
+    /// its trip level (as the low side's: a reset never shortens an overload).
     pub fn start_after_reset(&self) -> BridgeState {
+        let hot = self
+            .coil
+            .as_ref()
+            .map_or(CoilHeat::default(), CoilReplica::hot);
+        self.start_after_reset_restored(Some(hot))
+    }
+
+    /// [`BridgeGuard::start_after_reset`] with the winding image as it was saved before the
+    /// reset ([`BridgeState::coil_heat`]; `None`: at its trip level).
+    pub fn start_after_reset_restored(&self, saved: Option<CoilHeat>) -> BridgeState {
         let s = self.start_with_current(Current::from_bits(self.worst_current));
+        let hot = self
+            .coil
+            .as_ref()
+            .map_or(CoilHeat::default(), CoilReplica::hot);
         BridgeState {
             direction: Direction::Unknown,
             bound: self.bound.after_reset(),
+            coil_heat: saved.unwrap_or(hot),
             ..s
         }
+    }
+
+    /// The winding image's temperature, °C (`None` without one).
+    pub fn winding_temperature(&self, state: &BridgeState) -> Option<I32F32> {
+        self.coil.as_ref().map(|c| c.temperature(&state.coil_heat))
     }
 
     /// The bus charge above rest after a period of `duty` and `decay` that drew and returned
@@ -511,7 +566,7 @@ impl BridgeGuard {
         let bound_before = self.bound.magnitude(&state.bound);
         let now = m.supply_bits(input.supply);
         let before = if state.rail == 0 { now } else { state.rail };
-        self.bound.advance(
+        let period_peak = self.bound.advance(
             &mut state.bound,
             m,
             after_slow_then,
@@ -519,6 +574,12 @@ impl BridgeGuard {
             (before.min(now), before.max(now)),
             (SignedVolts::from_bits(state.emf), input.back_emf),
         );
+        // The winding image heats with the bound's largest magnitude over the period as its
+        // whole period's current: at or above the true mean square inside the box.
+        if let Some(c) = &self.coil {
+            let top = Current::from_bits(period_peak.clamp(0, Current::LIMIT.to_bits()));
+            c.period(&mut state.coil_heat, top, top);
+        }
         state.rail = now;
         state.emf = input.back_emf.to_bits();
         // The bus: the period just ended, then whether it is still recovering from a pump.
@@ -567,6 +628,19 @@ impl BridgeGuard {
                 &mut state.latched,
                 Condition::Overcurrent,
                 pol.overcurrent,
+            );
+        }
+        // Winding image, with hysteresis: once raised it clears only at the reset level.
+        if let Some(c) = &self.coil
+            && (c.tripped(&state.coil_heat)
+                || (state.active.contains(Condition::CoilOverheat) && !c.cooled(&state.coil_heat)))
+        {
+            apply(
+                &mut active,
+                &mut hold,
+                &mut state.latched,
+                Condition::CoilOverheat,
+                pol.coil_overheat,
             );
         }
         (active, hold)

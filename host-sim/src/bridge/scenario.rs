@@ -137,6 +137,13 @@ struct RawGuard {
     reversal_dead_time: Text,
     overcurrent: Text,
     supply_pump: Text,
+    coil_overheat: Text,
+    coil_time_constant: Text,
+    coil_basic_current: Text,
+    coil_overload_factor: Option<Spanned<f64>>,
+    coil_reset_level: Option<Spanned<f64>>,
+    coil_ambient: Text,
+    coil_rise: Text,
 }
 
 #[derive(Deserialize)]
@@ -296,6 +303,12 @@ fn key_of(field: &str) -> &str {
     match field {
         "supply.nominal" => "supply.voltage",
         "body_diode.forward_drop" => "body_diode.forward_voltage",
+        "coil_thermal.time_constant" => "guard.coil_time_constant",
+        "coil_thermal.basic_current" => "guard.coil_basic_current",
+        "coil_thermal.overload_factor" => "guard.coil_overload_factor",
+        "coil_thermal.reset_level" => "guard.coil_reset_level",
+        "coil_thermal.ambient" => "guard.coil_ambient",
+        "coil_thermal.rise_at_basic" => "guard.coil_rise",
         other => other,
     }
 }
@@ -664,6 +677,22 @@ fn guard_limits(
         Some("report") => PumpResponse::Report,
         _ => PumpResponse::Recirculate,
     };
+    limits.policy.coil_overheat = cx.action(
+        "guard.coil_overheat",
+        &g.coil_overheat,
+        limits.policy.coil_overheat,
+    )?;
+    limits.coil_thermal = crate::scenario::coil_thermal_of(
+        cx,
+        &crate::scenario::CoilThermalKeys {
+            coil_time_constant: &g.coil_time_constant,
+            coil_basic_current: &g.coil_basic_current,
+            coil_overload_factor: &g.coil_overload_factor,
+            coil_reset_level: &g.coil_reset_level,
+            coil_ambient: &g.coil_ambient,
+            coil_rise: &g.coil_rise,
+        },
+    )?;
 
     Ok((limits, full_scale, trip))
 }
