@@ -194,6 +194,29 @@ pub(crate) fn act(
     }
 }
 
+/// The retry of latched trips, shared by the low-side and the bridge guard: once every latched
+/// condition is gone and the cooldown (`cooldown_us`, counted down by the caller in real time;
+/// restarted while any of them is still present) has run out, the latches clear, at most
+/// `max` times until the firmware clears them itself.
+pub(crate) fn retry_latched(
+    latched: &mut Conditions,
+    active: Conditions,
+    (cooldown_us, retries): (&mut u32, &mut u8),
+    (cooldown, max): (u32, u8),
+) {
+    if latched.is_empty() {
+        return;
+    }
+    if latched.intersection(active).is_empty() {
+        if *cooldown_us == 0 && *retries < max {
+            *retries = retries.saturating_add(1);
+            *latched = Conditions::NONE;
+        }
+    } else {
+        *cooldown_us = cooldown;
+    }
+}
+
 /// The action for `supply-range` at supply bits `vs` against the window `min ..= max`: `low`
 /// below it, `high` above it, none inside.
 pub(crate) const fn supply_window(

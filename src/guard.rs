@@ -593,6 +593,17 @@ pub(crate) fn limit_current(
     ))
 }
 
+/// A retry's cooldown in µs and its count, validated (both guards).
+pub(crate) fn retry_of(retry: Option<Retry>) -> Result<Option<(u32, u8)>, ConfigError> {
+    match retry {
+        Some(r) => {
+            let s = positive(Field::GuardRetryCooldown, r.cooldown, 1e-6, 4000.0)?;
+            Ok(Some(((f64::from(s) * 1e6) as u32, r.max_retries)))
+        }
+        None => Ok(None),
+    }
+}
+
 /// The winding image, with the box's slowest decay and fastest rise for its events, and the
 /// stale-temperature gain per kelvin (Q32) for the image's resistance factor.
 fn coil_image(
@@ -700,13 +711,7 @@ impl Guard {
             )?),
         };
         let (coil, stale_per_kelvin) = coil_image(params, limits, &bound, &d)?;
-        let retry = match limits.retry {
-            Some(r) => {
-                let s = positive(Field::GuardRetryCooldown, r.cooldown, 1e-6, 4000.0)?;
-                Some(((f64::from(s) * 1e6) as u32, r.max_retries))
-            }
-            None => None,
-        };
+        let retry = retry_of(limits.retry)?;
         // Worst-case current after a reset: the steady on-current at the maximum supply, or the
         // trip current if higher.
         let worst_current = bound.rise.on_asymptote(v_max_hi.to_bits()).max(trip);
@@ -1544,17 +1549,9 @@ impl Guard {
     /// Trips are latched until cleared, or retried once every latched condition has been gone
     /// for the whole cooldown (the cooldown restarts while any of them is still present).
     fn retry_latched(&self, state: &mut GuardState, active: Conditions) {
-        if !state.latched.is_empty()
-            && let Some((cooldown, max)) = self.retry
-        {
-            if state.latched.intersection(active).is_empty() {
-                if state.cooldown_us == 0 && state.retries < max {
-                    state.retries = state.retries.saturating_add(1);
-                    state.latched = Conditions::NONE;
-                }
-            } else {
-                state.cooldown_us = cooldown;
-            }
+        if let Some(r) = self.retry {
+            let counters = (&mut state.cooldown_us, &mut state.retries);
+            crate::condition::retry_latched(&mut state.latched, active, counters, r);
         }
     }
 

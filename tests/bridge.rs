@@ -628,3 +628,37 @@ fn bridge_winding_image_trips_within_the_iec_characteristic() {
         g.winding_temperature(&g.start_idle())
     );
 }
+
+/// Retry on the bridge, as on the low side: a winding image that trips (policy trip) holds the
+/// output off until it has cooled to its reset level, then for the cooldown, then the drive
+/// resumes — at most `max_retries` times; after that the trip stays latched until `clear`,
+/// which restores the count.
+#[test]
+fn bridge_trips_retry_a_bounded_number_of_times() {
+    let mut limits = BridgeLimits::new(3.0, 3.5, 0.05, 1e-3);
+    limits.coil_thermal = Some(coilward::thermal::CoilThermal::new(
+        0.02, 1.0, 1.05, 25.0, 60.0,
+    ));
+    limits.retry = Some(coilward::Retry::new(5e-3, 2));
+    let g = BridgeGuard::new(&params(DecayMode::Slow), &limits).unwrap();
+    let mut s = g.start_idle();
+    let vs = Volts::from_num(12);
+    let (mut resumed, mut was_off, mut tripped) = (0, false, false);
+    for _ in 0..40_000 {
+        let out = g.tick(&mut s, BridgeInput::new(600, vs));
+        tripped |= out.latched.contains(Condition::CoilOverheat);
+        let off = out.duty == 0;
+        if tripped && was_off && !off {
+            resumed += 1;
+        }
+        was_off = off;
+    }
+    assert_eq!(resumed, 2, "two retries, then latched");
+    assert!(s.latched().contains(Condition::CoilOverheat));
+    g.clear(&mut s);
+    let mut drove = false;
+    for _ in 0..40_000 {
+        drove |= g.tick(&mut s, BridgeInput::new(600, vs)).duty > 0;
+    }
+    assert!(drove, "clear restores the drive (and the retries)");
+}

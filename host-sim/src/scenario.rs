@@ -1699,22 +1699,7 @@ fn guard_limits(
             window.map_or(d.window, |x| x as f32),
         ));
     }
-    let cooldown = cx.value("guard.retry_cooldown", &g.retry_cooldown, Unit::Second)?;
-    let retries = cx.count("guard.max_retries", &g.max_retries, 0..256)?;
-    limits.retry = match (cooldown, retries) {
-        (Some(c), r) => Some(Retry::new(
-            c as f32,
-            u8::try_from(r.unwrap_or(3)).unwrap_or(3),
-        )),
-        (None, Some(_)) => {
-            return Err(cx.error(
-                "guard.retry_cooldown",
-                cx.spans.get("guard.max_retries").cloned(),
-                "missing: max_retries needs retry_cooldown",
-            ));
-        }
-        (None, None) => None,
-    };
+    limits.retry = retry_of(cx, &g.retry_cooldown, &g.max_retries)?;
     let mut policy = limits.policy;
     policy.overcurrent = cx.action("guard.overcurrent", &g.overcurrent, policy.overcurrent)?;
     policy.clamp_pulse = cx.action("guard.clamp_pulse", &g.clamp_pulse, policy.clamp_pulse)?;
@@ -2109,6 +2094,28 @@ fn clamp_thermal(cx: &mut Cx, g: &RawGuard) -> Result<Option<ClampThermal>, Scen
         t.hysteresis = h as f32;
     }
     Ok(Some(t))
+}
+
+/// `guard.retry_cooldown` and `guard.max_retries` [3], the same in both topologies' files.
+pub(crate) fn retry_of(
+    cx: &mut Cx,
+    cooldown: &Text,
+    max_retries: &Option<Spanned<i64>>,
+) -> Result<Option<Retry>, ScenarioError> {
+    let cooldown = cx.value("guard.retry_cooldown", cooldown, Unit::Second)?;
+    let retries = cx.count("guard.max_retries", max_retries, 0..256)?;
+    match (cooldown, retries) {
+        (Some(c), r) => Ok(Some(Retry::new(
+            c as f32,
+            u8::try_from(r.unwrap_or(3)).unwrap_or(3),
+        ))),
+        (None, Some(_)) => Err(cx.error(
+            "guard.retry_cooldown",
+            cx.spans.get("guard.max_retries").cloned(),
+            "missing: max_retries needs retry_cooldown",
+        )),
+        (None, None) => Ok(None),
+    }
 }
 
 /// The `[guard]` keys of the winding's thermal image, the same in both topologies' files.

@@ -345,6 +345,12 @@ fn bridge_winding_image_from_the_scenario() {
         r.events
     );
     assert_eq!(r.verdict(), Verdict::Limited, "{:?}", r.findings);
+    // The retry keys, as on the low side.
+    let retrying = text.replace(
+        "[guard]\n",
+        "[guard]\nretry_cooldown = \"1 ms\"\nmax_retries = 1\n",
+    );
+    assert!(scenario(&retrying).limits.retry.is_some());
     let missing = text.replace("coil_rise = \"60 K\"\n", "");
     let e = BridgeScenario::parse(Path::new("valve.toml"), &missing).unwrap_err();
     assert_eq!(e.key.as_deref(), Some("guard.coil_rise"), "{e}");

@@ -43,6 +43,7 @@ use crate::bridge::bound::{BoundState, BridgeBound};
 use crate::bridge::drive::PeriodPlan;
 use crate::bridge::{AppliedDecay, BridgeCoil, BridgeEstimate, BridgeModel, BridgeParams};
 use crate::condition::{Action, Condition, Conditions};
+use crate::guard::Retry;
 use crate::params::{ConfigError, Conflict, Field};
 use crate::thermal::{CoilHeat, CoilReplica, CoilThermal};
 use crate::tolerance::Tolerance;
@@ -117,6 +118,9 @@ pub struct BridgeLimits {
     /// the bound's largest magnitude over the period, so it never runs cooler than the winding
     /// inside the declared tolerance.
     pub coil_thermal: Option<CoilThermal>,
+    /// Automatic retry of latched trips after a cooldown, as on the low side
+    /// ([`crate::GuardLimits::retry`]); `None`: latched until [`BridgeGuard::clear`].
+    pub retry: Option<Retry>,
 }
 
 impl BridgeLimits {
@@ -136,6 +140,7 @@ impl BridgeLimits {
             policy: BridgePolicy::default(),
             tolerance: Tolerance::EXACT,
             coil_thermal: None,
+            retry: None,
         }
     }
 
@@ -263,6 +268,9 @@ pub struct BridgeState {
     latched: Conditions,
     /// The winding image (ambient without one).
     coil_heat: CoilHeat,
+    /// Retry cooldown left, µs, and retries used.
+    cooldown_us: u32,
+    retries: u8,
 }
 
 impl BridgeState {
@@ -323,6 +331,8 @@ pub struct BridgeGuard {
     bound: BridgeBound,
     /// The winding image.
     coil: Option<CoilReplica>,
+    /// Retry of latched trips: cooldown (µs) and count.
+    retry: Option<(u32, u8)>,
 }
 
 fn amps_to_raw(model: &BridgeModel, field: Field, amps: f32) -> Result<i64, ConfigError> {
@@ -394,6 +404,7 @@ impl BridgeGuard {
             model,
             bound,
             coil,
+            retry: crate::guard::retry_of(limits.retry)?,
         })
     }
 
@@ -438,6 +449,8 @@ impl BridgeGuard {
             active: Conditions::NONE,
             latched: Conditions::NONE,
             coil_heat: CoilHeat::default(),
+            cooldown_us: 0,
+            retries: 0,
         }
     }
 
@@ -541,9 +554,11 @@ impl BridgeGuard {
         (0, slow)
     }
 
-    /// Clears latched trips. Conditions still present trip again.
+    /// Clears latched trips (and the retry count). Conditions still present trip again.
     pub fn clear(&self, state: &mut BridgeState) {
         state.latched = Conditions::NONE;
+        state.retries = 0;
+        state.cooldown_us = 0;
     }
 
     /// The period just ended: the estimate's step with the duty and decay applied, the bound's
@@ -824,9 +839,14 @@ impl BridgeGuard {
         // What the interlock and the ceiling act on: the bound's largest magnitude.
         let held = self.bound.magnitude(&state.bound);
 
-        // 2. The conditions.
+        // 2. The conditions, and the retry of latched trips (its cooldown runs in real time).
         let prev = state.active;
+        state.cooldown_us = state.cooldown_us.saturating_sub(self.period_us);
         let (mut active, hold) = self.conditions(state, vs, mag.max(peak));
+        if let Some(r) = self.retry {
+            let counters = (&mut state.cooldown_us, &mut state.retries);
+            crate::condition::retry_latched(&mut state.latched, active, counters, r);
+        }
         let mut decay = if pump {
             active.insert(Condition::SupplyPump);
             match self.policy.supply_pump {

@@ -144,6 +144,8 @@ struct RawGuard {
     coil_reset_level: Option<Spanned<f64>>,
     coil_ambient: Text,
     coil_rise: Text,
+    retry_cooldown: Text,
+    max_retries: Option<Spanned<i64>>,
 }
 
 #[derive(Deserialize)]
@@ -682,6 +684,7 @@ fn guard_limits(
         &g.coil_overheat,
         limits.policy.coil_overheat,
     )?;
+    limits.retry = crate::scenario::retry_of(cx, &g.retry_cooldown, &g.max_retries)?;
     limits.coil_thermal = crate::scenario::coil_thermal_of(
         cx,
         &crate::scenario::CoilThermalKeys {
