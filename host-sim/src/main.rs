@@ -95,6 +95,12 @@ enum Command {
         /// Run only part K of N (samples with index mod N = K − 1).
         #[arg(long, value_name = "K/N")]
         shard: Option<String>,
+        /// Spreads held at their nominal value (comma-separated keys).
+        #[arg(long, value_name = "KEYS", default_value = "")]
+        fixed: String,
+        /// Spreads drawn from the truncated normal whatever the plan (comma-separated keys).
+        #[arg(long, value_name = "KEYS", default_value = "")]
+        normal: String,
         /// Write each sample's outcome here as it finishes (JSON Lines); resumes from it.
         #[arg(long, value_name = "PATH")]
         records: Option<PathBuf>,
@@ -635,9 +641,12 @@ fn target_probability(text: &str) -> Result<f64, ExitCode> {
 }
 
 /// The sweep's size, seed, plan and shard from the command line.
+/// A sweep's size, seed, plan and shard as given.
+type SweepChoice<'a> = (Option<u64>, u64, &'a str, Option<&'a str>);
+
 fn sweep_spec(
     s: &scenario::Loaded,
-    (samples, seed, plan, shard): (Option<u64>, u64, &str, Option<&str>),
+    (samples, seed, plan, shard): SweepChoice,
 ) -> Result<Spec, ExitCode> {
     let bad = |e: String| {
         eprintln!("error: {e}");
@@ -687,6 +696,8 @@ fn sweep_spec(
         seed,
         plan,
         shard,
+        fixed: 0,
+        normal: 0,
     })
 }
 
@@ -732,12 +743,20 @@ fn open_records(
 
 fn sweep_cmd(
     s: &scenario::Loaded,
-    what: (Option<u64>, u64, &str, Option<&str>),
+    (what, (fixed, normal)): (SweepChoice, (&str, &str)),
     (records, json): (Option<&Path>, Option<&Path>),
     target: &str,
 ) -> Result<ExitCode, ExitCode> {
     let file = s.file();
-    let spec = sweep_spec(s, what)?;
+    let mut spec = sweep_spec(s, what)?;
+    let mask = |option: &str, keys: &str| {
+        sweep::mask_of(s, keys).map_err(|e| {
+            eprintln!("error: --{option} {e}");
+            ExitCode::from(2)
+        })
+    };
+    spec.fixed = mask("fixed", fixed)?;
+    spec.normal = mask("normal", normal)?;
     let target = target_probability(target)?;
     let bytes = std::fs::read(file).map_err(|e| {
         eprintln!("error: {}: {e}", file.display());
@@ -995,6 +1014,7 @@ enum OnScenario<'a> {
     /// `sweep` with its sample choice, outputs and target.
     Sweep {
         what: (Option<u64>, u64, &'a str, Option<&'a str>),
+        spreads: (&'a str, &'a str),
         out: (Option<&'a Path>, Option<&'a Path>),
         target: &'a str,
     },
@@ -1012,7 +1032,15 @@ fn on_scenario(file: &Path, what: OnScenario<'_>) -> Result<ExitCode, ExitCode> 
         (OnScenario::Run(out), FullBridge(s)) => run_bridge(s, &out),
         (OnScenario::Check, LowSide(s)) => check(s),
         (OnScenario::Check, FullBridge(s)) => check_bridge(s),
-        (OnScenario::Sweep { what, out, target }, _) => sweep_cmd(&s, what, out, target),
+        (
+            OnScenario::Sweep {
+                what,
+                spreads,
+                out,
+                target,
+            },
+            _,
+        ) => sweep_cmd(&s, (what, spreads), out, target),
         (OnScenario::Faults(json), _) => faults_cmd(&s, json),
     }
 }
@@ -1043,6 +1071,8 @@ fn main() -> ExitCode {
             seed,
             plan,
             shard,
+            fixed,
+            normal,
             records,
             json,
             target,
@@ -1050,6 +1080,7 @@ fn main() -> ExitCode {
             file,
             OnScenario::Sweep {
                 what: (*samples, *seed, plan, shard.as_deref()),
+                spreads: (fixed, normal),
                 out: (records.as_deref(), json.as_deref()),
                 target,
             },

@@ -109,6 +109,11 @@ pub struct Spec {
     pub plan: Plan,
     /// The part of the sweep to run.
     pub shard: Shard,
+    /// Spreads (bit j: the scenario's spread j) held at the middle of their range (their
+    /// nominal value), whatever the plan.
+    pub fixed: u64,
+    /// Spreads drawn from the truncated normal whatever the plan (but corners).
+    pub normal: u64,
 }
 
 impl Spec {
@@ -119,6 +124,8 @@ impl Spec {
             seed,
             plan: Plan::Uniform,
             shard: Shard::ALL,
+            fixed: 0,
+            normal: 0,
         }
     }
 }
@@ -166,11 +173,14 @@ impl Shard {
 pub fn positions(spec: &Spec, d: usize, index: u64) -> Vec<f64> {
     let mut rng = ChaCha8Rng::seed_from_u64(spec.seed);
     rng.set_stream(index);
+    let marked = |mask: u64, j: usize| j < 64 && mask >> j & 1 == 1;
     (0..d)
         .map(|j| match spec.plan {
+            _ if marked(spec.fixed, j) => 0.5,
+            Plan::Corners => f64::from(u8::from(marked(index, j))),
+            _ if marked(spec.normal, j) => truncated_normal(&mut rng),
             Plan::Uniform => rng.random::<f64>(),
             Plan::Normal => truncated_normal(&mut rng),
-            Plan::Corners => f64::from(u8::from(j < 64 && index >> j & 1 == 1)),
             Plan::Latin => {
                 let stratum = permute(index, spec.samples, spec.seed, j as u64);
                 (stratum as f64 + rng.random::<f64>()) / spec.samples as f64
@@ -349,6 +359,32 @@ pub fn sample_keys(s: &Loaded) -> Vec<String> {
     }
 }
 
+/// The keys of the spreads `mask` marks (bit j: spread j).
+pub fn marked_keys(s: &Loaded, mask: u64) -> Vec<String> {
+    sample_keys(s)
+        .into_iter()
+        .enumerate()
+        .filter(|&(j, _)| j < 64 && mask >> j & 1 == 1)
+        .map(|(_, k)| k)
+        .collect()
+}
+
+/// The mask of the spreads named in `keys` (comma-separated), or the name that is not a spread
+/// of the scenario.
+pub fn mask_of(s: &Loaded, keys: &str) -> Result<u64, String> {
+    let all = sample_keys(s);
+    keys.split(',')
+        .map(str::trim)
+        .filter(|k| !k.is_empty())
+        .try_fold(0u64, |mask, k| match all.iter().position(|a| a == k) {
+            Some(j) if j < 64 => Ok(mask | 1 << j),
+            _ => Err(format!(
+                "`{k}` is not one of the scenario's spreads ({})",
+                all.join(", ")
+            )),
+        })
+}
+
 /// The unit of a drawn value's key, for reports.
 pub fn unit_of(s: &Loaded, key: &str) -> &'static str {
     match s {
@@ -435,6 +471,35 @@ mod tests {
                     .collect()
             })
             .collect()
+    }
+
+    /// A fixed spread stays at its middle (the nominal value) in every plan; a spread marked
+    /// normal is drawn so under a uniform plan.
+    #[test]
+    fn per_spread_choices_override_the_plan() {
+        let s = valve();
+        for plan in Plan::ALL {
+            let spec = Spec {
+                plan,
+                fixed: 0b1,
+                normal: 0b10,
+                ..Spec::uniform(64, 3)
+            };
+            for p in spots(&s, &spec) {
+                assert!((p[0] - 0.5).abs() < 1e-12, "{plan:?}: {}", p[0]);
+            }
+        }
+        let spec = Spec {
+            normal: 0b10,
+            ..Spec::uniform(2000, 3)
+        };
+        let outer = spots(&s, &spec)
+            .iter()
+            .filter(|p| !(1.0 / 6.0..=5.0 / 6.0).contains(&p[1]))
+            .count();
+        // The range is ±3σ, so its outer sixths lie beyond ±2σ: 4.3 % of the truncated normal's
+        // draws (2Φ(−2)/(2Φ(3) − 1), about 86 of 2000) against a third of a uniform's (667).
+        assert!(outer < 150, "{outer} of 2000 in the outer sixths");
     }
 
     /// Latin hypercube: in every spread, each of the N strata holds exactly one sample.

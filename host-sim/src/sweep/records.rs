@@ -38,6 +38,10 @@ pub struct Header {
     pub plan: Plan,
     /// The shard, `K/N`.
     pub shard: String,
+    /// Spreads held at their nominal value, by key.
+    pub fixed: Vec<String>,
+    /// Spreads drawn from the truncated normal whatever the plan, by key.
+    pub normal: Vec<String>,
 }
 
 impl Header {
@@ -61,6 +65,8 @@ impl Header {
             sweep_size: spec.samples,
             plan: spec.plan,
             shard: format!("{}/{}", spec.shard.k, spec.shard.n),
+            fixed: super::marked_keys(s, spec.fixed),
+            normal: super::marked_keys(s, spec.normal),
         }
     }
 
@@ -86,6 +92,12 @@ impl Header {
             return Some(format!(
                 "{} samples in the whole sweep against {}",
                 other.sweep_size, self.sweep_size
+            ));
+        }
+        if (&self.fixed, &self.normal) != (&other.fixed, &other.normal) {
+            return Some(format!(
+                "fixed {:?} and normal {:?} against {:?} and {:?}",
+                other.fixed, other.normal, self.fixed, self.normal
             ));
         }
         if self.plan != other.plan {
