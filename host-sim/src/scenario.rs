@@ -1175,7 +1175,7 @@ impl Scenario {
         let adc = adc_values(&mut cx, &raw)?;
         let ticks = ticks_values(&mut cx, &raw)?;
         let start = start_values(&mut cx, &raw)?;
-        let drive = drive_steps(&mut cx, &raw, path)?;
+        let drive = drive_steps(&mut cx, &raw)?;
         let calls = calls(&mut cx, &raw, &drive, &mut assumed)?;
         let supply_profile = supply_profile(&mut cx, &raw)?;
         let duration = run_duration(&mut cx, &raw, period)?;
@@ -1840,28 +1840,56 @@ fn start_values(cx: &mut Cx, raw: &Raw) -> Result<Start, ScenarioError> {
 }
 
 /// `[[drive]]`: the steps, in time order, at least one.
-fn drive_steps(cx: &mut Cx, raw: &Raw, path: &Path) -> Result<Vec<Step>, ScenarioError> {
-    let mut drive = Vec::new();
-    for (n, d) in raw.drive.iter().enumerate() {
+fn drive_steps(cx: &mut Cx, raw: &Raw) -> Result<Vec<Step>, ScenarioError> {
+    let duty = DutyRange {
+        range: 0.0..=1.0,
+        words: "must be within 0 % ..= 100 %",
+        example: "100 %",
+    };
+    let steps = raw.drive.iter().map(|d| (&d.at, &d.duty));
+    Ok(drive_of(cx, steps, &duty)?
+        .into_iter()
+        .map(|(at, duty)| Step { at, duty })
+        .collect())
+}
+
+/// The duty a topology's `[[drive]]` steps take: its range, the words for it, an example.
+pub(crate) struct DutyRange {
+    pub(crate) range: std::ops::RangeInclusive<f64>,
+    pub(crate) words: &'static str,
+    pub(crate) example: &'static str,
+}
+
+/// `[[drive]]`: (start, duty) steps from their `at` and `duty` keys, in time order, at least
+/// one, each duty within `duty.range` (both topologies).
+pub(crate) fn drive_of<'a>(
+    cx: &mut Cx,
+    steps: impl Iterator<Item = (&'a Text, &'a Text)>,
+    duty: &DutyRange,
+) -> Result<Vec<(f64, f64)>, ScenarioError> {
+    let mut drive: Vec<(f64, f64)> = Vec::new();
+    for (n, (raw_at, raw_duty)) in steps.enumerate() {
         let key_at = format!("drive[{n}].at");
         let key_duty = format!("drive[{n}].duty");
-        let at = cx.required(&key_at, &d.at, Unit::Second)?;
-        let duty = cx.required(&key_duty, &d.duty, Unit::Percent)?;
-        cx.check(
-            &key_duty,
-            (0.0..=1.0).contains(&duty),
-            "must be within 0 % ..= 100 %",
-        )?;
+        let at = cx.required(&key_at, raw_at, Unit::Second)?;
+        let d = cx.required(&key_duty, raw_duty, Unit::Percent)?;
+        cx.check(&key_duty, duty.range.contains(&d), duty.words)?;
         cx.check(&key_at, at >= 0.0, "must not be negative")?;
-        if let Some(prev) = drive.last().map(|s: &Step| s.at) {
+        if let Some(&(prev, _)) = drive.last() {
             cx.check(&key_at, at >= prev, "the drive steps must be in time order")?;
         }
-        drive.push(Step { at, duty });
+        drive.push((at, d));
     }
     if drive.is_empty() {
-        return Err(ScenarioError { file: path.to_path_buf(), at: None, key: Some("drive".into()), message: "no [[drive]] steps: give at least one, e.g. [[drive]] at = \"0 s\" duty = \"100 %\"".into() });
+        return Err(cx.error(
+            "drive",
+            None,
+            format!(
+                "no [[drive]] steps: give at least one, e.g. [[drive]] at = \"0 s\" duty = \"{}\"",
+                duty.example
+            ),
+        ));
     }
-
     Ok(drive)
 }
 

@@ -702,31 +702,16 @@ fn guard_limits(
 
 /// `[[drive]]`: the signed steps, in time order, at least one.
 fn drive_steps(cx: &mut Cx, raw: &Raw) -> Result<Vec<BridgeStep>, ScenarioError> {
-    let mut drive = Vec::new();
-    for (n, d) in raw.drive.iter().enumerate() {
-        let key_at = format!("drive[{n}].at");
-        let key_duty = format!("drive[{n}].duty");
-        let at = cx.required(&key_at, &d.at, Unit::Second)?;
-        let duty = cx.required(&key_duty, &d.duty, Unit::Percent)?;
-        cx.check(
-            &key_duty,
-            (-1.0..=1.0).contains(&duty),
-            "must be within -100 % ..= 100 % (the sign is the direction)",
-        )?;
-        cx.check(&key_at, at >= 0.0, "must not be negative")?;
-        if let Some(prev) = drive.last().map(|s: &BridgeStep| s.at) {
-            cx.check(&key_at, at >= prev, "the drive steps must be in time order")?;
-        }
-        drive.push(BridgeStep { at, duty });
-    }
-    if drive.is_empty() {
-        return Err(cx.error(
-            "drive",
-            None,
-            "no [[drive]] steps: give at least one, e.g. [[drive]] at = \"0 s\" duty = \"-60 %\"",
-        ));
-    }
-    Ok(drive)
+    let duty = crate::scenario::DutyRange {
+        range: -1.0..=1.0,
+        words: "must be within -100 % ..= 100 % (the sign is the direction)",
+        example: "-60 %",
+    };
+    let steps = raw.drive.iter().map(|d| (&d.at, &d.duty));
+    Ok(crate::scenario::drive_of(cx, steps, &duty)?
+        .into_iter()
+        .map(|(at, duty)| BridgeStep { at, duty })
+        .collect())
 }
 
 #[cfg(test)]
