@@ -198,6 +198,7 @@ pub(crate) fn act(
 /// condition is gone and the cooldown (`cooldown_us`, counted down by the caller in real time;
 /// restarted while any of them is still present) has run out, the latches clear, at most
 /// `max` times until the firmware clears them itself.
+#[inline]
 pub(crate) fn retry_latched(
     latched: &mut Conditions,
     active: Conditions,
