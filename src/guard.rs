@@ -1530,9 +1530,9 @@ impl Guard {
             );
         }
         // Winding image, with hysteresis: once raised it clears only at the reset level.
+        let raised = prev.contains(Condition::CoilOverheat);
         if let Some(c) = &self.coil
-            && (c.tripped(&state.coil_heat)
-                || (prev.contains(Condition::CoilOverheat) && !c.cooled(&state.coil_heat)))
+            && c.overheated(&state.coil_heat, raised)
         {
             apply(
                 &mut active,

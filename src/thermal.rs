@@ -629,6 +629,12 @@ impl CoilReplica {
         Some(t.min(u128::from(u32::MAX)) as u32)
     }
 
+    /// `coil-overheat` with hysteresis: at the trip level, or still above the reset level
+    /// when it was raised already (`raised`). Both guards decide it so.
+    pub fn overheated(&self, heat: &CoilHeat, raised: bool) -> bool {
+        self.tripped(heat) || (raised && !self.cooled(heat))
+    }
+
     /// Whether the image has reached the trip level k².
     pub fn tripped(&self, heat: &CoilHeat) -> bool {
         heat.theta >= self.trip

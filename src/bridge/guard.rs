@@ -646,9 +646,9 @@ impl BridgeGuard {
             );
         }
         // Winding image, with hysteresis: once raised it clears only at the reset level.
+        let raised = state.active.contains(Condition::CoilOverheat);
         if let Some(c) = &self.coil
-            && (c.tripped(&state.coil_heat)
-                || (state.active.contains(Condition::CoilOverheat) && !c.cooled(&state.coil_heat)))
+            && c.overheated(&state.coil_heat, raised)
         {
             apply(
                 &mut active,

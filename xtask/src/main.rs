@@ -394,41 +394,47 @@ fn target_bench() -> Result<(), String> {
             "size core={} bridge-state={bridge_state}",
             core.name
         );
-        // Run-time code: the panic-free build (every per-tick entry point plus configuration)
-        // less the configuration-only build. Configuration, and the loading of a guard from
-        // bytes (feature `flash`), are reported apart.
-        let all = text_size(&elf(core, "nopanic"))?;
-        let config = text_size(&elf(core, "configonly"))?;
-        let base = text_size(&elf(core, "baseline"))?;
-        let load = text_size(&elf(core, "loadonly"))?.saturating_sub(base);
-        let _ = writeln!(
-            report,
-            "size core={} text={} state={state}",
-            core.name,
-            all.saturating_sub(config)
-        );
-        let _ = writeln!(report, "size core={} load-text={load}", core.name);
-        let _ = writeln!(
-            report,
-            "size core={} configure-text={}",
-            core.name,
-            config.saturating_sub(base)
-        );
-        // Float code linked: with the model flashed as bytes, and configured at run time.
-        let _ = writeln!(
-            report,
-            "size core={} float-text={}",
-            core.name,
-            float_text(&elf(core, "flashed"))?
-        );
-        let _ = writeln!(
-            report,
-            "size core={} configured-float-text={}",
-            core.name,
-            float_text(&elf(core, "nopanic"))?
-        );
+        sizes(core, state, &mut report)?;
     }
     print!("{report}");
+    Ok(())
+}
+
+/// The size lines of one core: run-time code, state, the loader, configuration, float code.
+fn sizes(core: &Core, state: &str, report: &mut String) -> Result<(), String> {
+    // Run-time code: the panic-free build (every per-tick entry point plus configuration)
+    // less the configuration-only build. Configuration, and the loading of a guard from
+    // bytes (feature `flash`), are reported apart.
+    let all = text_size(&elf(core, "nopanic"))?;
+    let config = text_size(&elf(core, "configonly"))?;
+    let base = text_size(&elf(core, "baseline"))?;
+    let load = text_size(&elf(core, "loadonly"))?.saturating_sub(base);
+    let _ = writeln!(
+        report,
+        "size core={} text={} state={state}",
+        core.name,
+        all.saturating_sub(config)
+    );
+    let _ = writeln!(report, "size core={} load-text={load}", core.name);
+    let _ = writeln!(
+        report,
+        "size core={} configure-text={}",
+        core.name,
+        config.saturating_sub(base)
+    );
+    // Float code linked: with the model flashed as bytes, and configured at run time.
+    let _ = writeln!(
+        report,
+        "size core={} float-text={}",
+        core.name,
+        float_text(&elf(core, "flashed"))?
+    );
+    let _ = writeln!(
+        report,
+        "size core={} configured-float-text={}",
+        core.name,
+        float_text(&elf(core, "nopanic"))?
+    );
     Ok(())
 }
 

@@ -372,12 +372,7 @@ impl BridgeScenario {
             period > 0.0 && period <= 1.0,
             "must be above 0 s and at most 1 s",
         )?;
-        let resolution = cx
-            .count("control.duty_resolution", &c.duty_resolution, 1..65_536)?
-            .unwrap_or_else(|| {
-                assumed.push("control.duty_resolution = 1000".into());
-                1000
-            }) as u32;
+        let resolution = duty_resolution(&mut cx, c, &mut assumed)?;
         let (mut limits, full_scale, trip) = guard_limits(&mut cx, &raw, &mut assumed)?;
 
         let drive = drive_steps(&mut cx, &raw)?;
@@ -543,6 +538,20 @@ struct CircuitValues {
     dead_time: f64,
     vf: f64,
     rd: f64,
+}
+
+/// `control.duty_resolution` [1000].
+fn duty_resolution(
+    cx: &mut Cx,
+    c: &RawControl,
+    assumed: &mut Vec<String>,
+) -> Result<u32, ScenarioError> {
+    Ok(cx
+        .count("control.duty_resolution", &c.duty_resolution, 1..65_536)?
+        .unwrap_or_else(|| {
+            assumed.push("control.duty_resolution = 1000".into());
+            1000
+        }) as u32)
 }
 
 /// `[decay]`: the mode, and the fast share of a mixed one.
