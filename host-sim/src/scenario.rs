@@ -1635,21 +1635,30 @@ fn control_values(
     ct: &RawControl,
     assumed: &mut Vec<String>,
 ) -> Result<(f64, u32), ScenarioError> {
-    let period = cx.required("control.period", &ct.period, Unit::Second)?;
+    period_and_resolution(cx, &ct.period, &ct.duty_resolution, assumed)
+}
+
+/// `control.period` (above 0, at most 1 s) and `control.duty_resolution` [1000], the same in
+/// both topologies' files.
+pub(crate) fn period_and_resolution(
+    cx: &mut Cx,
+    period: &Text,
+    resolution: &Option<Spanned<i64>>,
+    assumed: &mut Vec<String>,
+) -> Result<(f64, u32), ScenarioError> {
+    let period = cx.required("control.period", period, Unit::Second)?;
     cx.check(
         "control.period",
         period > 0.0 && period <= 1.0,
         "must be above 0 s and at most 1 s",
     )?;
-    let duty_resolution =
-        match cx.count("control.duty_resolution", &ct.duty_resolution, 1..65_536)? {
-            Some(n) => u32::try_from(n).unwrap_or(1000),
-            None => {
-                assumed.push("control.duty_resolution = 1000".to_string());
-                1000
-            }
-        };
-
+    let duty_resolution = match cx.count("control.duty_resolution", resolution, 1..65_536)? {
+        Some(n) => u32::try_from(n).unwrap_or(1000),
+        None => {
+            assumed.push("control.duty_resolution = 1000".to_string());
+            1000
+        }
+    };
     Ok((period, duty_resolution))
 }
 

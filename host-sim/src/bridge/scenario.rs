@@ -366,13 +366,12 @@ impl BridgeScenario {
         let bus = bus_values(&mut cx, &raw, &mut assumed)?;
 
         let c = &raw.control;
-        let period = cx.required("control.period", &c.period, Unit::Second)?;
-        cx.check(
-            "control.period",
-            period > 0.0 && period <= 1.0,
-            "must be above 0 s and at most 1 s",
+        let (period, resolution) = crate::scenario::period_and_resolution(
+            &mut cx,
+            &c.period,
+            &c.duty_resolution,
+            &mut assumed,
         )?;
-        let resolution = duty_resolution(&mut cx, c, &mut assumed)?;
         let (mut limits, full_scale, trip) = guard_limits(&mut cx, &raw, &mut assumed)?;
 
         let drive = drive_steps(&mut cx, &raw)?;
@@ -538,20 +537,6 @@ struct CircuitValues {
     dead_time: f64,
     vf: f64,
     rd: f64,
-}
-
-/// `control.duty_resolution` [1000].
-fn duty_resolution(
-    cx: &mut Cx,
-    c: &RawControl,
-    assumed: &mut Vec<String>,
-) -> Result<u32, ScenarioError> {
-    Ok(cx
-        .count("control.duty_resolution", &c.duty_resolution, 1..65_536)?
-        .unwrap_or_else(|| {
-            assumed.push("control.duty_resolution = 1000".into());
-            1000
-        }) as u32)
 }
 
 /// `[decay]`: the mode, and the fast share of a mixed one.

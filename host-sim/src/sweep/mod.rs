@@ -38,13 +38,6 @@ pub struct Sample {
     pub parameters: Vec<(String, f64)>,
 }
 
-impl Sample {
-    /// A figure: `Some(None)` never reached, `None` not measured.
-    pub fn figure(&self, key: &str) -> Option<Option<f64>> {
-        self.figures.get(key).copied()
-    }
-}
-
 /// How a sweep draws each spread's value.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
