@@ -197,7 +197,14 @@ pub fn netlist_at(k: &Case, accuracy: Accuracy) -> String {
 /// The same drive on the plant, measured as the netlist measures it: (peak current, mean current over the last period, decay time,
 /// clamp + avalanche energy after the turn-off, peak node after it).
 pub fn plant(k: &Case) -> Result<(f64, f64, Option<f64>, f64, f64), PlantError> {
+    plant_with(k, true)
+}
+
+/// [`plant`] with the replay of settled runs on or off ([`Plant::reuse`]): the same results,
+/// bit for bit, at another cost.
+pub fn plant_with(k: &Case, reuse: bool) -> Result<(f64, f64, Option<f64>, f64, f64), PlantError> {
     let mut p = Plant::new(k.c, State::at_rest(k.c.supply));
+    p.reuse = reuse;
     let mut peak = p.state.current;
     let mut last = Tally::starting(p.state);
     for n in 0..k.periods {

@@ -27,8 +27,10 @@
 //! avalanche, and on request (`Tally::all_energies`) winding, switch and source, which the energy
 //! balance test closes to 10⁻⁶. Peaks come from the turning points.
 
+mod settled;
 pub mod wave;
 
+use settled::{Figures, RunKey, Runs};
 use wave::{Modes, Singular, Solution, Wave};
 
 /// The resistance given to a path the scenario calls ideal (0 Ω), Ω.
@@ -229,7 +231,7 @@ impl From<Singular> for PlantError {
 }
 
 /// The circuit with its state.
-#[derive(Debug, Clone, Copy)]
+#[derive(Debug, Clone)]
 pub struct Plant {
     /// Circuit values.
     pub circuit: Circuit,
@@ -240,6 +242,14 @@ pub struct Plant {
     /// The modes of the systems met so far, by conduction mode and switch, for the circuit
     /// they were solved for (a steady drive meets the same few again every period).
     modes: ([Option<Solved>; 8], usize, Circuit),
+    /// Replay a run already computed from the same state instead of solving it again (the
+    /// results are the same bit for bit; see [`settled`]). On by default.
+    pub reuse: bool,
+    /// The last runs computed, the segments of the run under way and how many runs were
+    /// replayed.
+    runs: Runs,
+    segments: Vec<Figures>,
+    replayed: u64,
 }
 
 /// A system's modes, by the conduction mode and the switch it was solved for.
@@ -257,7 +267,16 @@ impl Plant {
             mode: Mode::default(),
             mode_known: false,
             modes: ([None; 8], 0, circuit),
+            reuse: true,
+            runs: Runs::default(),
+            segments: Vec::new(),
+            replayed: 0,
         }
+    }
+
+    /// How many runs were replayed from a run computed before.
+    pub fn replayed(&self) -> u64 {
+        self.replayed
     }
 
     /// Changes the source voltage (a supply that moves between intervals).
@@ -373,6 +392,37 @@ impl Plant {
             self.mode = self.mode_from_state();
             self.mode_known = true;
         }
+        let key = self.reuse.then(|| {
+            RunKey::new(
+                &self.circuit,
+                (self.mode, self.state),
+                (on, duration),
+                tally,
+            )
+        });
+        if let Some(run) = key.and_then(|k| self.runs.find(&k)) {
+            for f in &run.segments {
+                f.add_to(tally);
+            }
+            tally.events += run.events;
+            (self.mode, self.state) = run.end;
+            self.replayed += 1;
+            return Ok(());
+        }
+        self.segments.clear();
+        let events = self.compute(on, duration, tally)?;
+        if let Some(k) = key
+            && self.segments.len() <= settled::MOST_SEGMENTS
+        {
+            let end = (self.mode, self.state);
+            self.runs.keep(k, end, &self.segments, events);
+        }
+        Ok(())
+    }
+
+    /// [`Plant::run`] solved segment by segment (each segment's figures kept in
+    /// `self.segments`); returns the path changes resolved.
+    fn compute(&mut self, on: bool, duration: f64, tally: &mut Tally) -> Result<u64, PlantError> {
         let mut left = duration;
         let mut events = 0usize;
         while left > 0.0 {
@@ -394,7 +444,12 @@ impl Plant {
                     }
                 }
             }
-            self.account(&sol, on, end, tally);
+            if let Some(f) = self.account(&sol, on, end, tally) {
+                f.add_to(tally);
+                if self.segments.len() <= settled::MOST_SEGMENTS {
+                    self.segments.push(f);
+                }
+            }
             let x = sol.at(end);
             self.state = State {
                 current: x[0],
@@ -410,7 +465,7 @@ impl Plant {
                 }
             }
         }
-        Ok(())
+        Ok(events as u64)
     }
 
     /// The modes of the system in mode `m` with the switch `on`, solved once per circuit.
@@ -431,75 +486,73 @@ impl Plant {
         Ok(k)
     }
 
-    /// Adds one segment of `t` seconds to the tally, in closed form.
-    fn account(&self, sol: &Solution, on: bool, t: f64, tally: &mut Tally) {
+    /// What one segment of `t` seconds adds to `tally`, in closed form (the tally is read for
+    /// what it asks for, not changed).
+    fn account(&self, sol: &Solution, on: bool, t: f64, tally: &Tally) -> Option<Figures> {
         if t <= 0.0 {
-            return;
+            return None;
         }
         let c = &self.circuit;
         let m = self.mode;
+        let all = tally.all_energies;
         let i = sol.wave([1.0, 0.0], 0.0);
         let v = sol.wave([0.0, 1.0], 0.0);
-        if let (Some(thr), None) = (tally.watch, tally.below_at) {
-            let below = sol.wave([-1.0, 0.0], thr);
-            if let Some(x) = below.first_rise(t) {
-                tally.below_at = Some(tally.time_offset + tally.time + x);
-            }
-        }
+        let below = match (tally.watch, tally.below_at) {
+            (Some(thr), None) => sol.wave([-1.0, 0.0], thr).first_rise(t),
+            _ => None,
+        };
         let (ihi, ilo) = i.range(t);
         let (vhi, _) = v.range(t);
-        tally.time += t;
-        tally.charge += i.integral(t);
-        tally.peak_current = tally.peak_current.max(ihi);
-        tally.least_current = tally.least_current.min(ilo);
-        tally.peak_node = tally.peak_node.max(vhi);
-        if tally.all_energies {
-            tally.winding_energy += c.resistance * i.integral_of_product(&i, t);
-        }
         // A node-to-ground element (e, r): its current (v − e)/r, its power v·(v − e)/r.
         let node_element = |e: f64, r: f64| {
             let r = Self::r(r);
             let cur: Wave = sol.wave([0.0, 1.0 / r], -e / r);
             v.integral_of_product(&cur, t)
         };
-        if on && tally.all_energies {
-            tally.switch_energy += node_element(0.0, c.on_resistance);
-        }
-        if m.has(Part::Body) && tally.all_energies {
-            tally.switch_energy += node_element(-c.body_diode_drop, 0.0);
-        }
-        if m.has(Part::Avalanche) {
-            tally.avalanche_energy += node_element(c.breakdown, c.avalanche_resistance);
-            tally.avalanche_time += t;
-        }
-        if let (
-            true,
-            ClampKind::Switch {
-                voltage,
-                resistance,
-            },
-        ) = (m.has(Part::Clamp), c.clamp)
-        {
-            tally.clamp_energy += node_element(voltage, resistance);
-        }
+        let clamp_switch = match (m.has(Part::Clamp), c.clamp) {
+            (
+                true,
+                ClampKind::Switch {
+                    voltage,
+                    resistance,
+                },
+            ) => Some(node_element(voltage, resistance)),
+            _ => None,
+        };
         // Source current: i minus the freewheel current; the source delivers V_s·i_s and its
         // resistance takes R_s·i_s² (counted as delivered less that loss).
         let (rs, vs) = (c.source_resistance, c.supply);
-        let source_current = match self.freewheel() {
+        let (source_current, clamp_freewheel) = match self.freewheel() {
             Some((vd, rd)) if m.has(Part::Freewheel) => {
                 let rt = Self::r(rd) + rs;
                 // i_d = (v − V_s − V_d + R_s·i)/(R_d + R_s); power V_d·i_d + R_d·i_d².
                 let id = sol.wave([rs / rt, 1.0 / rt], -(vs + vd) / rt);
-                tally.clamp_energy +=
-                    vd * id.integral(t) + Self::r(rd) * id.integral_of_product(&id, t);
-                sol.wave([1.0 - rs / rt, -1.0 / rt], (vs + vd) / rt)
+                let e = vd * id.integral(t) + Self::r(rd) * id.integral_of_product(&id, t);
+                let source = sol.wave([1.0 - rs / rt, -1.0 / rt], (vs + vd) / rt);
+                (source, Some(e))
             }
-            _ => i,
+            _ => (i, None),
         };
-        if tally.all_energies {
-            tally.source_energy += vs * source_current.integral(t)
-                - rs * source_current.integral_of_product(&source_current, t);
-        }
+        Some(Figures {
+            t,
+            charge: i.integral(t),
+            ihi,
+            ilo,
+            vhi,
+            below,
+            winding: all.then(|| c.resistance * i.integral_of_product(&i, t)),
+            switch_on: (on && all).then(|| node_element(0.0, c.on_resistance)),
+            switch_body: (m.has(Part::Body) && all).then(|| node_element(-c.body_diode_drop, 0.0)),
+            avalanche: m
+                .has(Part::Avalanche)
+                .then(|| node_element(c.breakdown, c.avalanche_resistance)),
+            clamp_switch,
+            clamp_freewheel,
+            source: all.then(|| {
+                vs * source_current.integral(t)
+                    - rs * source_current.integral_of_product(&source_current, t)
+            }),
+        })
     }
 
     /// The supply rail at the coil's terminal (after the source resistance), V.
@@ -610,6 +663,59 @@ mod tests {
                 (lhs - rhs).abs() < 1e-6 * lhs.abs().max(1e-9),
                 "{clamp:?}: {lhs} vs {rhs}"
             );
+        }
+    }
+
+    #[test]
+    fn a_replayed_run_is_the_run_computed() {
+        // A settled drive is replayed from the runs kept (settled.rs); the same drive computed
+        // segment by segment must leave the same tallies and states, bit for bit, whatever
+        // the path, with the supply moving and the tally asking for more or less.
+        let saturating = Circuit {
+            saturation: Some((0.5, 0.012)),
+            ..valve(ClampKind::Freewheel {
+                drop: 0.7,
+                resistance: 0.05,
+            })
+        };
+        for c in [
+            valve(ClampKind::None),
+            valve(ClampKind::Freewheel {
+                drop: 0.7,
+                resistance: 0.05,
+            }),
+            valve(ClampKind::Switch {
+                voltage: 45.0,
+                resistance: 0.5,
+            }),
+            saturating,
+        ] {
+            let mut kept = Plant::new(c, State::at_rest(24.0));
+            let mut computed = kept.clone();
+            computed.reuse = false;
+            // Each supply long enough to settle (about 1 500 periods here).
+            for n in 0..6000u32 {
+                let supply = if n < 3000 { 24.0 } else { 26.0 };
+                let mut tallies = Vec::new();
+                for p in [&mut kept, &mut computed] {
+                    p.set_supply(supply);
+                    let mut on = Tally::starting(p.state);
+                    on.all_energies = n % 3 == 0;
+                    p.run(true, 30e-6, &mut on).unwrap();
+                    let mut off = Tally::starting(p.state);
+                    off.watch = Some(0.3);
+                    off.time_offset = f64::from(n) * 50e-6;
+                    p.run(false, 20e-6, &mut off).unwrap();
+                    tallies.push(format!("{on:?} {off:?} {:?}", p.state));
+                }
+                assert_eq!(tallies[0], tallies[1], "{c:?}, period {n}");
+            }
+            assert!(
+                kept.replayed() > 2000,
+                "{c:?}: {} replayed",
+                kept.replayed()
+            );
+            assert_eq!(computed.replayed(), 0);
         }
     }
 

@@ -63,6 +63,48 @@ fn phi(mu: C, t: f64) -> C {
     }
 }
 
+/// Turning points a wave yields at most (a ring of more half-cycles inside one segment is
+/// taken as monotonic past them).
+const MOST_TURNS: usize = 64;
+
+/// A wave's turning points, one after the other: `next`, `next + step`, … (summed as they
+/// come) below `t_end`, at most `left` more, until a decaying oscillation (`fade`: its rate,
+/// its amplitude at 0 and the level below which it no longer counts) has faded.
+struct Turns {
+    next: f64,
+    step: f64,
+    t_end: f64,
+    left: usize,
+    fade: Option<(f64, f64, f64)>,
+}
+
+impl Iterator for Turns {
+    type Item = f64;
+
+    fn next(&mut self) -> Option<f64> {
+        loop {
+            let t = self.next;
+            if self.left == 0 || t >= self.t_end {
+                return None;
+            }
+            self.next += self.step;
+            if t <= 0.0 {
+                continue;
+            }
+            if let Some((m, amp0, level)) = self.fade
+                // Once the oscillation has decayed below 10⁻¹² of its start, the rest of the
+                // segment is monotonic for every purpose here.
+                && exp(m * t) * amp0 < level
+            {
+                self.left = 0;
+                return None;
+            }
+            self.left -= 1;
+            return Some(t);
+        }
+    }
+}
+
 impl Wave {
     /// g(t).
     pub fn at(&self, t: f64) -> f64 {
@@ -89,45 +131,46 @@ impl Wave {
         self.alpha
     }
 
-    /// Times in (0, t_end) where g′ = 0, ascending, into `out`; returns how many.
-    fn turning_points(&self, t_end: f64, out: &mut [f64; 64]) -> usize {
-        let mut n = 0;
+    /// Times in (0, t_end) where g′ = 0, ascending (at most [`MOST_TURNS`]; nothing is
+    /// buffered, so a wave that turns once costs no array).
+    fn turning_points(&self, t_end: f64) -> Turns {
+        let none = Turns {
+            next: 0.0,
+            step: 0.0,
+            t_end,
+            left: 0,
+            fade: None,
+        };
         if self.terms == 2 {
             let (d1, d2) = (self.z[0].re * self.mu[0].re, self.z[1].re * self.mu[1].re);
             let gap = self.mu[0].re - self.mu[1].re;
             if d1 != 0.0 && d2 != 0.0 && (d1 > 0.0) != (d2 > 0.0) && gap != 0.0 {
                 let t = (-d2 / d1).ln() / gap;
                 if t > 0.0 && t < t_end {
-                    out[0] = t;
-                    n = 1;
+                    return Turns {
+                        next: t,
+                        left: 1,
+                        ..none
+                    };
                 }
             }
-        } else {
-            let d = self.z[0] * self.mu[0];
-            let w = self.mu[0].im;
-            if d.norm() == 0.0 || w <= 0.0 {
-                return 0;
-            }
-            // Re(d e^{μt}) = |d| e^{mt} cos(ωt + arg d) = 0 at ωt = π/2 − arg d + kπ.
-            let first = (core::f64::consts::FRAC_PI_2 - d.arg()).rem_euclid(core::f64::consts::PI);
-            let mut t = first / w;
-            let step = core::f64::consts::PI / w;
-            let m = self.mu[0].re;
-            let amp0 = self.z[0].norm();
-            while t < t_end && n < out.len() {
-                if t > 0.0 {
-                    // Once the oscillation has decayed below 10⁻¹² of its start, the rest of
-                    // the segment is monotonic for every purpose here.
-                    if exp(m * t) * amp0 < 1e-12 * (amp0 + self.alpha.abs()) {
-                        break;
-                    }
-                    out[n] = t;
-                    n += 1;
-                }
-                t += step;
-            }
+            return none;
         }
-        n
+        let d = self.z[0] * self.mu[0];
+        let w = self.mu[0].im;
+        if d.norm() == 0.0 || w <= 0.0 {
+            return none;
+        }
+        // Re(d e^{μt}) = |d| e^{mt} cos(ωt + arg d) = 0 at ωt = π/2 − arg d + kπ.
+        let first = (core::f64::consts::FRAC_PI_2 - d.arg()).rem_euclid(core::f64::consts::PI);
+        let amp0 = self.z[0].norm();
+        Turns {
+            next: first / w,
+            step: core::f64::consts::PI / w,
+            t_end,
+            left: MOST_TURNS,
+            fade: Some((self.mu[0].re, amp0, 1e-12 * (amp0 + self.alpha.abs()))),
+        }
     }
 
     /// The first time in (0, t_end] at which g becomes positive, if it does; `Some(0.0)` if it
@@ -158,9 +201,7 @@ impl Wave {
         if decaying && ga + t_end * climb <= 0.0 {
             return None;
         }
-        let mut tp = [0.0; 64];
-        let n = self.turning_points(t_end, &mut tp);
-        for &b in tp[..n].iter().chain(core::iter::once(&t_end)) {
+        for b in self.turning_points(t_end).chain(core::iter::once(t_end)) {
             let gb = self.at(b);
             if gb > 0.0 {
                 return Some(self.bracket(a, ga, b, gb));
@@ -251,10 +292,8 @@ impl Wave {
 
     /// The largest and smallest value over [0, t_end].
     pub fn range(&self, t_end: f64) -> (f64, f64) {
-        let mut tp = [0.0; 64];
-        let n = self.turning_points(t_end, &mut tp);
         let (mut hi, mut lo) = (self.at(0.0), self.at(0.0));
-        for &t in tp[..n].iter().chain(core::iter::once(&t_end)) {
+        for t in self.turning_points(t_end).chain(core::iter::once(t_end)) {
             let g = self.at(t);
             hi = hi.max(g);
             lo = lo.min(g);
