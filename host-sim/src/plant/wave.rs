@@ -181,12 +181,17 @@ impl Wave {
         if ga > 0.0 {
             return Some(0.0);
         }
-        // Every mode decays (Re μ ≤ 0), so |g − α| ≤ Σ|z_k|: a wave that cannot reach zero
-        // needs no search (|re| + |im| bounds |z| without a square root).
-        let reach: f64 = self.z[..self.terms]
-            .iter()
-            .map(|z| z.re.abs() + z.im.abs())
-            .sum();
+        // Every mode decays (Re μ ≤ 0), so g − α ≤ Σ|z_k| (|re| + |im| bounds |z| without a
+        // square root), and for real modes, each term moving from z_k toward 0, g − α ≤
+        // Σ max(z_k, 0): a wave that cannot reach zero needs no search.
+        let reach: f64 = if self.terms == 2 {
+            self.z.iter().map(|z| z.re.max(0.0)).sum()
+        } else {
+            self.z[..self.terms]
+                .iter()
+                .map(|z| z.re.abs() + z.im.abs())
+                .sum()
+        };
         let decaying = self.mu[..self.terms].iter().all(|m| m.re <= 0.0);
         if self.alpha + reach <= 0.0 && decaying {
             return None;
