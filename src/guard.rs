@@ -1000,14 +1000,24 @@ impl Guard {
         (Self::raised(b3.max(off_peak), f) <= self.ceiling).then_some(b1)
     }
 
-    /// Whether slice `j` alone holds at duty `n` (a probe of the limit's search, which costs a
-    /// sixth of a full check with six slices).
-    fn slice_holds_at(&self, state: &GuardState, j: usize, n: u32, vh: u32, f: u64) -> bool {
-        let fr = self.frame(state, n, vh);
-        let factors = DutyFactors::one(&self.bound, j, n, self.model.duty_full);
+    /// Slice `j` alone at duty `n`, as a value for the limit's search (a sixth of a full check
+    /// with six slices): the highest of its bound's raised rise, and, when that is at or below
+    /// the ceiling, of the off-segment's peak and the look-ahead's rise. The slice holds (as in
+    /// [`Guard::slice_holds`]) exactly when this is at or below the ceiling.
+    fn slice_value(&self, state: &GuardState, j: usize, n: u32, vh: u32, f: u64) -> i64 {
+        let b = &self.bound;
+        let (e_on, e_off) = DutyFactors::one(b, j, n, self.model.duty_full);
         let rise_log = SharedLog::new(None);
-        self.slice_holds(state, (j, n, vh), factors, (&fr, &rise_log), f)
-            .is_some()
+        let b0 = state.slice_start(j, n);
+        let b1 = b.on_slice((j, b0), (n, vh), e_on, &rise_log).max(b0);
+        let r1 = Self::raised(b1, f);
+        if r1 > self.ceiling {
+            return r1;
+        }
+        let fr = self.frame(state, n, vh);
+        let (off_peak, b2) = b.off_slice(j, b1, &fr, e_off);
+        let b3 = b.on_slice((j, b2), (n, vh), e_on, &rise_log);
+        r1.max(Self::raised(b3.max(off_peak), f))
     }
 
     /// A sufficient test for [`Guard::check`] with one slice instead of all, and an upper bound
@@ -1073,12 +1083,18 @@ impl Guard {
         // the answer for each later slice that does not hold at it. The earlier slices held at
         // the requested duty, so they hold below it.
         let last = state.applied;
-        let holds = |j: usize, n: u32| self.slice_holds_at(state, j, n, vh, f);
+        let value = |j: usize, n: u32| self.slice_value(state, j, n, vh, f);
         let mut lo = duty;
         let mut guess = last;
         for j in (failed..self.bound.used()).rev() {
-            if lo > 0 && !holds(j, lo) {
-                lo = crate::qmath::largest_count_near(lo, guess, |n| holds(j, n));
+            if lo == 0 {
+                break;
+            }
+            let v = value(j, lo);
+            if v > self.ceiling {
+                lo = crate::qmath::largest_count_to_level(lo, v, guess, self.ceiling, |n| {
+                    value(j, n)
+                });
                 guess = lo.saturating_sub(1);
             }
         }
