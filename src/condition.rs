@@ -177,20 +177,65 @@ pub enum Action {
     Trip,
 }
 
-/// Records condition `c` as active and carries out action `a`: a hold sets `hold`, a trip
-/// latches `c`. Shared by the low-side and the bridge guard.
-pub(crate) fn act(
-    active: &mut Conditions,
-    hold: &mut bool,
-    latched: &mut Conditions,
-    c: Condition,
-    a: Action,
-) {
-    active.insert(c);
-    match a {
-        Action::Report => {}
-        Action::Hold => *hold = true,
-        Action::Trip => latched.insert(c),
+/// The conditions one tick finds and what their actions ask, gathered as each is raised: a
+/// hold holds the output off for the tick, a trip latches its condition in the channel's state.
+/// The one condition evaluator of the low-side and the bridge guard.
+pub(crate) struct Found<'a> {
+    active: Conditions,
+    hold: bool,
+    latched: &'a mut Conditions,
+}
+
+impl<'a> Found<'a> {
+    /// Nothing found yet; trips latch into `latched`.
+    #[inline]
+    pub(crate) fn new(latched: &'a mut Conditions) -> Self {
+        Self {
+            active: Conditions::NONE,
+            hold: false,
+            latched,
+        }
+    }
+
+    /// Raises `c` when it is `present`, and carries out its action `a`.
+    #[inline]
+    pub(crate) fn raise(&mut self, present: bool, c: Condition, a: Action) {
+        if !present {
+            return;
+        }
+        self.active.insert(c);
+        match a {
+            Action::Report => {}
+            Action::Hold => self.hold = true,
+            Action::Trip => self.latched.insert(c),
+        }
+    }
+
+    /// `supply-range` for the supply bits `vs` against the window `min ..= max`: action
+    /// `low` below it, `high` above it.
+    #[inline]
+    pub(crate) fn supply(
+        &mut self,
+        vs: u32,
+        (min, max): (u32, u32),
+        (low, high): (Action, Action),
+    ) {
+        let action = if vs > max {
+            Some(high)
+        } else if vs < min {
+            Some(low)
+        } else {
+            None
+        };
+        if let Some(a) = action {
+            self.raise(true, Condition::SupplyRange, a);
+        }
+    }
+
+    /// The conditions found, and whether an action holds the output off.
+    #[inline]
+    pub(crate) fn done(self) -> (Conditions, bool) {
+        (self.active, self.hold)
     }
 }
 
@@ -215,24 +260,6 @@ pub(crate) fn retry_latched(
         }
     } else {
         *cooldown_us = cooldown;
-    }
-}
-
-/// The action for `supply-range` at supply bits `vs` against the window `min ..= max`: `low`
-/// below it, `high` above it, none inside.
-pub(crate) const fn supply_window(
-    vs: u32,
-    min: u32,
-    max: u32,
-    low: Action,
-    high: Action,
-) -> Option<Action> {
-    if vs > max {
-        Some(high)
-    } else if vs < min {
-        Some(low)
-    } else {
-        None
     }
 }
 

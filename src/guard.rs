@@ -1471,95 +1471,55 @@ impl Guard {
         energy: Energy,
         prev: Conditions,
     ) -> (Conditions, bool) {
-        let mut active = Conditions::NONE;
-        let mut hold = false;
         let pol = self.policy;
-
-        let apply = crate::condition::act;
-
-        // Supply window.
-        if let Some(a) = crate::condition::supply_window(
+        let mut found = crate::condition::Found::new(&mut state.latched);
+        found.supply(
             vs,
-            self.supply_min,
-            self.supply_max,
-            pol.supply_low,
-            pol.supply_high,
-        ) {
-            apply(
-                &mut active,
-                &mut hold,
-                &mut state.latched,
-                Condition::SupplyRange,
-                a,
-            );
-        }
+            (self.supply_min, self.supply_max),
+            (pol.supply_low, pol.supply_high),
+        );
         if state.assumed && i_now <= self.release {
             state.assumed = false;
         }
-        // Trip level.
-        if !state.assumed && i_now.max(i_peak) > self.trip {
-            apply(
-                &mut active,
-                &mut hold,
-                &mut state.latched,
-                Condition::Overcurrent,
-                pol.overcurrent,
-            );
-        }
+        let observed = !state.assumed;
+        found.raise(
+            observed && i_now.max(i_peak) > self.trip,
+            Condition::Overcurrent,
+            pol.overcurrent,
+        );
         // Clamp pulse: the off-segment just ended, and any turn-off about to be commanded below.
-        if let Some(r) = self.pulse_rating
-            && !state.assumed
-            && energy > r
-        {
-            apply(
-                &mut active,
-                &mut hold,
-                &mut state.latched,
-                Condition::ClampPulse,
-                pol.clamp_pulse,
-            );
-        }
+        found.raise(
+            observed && self.pulse_rating.is_some_and(|r| energy > r),
+            Condition::ClampPulse,
+            pol.clamp_pulse,
+        );
         // Clamp device temperature, with hysteresis.
-        if let Some(c) = &self.clamp {
-            let hot = c.over_ceiling(&state.clamp_heat)
-                || (prev.contains(Condition::ClampOverheat) && !c.cooled(&state.clamp_heat));
-            if hot {
-                apply(
-                    &mut active,
-                    &mut hold,
-                    &mut state.latched,
-                    Condition::ClampOverheat,
-                    pol.clamp_overheat,
-                );
-            }
-        }
+        found.raise(
+            self.clamp.as_ref().is_some_and(|c| {
+                c.over_ceiling(&state.clamp_heat)
+                    || (prev.contains(Condition::ClampOverheat) && !c.cooled(&state.clamp_heat))
+            }),
+            Condition::ClampOverheat,
+            pol.clamp_overheat,
+        );
         // Clamp average power (no replica configured).
-        if let Some(w) = &self.power
-            && w.over(state.clamp_power)
-        {
-            apply(
-                &mut active,
-                &mut hold,
-                &mut state.latched,
-                Condition::ClampPower,
-                pol.clamp_power,
-            );
-        }
+        found.raise(
+            self.power
+                .as_ref()
+                .is_some_and(|w| w.over(state.clamp_power)),
+            Condition::ClampPower,
+            pol.clamp_power,
+        );
         // Winding image, with hysteresis: once raised it clears only at the reset level.
         let raised = prev.contains(Condition::CoilOverheat);
-        if let Some(c) = &self.coil
-            && c.overheated(&state.coil_heat, raised)
-        {
-            apply(
-                &mut active,
-                &mut hold,
-                &mut state.latched,
-                Condition::CoilOverheat,
-                pol.coil_overheat,
-            );
-        }
-
-        (active, hold)
+        found.raise(
+            self.coil
+                .as_ref()
+                .is_some_and(|c| c.overheated(&state.coil_heat, raised)),
+            Condition::CoilOverheat,
+            pol.coil_overheat,
+        );
+        found.done()
     }
 
     /// Trips are latched until cleared, or retried once every latched condition has been gone

@@ -721,7 +721,8 @@ pub(crate) fn largest_count_to_level(
             // `step` is the crossing's distance rounded up, or up to 1/128 + 1 above it:
             // aim at or below the crossing (its floor, less the quotient's error), inside.
             let up = u64::from(lo).saturating_add(step.saturating_sub(step / 128 + 1));
-            up.clamp(u64::from(lo) + 1, u64::from(hi) - 1) as u32
+            // Not `clamp`: its min <= max assertion would be a panic path (lo + 1 < hi here).
+            up.max(u64::from(lo) + 1).min(u64::from(hi) - 1) as u32
         };
         let v = value(p);
         let low = v <= level;

@@ -616,49 +616,29 @@ impl BridgeGuard {
     /// trips are latched in the state): the supply window at the reading `vs` and the trip level
     /// against the estimate's largest magnitude `top`.
     fn conditions(&self, state: &mut BridgeState, vs: u32, top: i64) -> (Conditions, bool) {
-        let mut active = Conditions::NONE;
-        let mut hold = false;
         let pol = self.policy;
-        let apply = crate::condition::act;
-        if let Some(a) = crate::condition::supply_window(
+        let mut found = crate::condition::Found::new(&mut state.latched);
+        found.supply(
             vs,
-            self.supply_min,
-            self.supply_max,
-            pol.supply_low,
-            pol.supply_high,
-        ) {
-            apply(
-                &mut active,
-                &mut hold,
-                &mut state.latched,
-                Condition::SupplyRange,
-                a,
-            );
-        }
+            (self.supply_min, self.supply_max),
+            (pol.supply_low, pol.supply_high),
+        );
         // An assumed (after-reset) current is a belief, not an observation: no trip on it.
-        if state.direction != Direction::Unknown && top > self.trip {
-            apply(
-                &mut active,
-                &mut hold,
-                &mut state.latched,
-                Condition::Overcurrent,
-                pol.overcurrent,
-            );
-        }
+        found.raise(
+            state.direction != Direction::Unknown && top > self.trip,
+            Condition::Overcurrent,
+            pol.overcurrent,
+        );
         // Winding image, with hysteresis: once raised it clears only at the reset level.
         let raised = state.active.contains(Condition::CoilOverheat);
-        if let Some(c) = &self.coil
-            && c.overheated(&state.coil_heat, raised)
-        {
-            apply(
-                &mut active,
-                &mut hold,
-                &mut state.latched,
-                Condition::CoilOverheat,
-                pol.coil_overheat,
-            );
-        }
-        (active, hold)
+        found.raise(
+            self.coil
+                .as_ref()
+                .is_some_and(|c| c.overheated(&state.coil_heat, raised)),
+            Condition::CoilOverheat,
+            pol.coil_overheat,
+        );
+        found.done()
     }
 
     /// The interlock: the request after the latches and holds, and held at zero while a reversal
