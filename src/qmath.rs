@@ -564,9 +564,37 @@ pub(crate) fn div_up_wide(num: u128, den: u64) -> u64 {
         .get((top as usize).wrapping_sub(128))
         .copied()
         .unwrap_or(u32::MAX);
+    if num >> 64 == 0 {
+        return recip_shr_u64(num as u64, m, 25 + e);
+    }
     let p = num * u128::from(m); // < 2^100 · 2^32
     let q = p.checked_shr(25 + e).unwrap_or(0) + 1;
     q.min(u128::from(u64::MAX)) as u64
+}
+
+/// `⌊n·m/2^s⌋ + 1`, saturated to u64, for `s` in `25 ..= 88`: [`div_up_wide`]'s quotient for a
+/// numerator below 2⁶⁴, from two 32×32-bit products instead of a 128-bit one (which a 32-bit
+/// core calls a library routine for). The same value bit for bit (tested against the wide
+/// product).
+#[inline]
+fn recip_shr_u64(n: u64, m: u32, s: u32) -> u64 {
+    let m = u64::from(m);
+    let lo = (n & 0xFFFF_FFFF) * m; // < 2^64
+    let hi = (n >> 32) * m; // <= (2^32 − 1)^2
+    // n·m = mid·2^32 + r with r < 2^32; mid < 2^64 (hi < 2^64 − 2^33, lo >> 32 < 2^32).
+    let mid = hi + (lo >> 32);
+    let r = lo & 0xFFFF_FFFF;
+    let q = if s >= 32 {
+        // r/2^32 < 1 cannot carry into the integer part of mid/2^(s − 32).
+        mid.checked_shr(s - 32).unwrap_or(0)
+    } else {
+        let up = 32 - s; // 1 ..= 7
+        if mid.leading_zeros() < up {
+            return u64::MAX;
+        }
+        (mid << up) | (r >> s)
+    };
+    q.saturating_add(1)
 }
 
 /// ln 2 in Q0.64 (also used by [`ln_ratio`]).
@@ -1118,6 +1146,14 @@ mod tests {
             fn mul_q32_matches_u128(a in any::<u64>(), b in any::<u64>()) {
                 let want = ((u128::from(a) * u128::from(b)) >> 32).min(u128::from(u64::MAX)) as u64;
                 prop_assert_eq!(mul_q32(a, b), want);
+            }
+
+            /// The 64-bit path of div_up_wide gives the wide product's value bit for bit.
+            #[test]
+            fn the_narrow_quotient_is_the_wide_one(n in any::<u64>(), m in any::<u32>(), s in 25u32..=88) {
+                let wide = ((u128::from(n) * u128::from(m)) >> s) + 1;
+                let want = wide.min(u128::from(u64::MAX)) as u64;
+                prop_assert_eq!(recip_shr_u64(n, m, s), want);
             }
 
             /// div_up: at or above the quotient, and at most 1/128 of it (plus 1) above.
