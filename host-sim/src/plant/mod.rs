@@ -243,7 +243,7 @@ pub struct Plant {
     /// they were solved for (a steady drive meets the same few again every period).
     modes: ([Option<Solved>; 8], usize, Circuit),
     /// Replay a run already computed from the same state instead of solving it again (the
-    /// results are the same bit for bit; see [`settled`]). On by default.
+    /// results are the same bit for bit; see `plant/settled.rs`). On by default.
     pub reuse: bool,
     /// The last runs computed, the segments of the run under way and how many runs were
     /// replayed.
