@@ -232,6 +232,22 @@ impl<'a> Found<'a> {
         }
     }
 
+    /// `coil-overheat` from the winding image `coil` (none configured: never), with hysteresis:
+    /// once raised (active in `prev`, the conditions before this tick) it clears only at the
+    /// reset level.
+    #[inline]
+    pub(crate) fn winding(
+        &mut self,
+        coil: Option<&crate::thermal::CoilReplica>,
+        heat: crate::thermal::CoilHeat,
+        prev: Conditions,
+        a: Action,
+    ) {
+        let raised = prev.contains(Condition::CoilOverheat);
+        let hot = coil.is_some_and(|c| c.overheated(&heat, raised));
+        self.raise(hot, Condition::CoilOverheat, a);
+    }
+
     /// The conditions found, and whether an action holds the output off.
     #[inline]
     pub(crate) fn done(self) -> (Conditions, bool) {

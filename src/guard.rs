@@ -1510,13 +1510,10 @@ impl Guard {
             Condition::ClampPower,
             pol.clamp_power,
         );
-        // Winding image, with hysteresis: once raised it clears only at the reset level.
-        let raised = prev.contains(Condition::CoilOverheat);
-        found.raise(
-            self.coil
-                .as_ref()
-                .is_some_and(|c| c.overheated(&state.coil_heat, raised)),
-            Condition::CoilOverheat,
+        found.winding(
+            self.coil.as_ref(),
+            state.coil_heat,
+            prev,
             pol.coil_overheat,
         );
         found.done()

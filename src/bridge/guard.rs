@@ -629,13 +629,10 @@ impl BridgeGuard {
             Condition::Overcurrent,
             pol.overcurrent,
         );
-        // Winding image, with hysteresis: once raised it clears only at the reset level.
-        let raised = state.active.contains(Condition::CoilOverheat);
-        found.raise(
-            self.coil
-                .as_ref()
-                .is_some_and(|c| c.overheated(&state.coil_heat, raised)),
-            Condition::CoilOverheat,
+        found.winding(
+            self.coil.as_ref(),
+            state.coil_heat,
+            state.active,
             pol.coil_overheat,
         );
         found.done()
