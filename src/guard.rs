@@ -1510,12 +1510,7 @@ impl Guard {
             Condition::ClampPower,
             pol.clamp_power,
         );
-        found.winding(
-            self.coil.as_ref(),
-            state.coil_heat,
-            prev,
-            pol.coil_overheat,
-        );
+        found.winding(self.coil.as_ref(), state.coil_heat, prev, pol.coil_overheat);
         found.done()
     }
 
