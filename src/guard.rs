@@ -966,8 +966,11 @@ impl Guard {
         let mut peak = 0;
         for j in 0..self.bound.used() {
             let factors = memo.slices.slice(&self.bound, j, self.model.duty_full);
-            let b1 = self.slice_holds(state, (j, n, vh), factors, (&fr, &rise_log), f);
-            peak = peak.max(b1.ok_or(j)?);
+            let (b1, v) = self.slice_at(state, (j, n, vh), factors, (Some(&fr), &rise_log), f);
+            if v > self.ceiling {
+                return Err(j);
+            }
+            peak = peak.max(b1);
         }
         Ok(peak)
     }
@@ -979,45 +982,46 @@ impl Guard {
         self.bound.off_frame(full - n, vh, opened, Unit::Count)
     }
 
-    /// Slice `j`'s part of [`Guard::check`] at duty `n` with its factors: its bound's peak in
-    /// the coming period (raw) when it holds.
-    fn slice_holds(
+    /// Slice `j` at duty `n` with its factors, one piece for [`Guard::check`] and the limit's
+    /// search: its bound's rise in the coming period (raw), and the highest of that rise raised
+    /// and, when it is at or below the ceiling, of the off-segment's peak and the look-ahead's
+    /// rise (raised). The slice holds exactly when the second is at or below the ceiling.
+    /// `fr`: the period's off-frame when the caller shares one across slices, else it is
+    /// computed here once the rise holds.
+    fn slice_at(
         &self,
         state: &GuardState,
         (j, n, vh): (usize, u32, u32),
         (e_on, e_off): (Decay, Decay),
-        (fr, rise_log): (&OffFrame, &SharedLog),
+        (fr, rise_log): (Option<&OffFrame>, &SharedLog),
         f: u64,
-    ) -> Option<i64> {
+    ) -> (i64, i64) {
         let b = &self.bound;
         let b0 = state.slice_start(j, n);
         let b1 = b.on_slice((j, b0), (n, vh), e_on, rise_log).max(b0);
-        if Self::raised(b1, f) > self.ceiling {
-            return None;
-        }
-        let (off_peak, b2) = b.off_slice(j, b1, fr, e_off);
-        let b3 = b.on_slice((j, b2), (n, vh), e_on, rise_log);
-        (Self::raised(b3.max(off_peak), f) <= self.ceiling).then_some(b1)
-    }
-
-    /// Slice `j` alone at duty `n`, as a value for the limit's search (a sixth of a full check
-    /// with six slices): the highest of its bound's raised rise, and, when that is at or below
-    /// the ceiling, of the off-segment's peak and the look-ahead's rise. The slice holds (as in
-    /// [`Guard::slice_holds`]) exactly when this is at or below the ceiling.
-    fn slice_value(&self, state: &GuardState, j: usize, n: u32, vh: u32, f: u64) -> i64 {
-        let b = &self.bound;
-        let (e_on, e_off) = DutyFactors::one(b, j, n, self.model.duty_full);
-        let rise_log = SharedLog::new(None);
-        let b0 = state.slice_start(j, n);
-        let b1 = b.on_slice((j, b0), (n, vh), e_on, &rise_log).max(b0);
         let r1 = Self::raised(b1, f);
         if r1 > self.ceiling {
-            return r1;
+            return (b1, r1);
         }
-        let fr = self.frame(state, n, vh);
-        let (off_peak, b2) = b.off_slice(j, b1, &fr, e_off);
-        let b3 = b.on_slice((j, b2), (n, vh), e_on, &rise_log);
-        r1.max(Self::raised(b3.max(off_peak), f))
+        let own;
+        let fr = if let Some(fr) = fr {
+            fr
+        } else {
+            own = self.frame(state, n, vh);
+            &own
+        };
+        let (off_peak, b2) = b.off_slice(j, b1, fr, e_off);
+        let b3 = b.on_slice((j, b2), (n, vh), e_on, rise_log);
+        (b1, r1.max(Self::raised(b3.max(off_peak), f)))
+    }
+
+    /// [`Guard::slice_at`]'s value for slice `j` alone at duty `n` (a probe of the limit's
+    /// search, a sixth of a full check with six slices).
+    fn slice_value(&self, state: &GuardState, j: usize, n: u32, vh: u32, f: u64) -> i64 {
+        let factors = DutyFactors::one(&self.bound, j, n, self.model.duty_full);
+        let rise_log = SharedLog::new(None);
+        self.slice_at(state, (j, n, vh), factors, (None, &rise_log), f)
+            .1
     }
 
     /// A sufficient test for [`Guard::check`] with one slice instead of all, and an upper bound
