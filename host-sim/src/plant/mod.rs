@@ -446,6 +446,7 @@ impl Plant {
             }
             if let Some(f) = self.account(&sol, on, end, tally) {
                 f.add_to(tally);
+                // Up to one past the most kept: a run that reaches it is not kept.
                 if self.segments.len() <= settled::MOST_SEGMENTS {
                     self.segments.push(f);
                 }
