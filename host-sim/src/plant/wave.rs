@@ -47,7 +47,9 @@ fn cexp(z: C) -> C {
     if z.re < -708.0 {
         C::new(0.0, 0.0)
     } else {
-        z.exp()
+        let (sin, cos) = libm::sincos(z.im);
+        let r = z.re.exp();
+        C::new(r * cos, r * sin)
     }
 }
 
@@ -158,12 +160,13 @@ impl Wave {
         }
         let d = self.z[0] * self.mu[0];
         let w = self.mu[0].im;
-        if d.norm() == 0.0 || w <= 0.0 {
+        if d == C::new(0.0, 0.0) || w <= 0.0 {
             return none;
         }
         // Re(d e^{μt}) = |d| e^{mt} cos(ωt + arg d) = 0 at ωt = π/2 − arg d + kπ.
         let first = (core::f64::consts::FRAC_PI_2 - d.arg()).rem_euclid(core::f64::consts::PI);
-        let amp0 = self.z[0].norm();
+        // |z| by its square root (no hypot: the parts are far from overflow or underflow).
+        let amp0 = self.z[0].norm_sqr().sqrt();
         Turns {
             next: first / w,
             step: core::f64::consts::PI / w,
@@ -257,7 +260,7 @@ impl Wave {
         } else {
             0.5 * (a + b)
         };
-        let mut last_width = f64::INFINITY;
+        let mut last_step = f64::INFINITY;
         for _ in 0..200 {
             let width = b - a;
             if width <= 1e-13 * b.abs() + 1e-18 {
@@ -270,8 +273,9 @@ impl Wave {
                 a = t;
             }
             let newton = if d != 0.0 { t - g / d } else { f64::NAN };
-            let shrinking = (b - a) < 0.5 * last_width;
-            last_width = width;
+            let step = (newton - t).abs();
+            let shrinking = step < 0.5 * last_step;
+            last_step = step;
             t = if newton > a && newton < b && shrinking {
                 newton
             } else {
