@@ -413,6 +413,7 @@ impl Plant {
         let events = self.compute(on, duration, tally)?;
         if let Some(k) = key
             && self.segments.len() <= settled::MOST_SEGMENTS
+            && self.runs.seen_before(&k)
         {
             let end = (self.mode, self.state);
             self.runs.keep(k, end, &self.segments, events);

@@ -63,9 +63,10 @@ impl Figures {
 /// state it starts from, the switch, the duration and what the tally asks for.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub(super) struct RunKey {
+    // The state first: keys of one circuit differ there, so comparisons end early.
+    state: [u64; 2],
     circuit: [u64; 14],
     mode: Mode,
-    state: [u64; 2],
     on: bool,
     duration: u64,
     all_energies: bool,
@@ -121,6 +122,21 @@ impl RunKey {
     }
 }
 
+impl RunKey {
+    /// A 64-bit digest of the key's words (multiply-rotate), for [`Runs::seen_before`].
+    fn digest(&self) -> u64 {
+        let flags = u64::from(self.on)
+            | u64::from(self.all_energies) << 1
+            | u64::from(self.watching.is_some()) << 2
+            | u64::from(self.mode.0) << 8;
+        let last = [self.duration, flags, self.watching.unwrap_or(0)];
+        let words = self.state.iter().chain(&self.circuit).chain(&last);
+        words.fold(0u64, |h, &w| {
+            (h.rotate_left(5) ^ w).wrapping_mul(0x9E37_79B9_7F4A_7C15)
+        })
+    }
+}
+
 /// A run computed once: its key, the mode and state it left the plant in, what each of its
 /// segments added and how many path changes it resolved.
 #[derive(Debug, Clone)]
@@ -139,17 +155,37 @@ const KEPT: usize = 4;
 /// rarely repeated, and its record would be large).
 pub(super) const MOST_SEGMENTS: usize = 64;
 
-/// The last runs computed, oldest replaced first.
+/// Digests of the last keys run: a settled drive's runs come round within a few, a drive
+/// still moving toward its settled state never does.
+const SIGHTINGS: usize = 8;
+
+/// The last runs computed, oldest replaced first, and the digests of the last keys run.
 #[derive(Debug, Clone, Default)]
 pub(super) struct Runs {
     kept: Vec<Run>,
     next: usize,
+    sightings: [u64; SIGHTINGS],
+    next_sighting: usize,
 }
 
 impl Runs {
     /// The run kept for `key`, if any.
     pub fn find(&self, key: &RunKey) -> Option<&Run> {
         self.kept.iter().find(|r| r.key == *key)
+    }
+
+    /// Whether `key`'s digest is among the last keys' (noting it either way). Only runs seen
+    /// before are kept: a drive that has not settled does not pay for copying its segments. A
+    /// digest that collides only keeps a run that will not be found; a replay still needs the
+    /// whole key to match.
+    pub fn seen_before(&mut self, key: &RunKey) -> bool {
+        let d = key.digest();
+        let seen = self.sightings.contains(&d);
+        if !seen {
+            self.sightings[self.next_sighting % SIGHTINGS] = d;
+            self.next_sighting = self.next_sighting.wrapping_add(1);
+        }
+        seen
     }
 
     /// Keeps a computed run (in the oldest slot once all are in use, reusing its buffer).
