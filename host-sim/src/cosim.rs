@@ -13,7 +13,7 @@
 //! plant really had. Rows and events are reported from t = 0.
 
 use crate::plant::{Circuit, Plant, PlantError, State, Tally};
-use crate::scenario::{Calls, Scenario, duty_in_period};
+use crate::scenario::{Calls, Scenario, duty_in_period, duty_span};
 use coilward::{Condition, Conditions, Guard, Input, Volts};
 use rand::{Rng, SeedableRng};
 use rand_distr::{Distribution, StandardNormal};
@@ -428,8 +428,14 @@ struct Walk {
 
 /// When the guard is called and how long each step of the run lasts.
 enum Pace {
-    /// One call per control period.
-    Periodic { k: u64, n: u64 },
+    /// One call per control period; the drive's duty `held` until period `until` (the
+    /// timeline is searched again only when a step may begin).
+    Periodic {
+        k: u64,
+        n: u64,
+        until: u64,
+        held: f64,
+    },
     /// Calls at request changes, at `next_check_us` and every `poll_us`; steps of at most one
     /// control period between them (so rows and plots keep the period's resolution).
     Events {
@@ -448,6 +454,8 @@ impl Pace {
             Calls::EveryPeriod => Pace::Periodic {
                 k: 0,
                 n: (s.duration / s.period).round().max(1.0) as u64,
+                until: 0,
+                held: 0.0,
             },
             Calls::OnEvents { poll_us } => Pace::Events {
                 now_us: 0,
@@ -465,9 +473,12 @@ impl Pace {
     /// its last call); `None` at the end. [`Pace::advance`] then ends the step.
     fn step(&mut self, s: &Scenario) -> Option<(f64, f64, Option<u32>)> {
         match self {
-            Pace::Periodic { k, n } => {
+            Pace::Periodic { k, n, until, held } => {
+                if *k >= *until {
+                    (*held, *until) = duty_span(&s.drive, |d| (d.at, d.duty), s.period, *k);
+                }
                 let tk = *k as f64 * s.period;
-                (*k < *n).then(|| (tk, s.duty_in_period(*k), Some(0)))
+                (*k < *n).then_some((tk, *held, Some(0)))
             }
             Pace::Events {
                 now_us,

@@ -1024,8 +1024,23 @@ pub(crate) fn duty_in_period<T>(
     period: f64,
     k: u64,
 ) -> f64 {
+    duty_span(steps, step, period, k).0
+}
+
+/// As [`duty_in_period`], with the first period of the next step (`u64::MAX` after the last):
+/// the duty holds for every period from `k` up to it.
+pub(crate) fn duty_span<T>(
+    steps: &[T],
+    step: impl Fn(&T) -> (f64, f64),
+    period: f64,
+    k: u64,
+) -> (f64, u64) {
     let n = steps.partition_point(|s| first_period_at(step(s).0, period) <= k);
-    if n == 0 { 0.0 } else { step(&steps[n - 1]).1 }
+    let until = steps
+        .get(n)
+        .map_or(u64::MAX, |s| first_period_at(step(s).0, period));
+    let duty = if n == 0 { 0.0 } else { step(&steps[n - 1]).1 };
+    (duty, until)
 }
 
 /// A scenario file's text, or an error naming the file.

@@ -445,14 +445,14 @@ impl Plant {
                     }
                 }
             }
-            if let Some(f) = self.account(&sol, on, end, tally) {
+            let x = sol.at(end);
+            if let Some(f) = self.account(&sol, on, (end, x), tally) {
                 f.add_to(tally);
                 // Up to one past the most kept: a run that reaches it is not kept.
                 if self.segments.len() <= settled::MOST_SEGMENTS {
                     self.segments.push(f);
                 }
             }
-            let x = sol.at(end);
             self.state = State {
                 current: x[0],
                 node: x[1],
@@ -490,7 +490,13 @@ impl Plant {
 
     /// What one segment of `t` seconds adds to `tally`, in closed form (the tally is read for
     /// what it asks for, not changed).
-    fn account(&self, sol: &Solution, on: bool, t: f64, tally: &Tally) -> Option<Figures> {
+    fn account(
+        &self,
+        sol: &Solution,
+        on: bool,
+        (t, x): (f64, [f64; 2]),
+        tally: &Tally,
+    ) -> Option<Figures> {
         if t <= 0.0 {
             return None;
         }
@@ -503,8 +509,8 @@ impl Plant {
             (Some(thr), None) => sol.wave([-1.0, 0.0], thr).first_rise(t),
             _ => None,
         };
-        let (ihi, ilo) = i.range(t);
-        let (vhi, _) = v.range(t);
+        let (ihi, ilo) = i.range_ending(t, x[0]);
+        let (vhi, _) = v.range_ending(t, x[1]);
         // A node-to-ground element (e, r): its current (v − e)/r, its power v·(v − e)/r.
         let node_element = |e: f64, r: f64| {
             let r = Self::r(r);

@@ -301,8 +301,14 @@ impl Wave {
 
     /// The largest and smallest value over [0, t_end].
     pub fn range(&self, t_end: f64) -> (f64, f64) {
-        let (mut hi, mut lo) = (self.at(0.0), self.at(0.0));
-        for t in self.turning_points(t_end).chain(core::iter::once(t_end)) {
+        self.range_ending(t_end, self.at(t_end))
+    }
+
+    /// [`Wave::range`] given the value at `t_end` (`end`, e.g. from [`Solution::at`], which
+    /// shares the exponentials among the state's waves).
+    pub fn range_ending(&self, t_end: f64, end: f64) -> (f64, f64) {
+        let (mut hi, mut lo) = (self.start.max(end), self.start.min(end));
+        for t in self.turning_points(t_end) {
             let g = self.at(t);
             hi = hi.max(g);
             lo = lo.min(g);
