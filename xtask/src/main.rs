@@ -8,6 +8,8 @@
 //!   `insn core=<m0|m4f|m33> op=<operation> n=<count>` and
 //!   `size core=<…> text=<bytes> state=<bytes per channel>` lines (`text`: the guard's run-time
 //!   code; a further `size core=<…> configure-text=<bytes>` line gives the configuration's).
+//! - `target-profile <op> [m0|m4f|m33]`: where one of `target-bench`'s operations spends its
+//!   instructions, by function (the same plugin, counting per address; M4F by default).
 
 #[path = "../../firmware/src/trace.rs"]
 #[allow(dead_code)]
@@ -400,6 +402,93 @@ fn target_bench() -> Result<(), String> {
     Ok(())
 }
 
+/// Where one benchmark operation's instructions go, by function: runs `bench` once to learn the
+/// operations' order, then again with the plugin counting per address inside that operation's
+/// window, and adds the counts up over the image's function symbols (what the compiler inlined
+/// counts in its caller). Prints the total and the functions taking the most, with how many
+/// times each was entered (instructions executed at its first address).
+fn target_profile(op: &str, core_name: &str) -> Result<(), String> {
+    let core = CORES
+        .iter()
+        .find(|c| c.name == core_name)
+        .ok_or(format!("unknown core '{core_name}' (m0, m4f or m33)"))?;
+    let plugin = build_plugin()?;
+    build(core, &["bench"])?;
+    let image = elf(core, "bench");
+    let (_, text) = qemu(core, &image, None)?;
+    let ops: Vec<&str> = text.lines().filter_map(|l| l.strip_prefix("op ")).collect();
+    let window = ops.iter().position(|o| *o == op).ok_or(format!(
+        "no operation '{op}' in the benchmark (it measures: {})",
+        ops.join(", ")
+    ))?;
+    let hist = root()
+        .join("target")
+        .join("xtask")
+        .join(format!("profile-{}.txt", core.name));
+    let arg = format!(
+        "{},start={:#x},end={:#x},out={},profile={window}",
+        plugin.display(),
+        symbol(&image, "coilward_bench_start")?,
+        symbol(&image, "coilward_bench_end")?,
+        hist.display()
+    );
+    let (ok, _) = qemu(core, &image, Some(arg))?;
+    if !ok {
+        return Err(format!("{}: the benchmark firmware failed", core.name));
+    }
+    let counts: Vec<(u64, u64)> = std::fs::read_to_string(&hist)
+        .map_err(|e| e.to_string())?
+        .lines()
+        .filter_map(|l| {
+            let (a, n) = l.split_once(' ')?;
+            Some((u64::from_str_radix(a, 16).ok()?, n.parse().ok()?))
+        })
+        .collect();
+    let data = std::fs::read(&image).map_err(|e| format!("{}: {e}", image.display()))?;
+    let file = object::File::parse(&*data).map_err(|e| e.to_string())?;
+    // Function symbols by address (Thumb symbols carry bit 0).
+    let mut functions: Vec<(u64, u64, String)> = file
+        .symbols()
+        .filter(|s| s.kind() == object::SymbolKind::Text && s.size() > 0)
+        .filter_map(|s| {
+            let name = s.name().ok()?;
+            Some((
+                s.address() & !1,
+                s.size(),
+                format!("{:#}", rustc_demangle::demangle(name)),
+            ))
+        })
+        .collect();
+    functions.sort();
+    let mut by_function: std::collections::BTreeMap<&str, (u64, u64)> = Default::default();
+    let total: u64 = counts.iter().map(|c| c.1).sum();
+    for &(pc, n) in &counts {
+        let i = functions.partition_point(|f| f.0 <= pc);
+        let name = match i.checked_sub(1).map(|i| &functions[i]) {
+            Some((start, size, name)) if pc < start + size => {
+                let e = by_function.entry(name).or_default();
+                e.0 += n;
+                if pc == *start {
+                    e.1 += n;
+                }
+                continue;
+            }
+            _ => "(no symbol)",
+        };
+        by_function.entry(name).or_default().0 += n;
+    }
+    let mut rows: Vec<_> = by_function.into_iter().collect();
+    rows.sort_by_key(|r| std::cmp::Reverse(r.1.0));
+    println!("profile core={} op={op} n={total}", core.name);
+    for (name, (n, entries)) in rows.iter().take(30) {
+        println!(
+            "{n:>8} {:>5.1} % {entries:>5} entered  {name}",
+            100.0 * *n as f64 / total.max(1) as f64
+        );
+    }
+    Ok(())
+}
+
 /// The size lines of one core: run-time code, state, the loader, configuration, float code.
 fn sizes(core: &Core, state: &str, report: &mut String) -> Result<(), String> {
     // Run-time code: the panic-free build (every per-tick entry point plus configuration)
@@ -443,13 +532,18 @@ fn main() -> ExitCode {
     let result = match cmd.as_deref() {
         Some("target-test") => target_test(),
         Some("target-bench") => target_bench(),
+        Some("target-profile") => match std::env::args().nth(2) {
+            Some(op) => target_profile(&op, &std::env::args().nth(3).unwrap_or("m4f".into())),
+            None => Err("usage: cargo xtask target-profile <operation> [m0|m4f|m33]".into()),
+        },
         _ => {
             eprintln!(
                 "usage: cargo xtask <command>\n\n\
                  commands:\n  \
                  target-test   run the on-target vectors under QEMU, compare the golden trace \
                  with the host, link the panic-free build\n  \
-                 target-bench  count instructions per operation and measure sizes on each core"
+                 target-bench  count instructions per operation and measure sizes on each core\n  \
+                 target-profile OP [CORE]  where one operation's instructions go, by function"
             );
             return ExitCode::from(2);
         }
