@@ -96,6 +96,9 @@ step "example firmware for real chips, from the timer's interrupt (STM32F401, RP
 step "instruction counts and sizes on the emulated cores"
 cargo xtask target-bench
 
+step "where the worst tick's instructions go (M4F, by function)"
+cargo xtask target-profile tick-limit m4f
+
 }
 
 sim() {
