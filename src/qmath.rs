@@ -181,12 +181,15 @@ fn mantissa(v: f64) -> u32 {
 #[inline(always)]
 fn compose(acc: u32, s: u32, e: u32, sd: u32) -> u32 {
     let aligned = e.checked_shr(sd.saturating_sub(s)).unwrap_or(0);
-    // E_acc·E_d in scale s: acc·e·2^−(32+sd).
-    let prod = (u64::from(acc) * u64::from(e))
-        .checked_shr(32 + sd)
-        .unwrap_or(0);
-    let sum = u64::from(acc) + u64::from(aligned) - prod.min(u64::from(acc));
-    sum.min(u64::from(u32::MAX)) as u32
+    // E_acc·E_d in scale s: acc·e·2^−(32+sd), as the product's high word shifted by sd
+    // (⌊⌊x/2^32⌋/2^sd⌋ = ⌊x/2^(32+sd)⌋): 32-bit shifts only, the high word of one
+    // 32×32-bit multiply (a 64-bit shift by a variable amount is a long sequence on a
+    // 32-bit core).
+    let high = ((u64::from(acc) * u64::from(e)) >> 32) as u32; // < 2^32
+    let prod = high.checked_shr(sd).unwrap_or(0);
+    // acc + aligned − min(prod, acc), saturated: the same value in u32 (the subtraction first
+    // cannot underflow, the saturating sum is the clamped exact one).
+    (acc - prod.min(acc)).saturating_add(aligned)
 }
 
 /// `E(2^d·u)` for `d = 0 ..= 31`, one entry per bit of a 32-bit length: the event tables
@@ -1154,6 +1157,17 @@ mod tests {
                 let wide = ((u128::from(n) * u128::from(m)) >> s) + 1;
                 let want = wide.min(u128::from(u64::MAX)) as u64;
                 prop_assert_eq!(recip_shr_u64(n, m, s), want);
+            }
+
+            /// A table composition in 32-bit words gives the 64-bit formula's value bit for bit:
+            /// acc + e·2^−(sd−s) − min(acc·e·2^−(32+sd), acc), saturated at 2³² − 1.
+            #[test]
+            fn the_word_composition_is_the_wide_one(acc in any::<u32>(), e in any::<u32>(), s in 0u32..=62, up in 0u32..=62) {
+                let sd = (s + up).min(62);
+                let aligned = u64::from(e).checked_shr(sd - s).unwrap_or(0);
+                let prod = (u64::from(acc) * u64::from(e)).checked_shr(32 + sd).unwrap_or(0);
+                let want = (u64::from(acc) + aligned - prod.min(u64::from(acc))).min(u64::from(u32::MAX));
+                prop_assert_eq!(u64::from(compose(acc, s, e, sd)), want);
             }
 
             /// div_up: at or above the quotient, and at most 1/128 of it (plus 1) above.
