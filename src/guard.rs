@@ -1083,38 +1083,53 @@ impl Guard {
         };
         // The probes of the search sit near the ceiling, where the screen fails. The duties
         // that hold are those at or below every slice's largest (each slice is monotone in the
-        // duty): search the slice that failed alone (a sixth of a check per probe), then lower
-        // the answer for each later slice that does not hold at it. The earlier slices held at
-        // the requested duty, so they hold below it.
+        // duty): search the slice that failed alone (a sixth of a check per probe), then check
+        // every slice at the answer. The check that passes there proves the answer is the
+        // smallest of the slices' largest (they all hold at it, and the searched one fails one
+        // count above) and fills the memo; one that fails names the next slice to search, below
+        // the answer (each slice fails at most once: it holds below its largest).
         let last = state.applied;
         let value = |j: usize, n: u32| self.slice_value(state, j, n, vh, f);
-        let mut lo = duty;
-        let mut guess = last;
-        for j in (failed..self.bound.used()).rev() {
-            if lo == 0 {
+        let (mut lo, mut guess, mut failing) = (duty, last, failed);
+        let mut found = None;
+        for _ in 0..=SLICES {
+            let v = value(failing, lo);
+            if v <= self.ceiling {
+                // The check and the probe disagree (they compute the same values): give up
+                // toward the safe side.
                 break;
             }
-            let v = value(j, lo);
-            if v > self.ceiling {
-                lo = crate::qmath::largest_count_to_level(lo, v, guess, self.ceiling, |n| {
-                    value(j, n)
-                });
-                guess = lo.saturating_sub(1);
+            lo = crate::qmath::largest_count_to_level(lo, v, guess, self.ceiling, |n| {
+                value(failing, n)
+            });
+            guess = lo.saturating_sub(1);
+            let mut memo = self.recall(kept, lo);
+            match self.check(state, &mut memo, vh, f) {
+                Ok(peak) => {
+                    found = Some((memo, peak));
+                    break;
+                }
+                Err(j) if lo > 0 => failing = j,
+                Err(_) => break,
             }
         }
+        let Some((memo, peak)) = found else {
+            *kept = self.recall(kept, 0);
+            return (0, None);
+        };
         // Rising toward the ceiling, go half way: the largest duty that holds swings the bound
         // (a long on-part leaves it high, so the next largest is short, and so on), half steps
-        // settle it. The duty chosen is at or below every slice's largest, so it holds; the one
-        // full check finds its peak and fills its memo (and would give duty 0 were it to fail).
-        let lo = if last > 0 && lo > last {
-            last + (lo - last).div_ceil(2)
-        } else {
-            lo
-        };
-        let mut chosen = self.recall(kept, lo);
+        // settle it. Below the largest, the duty holds; its check finds its peak and fills its
+        // memo (and would give duty 0 were it to fail).
+        if last == 0 || lo <= last {
+            *kept = memo;
+            return (lo, Some(peak));
+        }
+        let half = last + (lo - last).div_ceil(2);
+        let mut chosen = self.recall(kept, half);
         if let Ok(peak) = self.check(state, &mut chosen, vh, f) {
             *kept = chosen;
-            (lo, Some(peak))
+            (half, Some(peak))
         } else {
             *kept = self.recall(kept, 0);
             (0, None)
