@@ -1083,17 +1083,29 @@ impl Guard {
         };
         // The probes of the search sit near the ceiling, where the screen fails. The duties
         // that hold are those at or below every slice's largest (each slice is monotone in the
-        // duty): search the slice that failed alone (a sixth of a check per probe), then check
+        // duty): search one failing slice alone (a sixth of a check per probe), then check
         // every slice at the answer. The check that passes there proves the answer is the
         // smallest of the slices' largest (they all hold at it, and the searched one fails one
         // count above) and fills the memo; one that fails names the next slice to search, below
         // the answer (each slice fails at most once: it holds below its largest).
         let last = state.applied;
         let value = |j: usize, n: u32| self.slice_value(state, j, n, vh, f);
-        let (mut lo, mut guess, mut failing) = (duty, last, failed);
+        // The last slice (the highest inductance) binds most often: search it first when it
+        // fails too. (Searched from the first failing slice instead, the check at its answer
+        // fails at the next slice most of the time, and each failure costs a search and a
+        // check.)
+        let top = self.bound.used().saturating_sub(1);
+        let v_top = value(top, duty);
+        let top_fails = v_top > self.ceiling;
+        let (mut lo, mut guess) = (duty, last);
+        let mut failing = if top_fails { top } else { failed };
         let mut found = None;
-        for _ in 0..=SLICES {
-            let v = value(failing, lo);
+        for round in 0..=SLICES {
+            let v = if round == 0 && top_fails {
+                v_top
+            } else {
+                value(failing, lo)
+            };
             if v <= self.ceiling {
                 // The check and the probe disagree (they compute the same values): give up
                 // toward the safe side.
