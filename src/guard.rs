@@ -960,6 +960,8 @@ impl Guard {
     /// is monotone in its start and length), so the duties that hold are those at or below the
     /// smallest of the slices' largest.
     fn check(&self, state: &GuardState, memo: &mut Memo, vh: u32, f: u64) -> Result<i64, usize> {
+        #[cfg(test)]
+        tests::count(1);
         let n = memo.slices.n;
         let fr = self.frame(state, n, vh);
         let rise_log = SharedLog::new(None);
@@ -1018,6 +1020,8 @@ impl Guard {
     /// [`Guard::slice_at`]'s value for slice `j` alone at duty `n` (a probe of the limit's
     /// search, a sixth of a full check with six slices).
     fn slice_value(&self, state: &GuardState, j: usize, n: u32, vh: u32, f: u64) -> i64 {
+        #[cfg(test)]
+        tests::count(0);
         let factors = DutyFactors::one(&self.bound, j, n, self.model.duty_full);
         let rise_log = SharedLog::new(None);
         self.slice_at(state, (j, n, vh), factors, (None, &rise_log), f)
@@ -1681,6 +1685,52 @@ impl Guard {
 mod tests {
     use super::*;
     use crate::params::SwitchParams;
+
+    std::thread_local! {
+        /// The limit's slice probes and whole-period checks on this thread.
+        static EVALUATIONS: core::cell::Cell<[u32; 2]> = const { core::cell::Cell::new([0; 2]) };
+    }
+
+    /// Counts a slice probe (0) or a whole-period check (1).
+    pub(super) fn count(k: usize) {
+        EVALUATIONS.with(|c| {
+            let mut v = c.get();
+            v[k & 1] += 1;
+            c.set(v);
+        });
+    }
+
+    /// The limit's search costs a few slice probes and checks a limiting period: the valve of
+    /// the golden trace (saturating, 470 pF, switch clamp, six slices) asked for full duty for
+    /// 4 000 periods from rest (`cargo xtask target-profile tick-limit` shows the instructions
+    /// following them). Prints the means; the bounds are today's figures rounded up.
+    #[test]
+    fn limiting_takes_few_evaluations() {
+        let g = hard_guard(CLAMPS[1], 20.0);
+        let mut s = g.start_idle();
+        let (mut periods, mut probes, mut checks, mut most) = (0u32, 0u32, 0u32, 0u32);
+        for _ in 0..4000 {
+            EVALUATIONS.with(|c| c.set([0; 2]));
+            let o = g.tick(&mut s, Input::new(3200, Volts::from_num(24)));
+            let [p, c] = EVALUATIONS.with(core::cell::Cell::get);
+            if p > 0 {
+                assert!(o.duty < 3200);
+                periods += 1;
+                probes += p;
+                checks += c;
+                most = most.max(p + 4 * c);
+            }
+        }
+        let (mp, mc) = (
+            f64::from(probes) / f64::from(periods),
+            f64::from(checks) / f64::from(periods),
+        );
+        std::println!(
+            "limiting periods {periods}: {mp:.2} probes and {mc:.2} checks each; at most {most} probes + 4 x checks"
+        );
+        assert!(periods > 1000, "the drive must limit most of the time");
+        assert!(mp <= 7.0 && mc <= 3.0, "{mp:.2} probes, {mc:.2} checks");
+    }
     use crate::params::{ClampPath, CoilParams, ControlParams, Saturation, SupplyParams};
 
     /// A valve that exercises every part of the bound: saturating, 470 pF at its node, a
