@@ -185,7 +185,7 @@ fn compose(acc: u32, s: u32, e: u32, sd: u32) -> u32 {
     // (⌊⌊x/2^32⌋/2^sd⌋ = ⌊x/2^(32+sd)⌋): 32-bit shifts only, the high word of one
     // 32×32-bit multiply (a 64-bit shift by a variable amount is a long sequence on a
     // 32-bit core).
-    let high = ((u64::from(acc) * u64::from(e)) >> 32) as u32; // < 2^32
+    let high = (wide_mul(acc, e) >> 32) as u32; // < 2^32
     let prod = high.checked_shr(sd).unwrap_or(0);
     // acc + aligned − min(prod, acc), saturated: the same value in u32 (the subtraction first
     // cannot underflow, the saturating sum is the clamped exact one).
@@ -258,13 +258,48 @@ pub(crate) fn scale(d: i64, e: Decay) -> i64 {
     let mag = d.unsigned_abs();
     let hi = mag >> 32;
     let lo = mag & 0xFFFF_FFFF;
-    let m = u64::from(e.m);
-    // hi < 2^30 for |d| < 2^62, so hi·m < 2^62 and the sum cannot overflow.
-    let p = (hi * m).saturating_add((lo * m) >> 32);
+    // hi < 2^30 for |d| < 2^62 (it fits u32), so hi·m < 2^62 and the sum cannot overflow.
+    let p = wide_mul(hi as u32, e.m).saturating_add(wide_mul(lo as u32, e.m) >> 32);
     let p = p.checked_shr(e.s).unwrap_or(0);
     // p <= |d| < 2^62, so the cast is exact.
     let p = p as i64;
     if d < 0 { -p } else { p }
+}
+
+/// `a·b` as a 64-bit value: one instruction (UMULL) on v7-M and v8-M. ARMv6-M has no 32×32 →
+/// 64-bit multiply, and the compiler calls a 64×64-bit library routine for it; there it is
+/// [`mul_by_halves`], four 16×16-bit products in 32-bit registers (ARMv6-M is the only Arm
+/// profile here without compare-and-swap, which is how `cfg` tells it apart).
+#[inline(always)]
+pub(crate) fn wide_mul(a: u32, b: u32) -> u64 {
+    #[cfg(all(target_arch = "arm", not(target_has_atomic = "32")))]
+    {
+        mul_by_halves(a, b)
+    }
+    #[cfg(not(all(target_arch = "arm", not(target_has_atomic = "32"))))]
+    {
+        u64::from(a) * u64::from(b)
+    }
+}
+
+/// `a·b` from four 16×16-bit products, each below 2³², and 32-bit sums with their carries:
+/// the same value as the 64-bit product (tested on the host, and by the golden trace on the
+/// M0 build, which uses it).
+#[inline(always)]
+#[allow(dead_code)] // used by ARMv6-M builds and the tests
+pub(crate) fn mul_by_halves(a: u32, b: u32) -> u64 {
+    let (a0, a1) = (a & 0xFFFF, a >> 16);
+    let (b0, b1) = (b & 0xFFFF, b >> 16);
+    let low = a0 * b0; // each product < 2^32
+    let (mid, mid_carry) = (a1 * b0).overflowing_add(a0 * b1); // mid + carry·2^32
+    let (low, low_carry) = low.overflowing_add(mid << 16);
+    // The high word: a1·b1 + the middle's top half and carry + the low word's carry, below
+    // 2^32 because the whole product is below 2^64.
+    let high = (a1 * b1)
+        .wrapping_add(mid >> 16)
+        .wrapping_add(u32::from(mid_carry) << 16)
+        .wrapping_add(u32::from(low_carry));
+    (u64::from(high) << 32) | u64::from(low)
 }
 
 /// A positive constant gain in floating form: `g = m·2^sh` with `m` normalised to 31..32 bits.
@@ -301,7 +336,7 @@ impl Gain {
     /// `x·g`, saturating at `u64::MAX` (validation keeps every real use far below it).
     #[inline]
     pub(crate) fn apply(self, x: u32) -> u64 {
-        let p = u64::from(x) * u64::from(self.m);
+        let p = wide_mul(x, self.m);
         if self.sh >= 0 {
             let sh = self.sh as u32;
             if sh >= 64 || p.leading_zeros() < sh {
@@ -401,12 +436,14 @@ pub(crate) fn mul_q32(a: u64, b: u64) -> u64 {
     let (a_hi, a_lo) = (a >> 32, a & 0xFFFF_FFFF);
     let (b_hi, b_lo) = (b >> 32, b & 0xFFFF_FFFF);
     // a·b/2^32 = a_hi·b_hi·2^32 + a_hi·b_lo + a_lo·b_hi + a_lo·b_lo/2^32.
-    let Some(top) = (a_hi * b_hi).checked_mul(1 << 32) else {
+    // Each part fits u32, so each product is one 32×32-bit multiply.
+    let (a_hi, a_lo, b_hi, b_lo) = (a_hi as u32, a_lo as u32, b_hi as u32, b_lo as u32);
+    let Some(top) = wide_mul(a_hi, b_hi).checked_mul(1 << 32) else {
         return u64::MAX;
     };
-    top.saturating_add(a_hi * b_lo)
-        .saturating_add(a_lo * b_hi)
-        .saturating_add((a_lo * b_lo) >> 32)
+    top.saturating_add(wide_mul(a_hi, b_lo))
+        .saturating_add(wide_mul(a_lo, b_hi))
+        .saturating_add(wide_mul(a_lo, b_lo) >> 32)
 }
 
 /// Fractional bits of [`log2`] results.
@@ -581,9 +618,8 @@ pub(crate) fn div_up_wide(num: u128, den: u64) -> u64 {
 /// product).
 #[inline]
 fn recip_shr_u64(n: u64, m: u32, s: u32) -> u64 {
-    let m = u64::from(m);
-    let lo = (n & 0xFFFF_FFFF) * m; // < 2^64
-    let hi = (n >> 32) * m; // <= (2^32 − 1)^2
+    let lo = wide_mul(n as u32, m); // < 2^64 (the low word of n)
+    let hi = wide_mul((n >> 32) as u32, m); // <= (2^32 − 1)^2
     // n·m = mid·2^32 + r with r < 2^32; mid < 2^64 (hi < 2^64 − 2^33, lo >> 32 < 2^32).
     let mid = hi + (lo >> 32);
     let r = lo & 0xFFFF_FFFF;
@@ -1157,6 +1193,12 @@ mod tests {
                 let wide = ((u128::from(n) * u128::from(m)) >> s) + 1;
                 let want = wide.min(u128::from(u64::MAX)) as u64;
                 prop_assert_eq!(recip_shr_u64(n, m, s), want);
+            }
+
+            /// The product by 16-bit halves is the 64-bit product.
+            #[test]
+            fn the_product_by_halves_is_the_wide_one(a in any::<u32>(), b in any::<u32>()) {
+                prop_assert_eq!(mul_by_halves(a, b), u64::from(a) * u64::from(b));
             }
 
             /// A table composition in 32-bit words gives the 64-bit formula's value bit for bit:
