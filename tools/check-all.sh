@@ -12,7 +12,8 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
-MSRV=$(sed -n 's/^rust-version *= *"\(.*\)"/\1/p' Cargo.toml | head -n 1)
+# The library's own rust-version (in its [package] section; the workspace's is the tools').
+MSRV=$(awk '/^\[package\]/{p=1} p && /^rust-version *=/{gsub(/.*= *"|".*/, ""); print; exit}' Cargo.toml)
 TARGETS=(thumbv6m-none-eabi thumbv7em-none-eabihf thumbv8m.main-none-eabihf)
 
 step() { printf '\n== %s\n' "$*"; }
@@ -82,6 +83,7 @@ done
 
 step "minimum supported Rust ($MSRV)"
 cargo "+$MSRV" check -p coilward
+cargo "+$MSRV" check -p coilward --features defmt,flash
 
 step "on the emulated cores (QEMU): test vectors, golden trace, panic-free link"
 cargo xtask target-test
