@@ -328,17 +328,8 @@ fn target_bench() -> Result<(), String> {
             ],
         )?;
         let image = elf(core, "bench");
-        let start = symbol(&image, "coilward_bench_start")?;
-        let end = symbol(&image, "coilward_bench_end")?;
-        let counts_file = root()
-            .join("target")
-            .join("xtask")
-            .join(format!("counts-{}.txt", core.name));
-        let arg = format!(
-            "{},start={start:#x},end={end:#x},out={}",
-            plugin.display(),
-            counts_file.display()
-        );
+        let counts_file = xtask_file(&format!("counts-{}.txt", core.name));
+        let arg = plugin_arg(&plugin, &image, &counts_file)?;
         let (ok, text) = qemu(core, &image, Some(arg))?;
         if !ok {
             return Err(format!(
@@ -402,6 +393,22 @@ fn target_bench() -> Result<(), String> {
     Ok(())
 }
 
+/// A file of xtask's under `target/xtask/`.
+fn xtask_file(name: &str) -> PathBuf {
+    root().join("target").join("xtask").join(name)
+}
+
+/// The counting plugin's argument for `image`'s benchmark markers, its output to `out`.
+fn plugin_arg(plugin: &Path, image: &Path, out: &Path) -> Result<String, String> {
+    Ok(format!(
+        "{},start={:#x},end={:#x},out={}",
+        plugin.display(),
+        symbol(image, "coilward_bench_start")?,
+        symbol(image, "coilward_bench_end")?,
+        out.display()
+    ))
+}
+
 /// Where one benchmark operation's instructions go, by function: runs `bench` once to learn the
 /// operations' order, then again with the plugin counting per address inside that operation's
 /// window, and adds the counts up over the image's function symbols (what the compiler inlined
@@ -421,17 +428,8 @@ fn target_profile(op: &str, core_name: &str) -> Result<(), String> {
         "no operation '{op}' in the benchmark (it measures: {})",
         ops.join(", ")
     ))?;
-    let hist = root()
-        .join("target")
-        .join("xtask")
-        .join(format!("profile-{}.txt", core.name));
-    let arg = format!(
-        "{},start={:#x},end={:#x},out={},profile={window}",
-        plugin.display(),
-        symbol(&image, "coilward_bench_start")?,
-        symbol(&image, "coilward_bench_end")?,
-        hist.display()
-    );
+    let hist = xtask_file(&format!("profile-{}.txt", core.name));
+    let arg = format!("{},profile={window}", plugin_arg(&plugin, &image, &hist)?);
     let (ok, _) = qemu(core, &image, Some(arg))?;
     if !ok {
         return Err(format!("{}: the benchmark firmware failed", core.name));
@@ -464,18 +462,15 @@ fn target_profile(op: &str, core_name: &str) -> Result<(), String> {
     let total: u64 = counts.iter().map(|c| c.1).sum();
     for &(pc, n) in &counts {
         let i = functions.partition_point(|f| f.0 <= pc);
-        let name = match i.checked_sub(1).map(|i| &functions[i]) {
-            Some((start, size, name)) if pc < start + size => {
-                let e = by_function.entry(name).or_default();
-                e.0 += n;
-                if pc == *start {
-                    e.1 += n;
-                }
-                continue;
-            }
-            _ => "(no symbol)",
+        let (name, entered) = match i.checked_sub(1).map(|i| &functions[i]) {
+            Some((start, size, name)) if pc < start + size => (name.as_str(), pc == *start),
+            _ => ("(no symbol)", false),
         };
-        by_function.entry(name).or_default().0 += n;
+        let e = by_function.entry(name).or_default();
+        e.0 += n;
+        if entered {
+            e.1 += n;
+        }
     }
     let mut rows: Vec<_> = by_function.into_iter().collect();
     rows.sort_by_key(|r| std::cmp::Reverse(r.1.0));
