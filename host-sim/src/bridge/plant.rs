@@ -390,8 +390,8 @@ impl BridgePlant {
                 }
             };
             let end = stop.unwrap_or(left).min(left);
-            self.account(&sol, flow, la, lb, end, tally);
             let x = sol.at(end);
+            self.account(&sol, flow, la, lb, (end, x[0]), tally);
             self.state.current = if flow == Flow::Blocked { 0.0 } else { x[0] };
             self.state.speed = if self.circuit.rotor.is_some() {
                 x[1]
@@ -421,7 +421,7 @@ impl BridgePlant {
         flow: Flow,
         la: Leg,
         lb: Leg,
-        t: f64,
+        (t, i_end): (f64, f64),
         tally: &mut BridgeTally,
     ) {
         if t <= 0.0 {
@@ -433,7 +433,7 @@ impl BridgePlant {
         let (hi, lo, q, q2) = if flow == Flow::Blocked {
             (0.0, 0.0, 0.0, 0.0)
         } else {
-            let (hi, lo) = i.range(t);
+            let (hi, lo) = i.range_ending(t, i_end);
             (hi, lo, i.integral(t), i.integral_of_product(&i, t))
         };
         if let (Some(thr), None) = (tally.watch, tally.below_at) {
