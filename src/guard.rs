@@ -15,12 +15,16 @@
 //!   only once the estimate is at or below the release current; the remaining time is
 //!   `τ_off·ln((I + a)/(I_rel + a))` ([`Model::decay_time_us`]).
 //! - **Current ceiling** (`current-limit`): the bound must stay at or below the ceiling in the
-//!   coming period and in one more at the same duty; otherwise the largest duty that satisfies
-//!   it is searched outward from the last applied duty (steps of 1, 2, 4, … then bisection, no
-//!   division), and while rising toward it the guard goes half way, which settles the bound
-//!   where taking the largest would make it swing from period to period. The ceiling is the
-//!   lower of the configured one and the current whose turn-off energy at the maximum supply
-//!   equals the clamp's single-pulse rating.
+//!   coming period, and a duty above the *steady duty* must leave the steady duty possible in
+//!   the next one; otherwise the largest duty that satisfies both is searched from the last
+//!   applied duty (chord steps on the bound's values, no division). The steady duty is the
+//!   largest whose period, repeated, keeps every later rise under a level just below the
+//!   ceiling (its off-segment's peak, node charge included, at or below the ceiling): held at
+//!   it, the bound never leaves the ceiling, so limiting settles within a few counts instead
+//!   of swinging between long and short on-parts. It is found when the supply reading or the
+//!   stale factor moves (rounded up to 1/64 V and 2⁻¹⁶) and kept in the channel's state. The
+//!   ceiling is the lower of the configured one and the current whose turn-off energy at the
+//!   maximum supply equals the clamp's single-pulse rating.
 //! - **Trip** (`overcurrent`): the estimate (start or peak of the period) above the trip current.
 //! - **Clamp energy** (`clamp-pulse`, `clamp-overheat`): each commanded turn-off's energy
 //!   ([`Model::turn_off_energy`]) against the rating; the Foster replica fed by every off-segment
@@ -330,6 +334,50 @@ pub struct GuardState {
     /// The current is an assumption (after a reset), not an estimate from a known start: it
     /// holds the output off but raises no overcurrent or clamp-pulse until it has decayed.
     assumed: bool,
+    /// The steady duty last found for the limit, with what it was found for.
+    steady: Steady,
+}
+
+/// The steady duty a channel's limit uses and its search ([`Guard::steady_kept`]), marked with
+/// the low 16 bits of the fingerprint of the guard that found it (0: none) and the rounded
+/// supply and stale factor it is for; searched again when any of them differs. 20 bytes, so
+/// that the state stays at 160 (a retuned guard whose fingerprint shares the low bits and that
+/// meets the same rounded inputs would take another guard's steady duty: its look-ahead would
+/// then settle less well, the coming period's check is unaffected).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+struct Steady {
+    tag: u16,
+    /// The ceiling less the steady level, rounded up, in units of the power of two that puts
+    /// the ceiling within 16 bits.
+    margin: u16,
+    /// The rounded supply, Q16.16.
+    vh: u32,
+    /// The rounded stale factor, Q16.16.
+    f: u32,
+    /// The steady duty in use: the duty found before while the first slice is searched, then
+    /// the smallest of the slices' largest so far.
+    n: u16,
+    /// The slice being searched (the slices in use: all searched).
+    next: u8,
+    /// Its bracket: a count it holds at (0: none probed yet, taken to hold) and one it fails
+    /// at (one above the highest count searched: none probed yet).
+    lo: u16,
+    hi: u16,
+}
+
+impl Steady {
+    /// None found.
+    const NONE: Self = Self {
+        tag: 0,
+        margin: 0,
+        vh: 0,
+        f: 0,
+        n: 0,
+        next: 0,
+        lo: 0,
+        hi: 0,
+    };
 }
 
 /// What a channel may keep beside its [`GuardState`] so that a steady drive costs little (see
@@ -806,6 +854,7 @@ impl Guard {
             dropped: false,
             limit_linger: 0,
             assumed: false,
+            steady: Steady::NONE,
         }
     }
 
@@ -953,13 +1002,17 @@ impl Guard {
     }
 
     /// Whether the duty of `memo` keeps every slice's bound at or below the ceiling in the
-    /// coming period and in one more at the same duty, and if so the bound's peak in the coming
-    /// period (raw); if not, the first slice that does not hold. The look-ahead makes limiting
-    /// settle at the duty that holds the ceiling, instead of alternating full periods with
-    /// nearly empty ones. Monotone in the duty, slice by slice (every segment map of the bound
-    /// is monotone in its start and length), so the duties that hold are those at or below the
-    /// smallest of the slices' largest.
-    fn check(&self, state: &GuardState, memo: &mut Memo, vh: u32, f: u64) -> Result<i64, usize> {
+    /// coming period, and leaves the steady duty `steady` possible in the next one (see
+    /// [`Guard::steady_duty`]); if so the bound's peak in the coming period (raw), if not the
+    /// first slice that does not hold. Monotone in the duty, slice by slice (every segment map
+    /// of the bound is monotone in its start and length), so the duties that hold are those at
+    /// or below the smallest of the slices' largest.
+    fn check(
+        &self,
+        state: &GuardState,
+        memo: &mut Memo,
+        (vh, f, steady): (u32, u64, (u32, i64)),
+    ) -> Result<i64, usize> {
         #[cfg(test)]
         tests::count(1);
         let n = memo.slices.n;
@@ -968,7 +1021,13 @@ impl Guard {
         let mut peak = 0;
         for j in 0..self.bound.used() {
             let factors = memo.slices.slice(&self.bound, j, self.model.duty_full);
-            let (b1, v) = self.slice_at(state, (j, n, vh), factors, (Some(&fr), &rise_log), f);
+            let (b1, v) = self.slice_at(
+                state,
+                (j, n, vh),
+                factors,
+                (Some(&fr), &rise_log),
+                (f, steady),
+            );
             if v > self.ceiling {
                 return Err(j);
             }
@@ -986,8 +1045,10 @@ impl Guard {
 
     /// Slice `j` at duty `n` with its factors, one piece for [`Guard::check`] and the limit's
     /// search: its bound's rise in the coming period (raw), and the highest of that rise raised
-    /// and, when it is at or below the ceiling, of the off-segment's peak and the look-ahead's
-    /// rise (raised). The slice holds exactly when the second is at or below the ceiling.
+    /// and, when it is at or below the ceiling, of the off-segment's peak and, for a duty above
+    /// the steady one, the rise of a period at the steady duty after it (raised). The slice
+    /// holds exactly when the second is at or below the ceiling. A duty at or below the steady
+    /// one needs no look-ahead: from a rise at or below the ceiling, its next rise is too.
     /// `fr`: the period's off-frame when the caller shares one across slices, else it is
     /// computed here once the rise holds.
     fn slice_at(
@@ -996,7 +1057,7 @@ impl Guard {
         (j, n, vh): (usize, u32, u32),
         (e_on, e_off): (Decay, Decay),
         (fr, rise_log): (Option<&OffFrame>, &SharedLog),
-        f: u64,
+        (f, steady): (u64, (u32, i64)),
     ) -> (i64, i64) {
         let b = &self.bound;
         let b0 = state.slice_start(j, n);
@@ -1013,27 +1074,216 @@ impl Guard {
             &own
         };
         let (off_peak, b2) = b.off_slice(j, b1, fr, e_off);
-        let b3 = b.on_slice((j, b2), (n, vh), e_on, rise_log);
-        (b1, r1.max(Self::raised(b3.max(off_peak), f)))
+        let v = r1.max(Self::raised(off_peak, f));
+        let (sn, level) = steady;
+        if n <= sn {
+            return (b1, v);
+        }
+        // Above the steady duty: the next rise at the steady duty must end at or below the
+        // steady level (shifted so that the value compares with the ceiling).
+        let e = crate::tolerance::on_factor(b, j, sn);
+        let b3 = b.on_slice((j, b2), (sn, vh), e, rise_log);
+        (
+            b1,
+            v.max(b3.saturating_sub(level).saturating_add(self.ceiling)),
+        )
     }
 
     /// [`Guard::slice_at`]'s value for slice `j` alone at duty `n` (a probe of the limit's
     /// search, a sixth of a full check with six slices).
-    fn slice_value(&self, state: &GuardState, j: usize, n: u32, vh: u32, f: u64) -> i64 {
+    fn slice_value(
+        &self,
+        state: &GuardState,
+        (j, n): (usize, u32),
+        vh: u32,
+        (f, steady): (u64, (u32, i64)),
+    ) -> i64 {
         #[cfg(test)]
         tests::count(0);
         let factors = DutyFactors::one(&self.bound, j, n, self.model.duty_full);
         let rise_log = SharedLog::new(None);
-        self.slice_at(state, (j, n, vh), factors, (None, &rise_log), f)
+        self.slice_at(state, (j, n, vh), factors, (None, &rise_log), (f, steady))
             .1
+    }
+
+    /// Slice `j`'s steady test at duty `n` from the steady `level` (raw): a period's
+    /// off-segment from the level (its peak, raised) and the next rise at the same duty (its
+    /// excess over the level, shifted so that the value compares with the ceiling). When the
+    /// value is at or below the ceiling, a drive held at `n` whose rise ends at or below the
+    /// level keeps every later rise there (each period's map from one rise's end to the next
+    /// is monotone in its start) and every off-segment's peak at or below the ceiling. Rising
+    /// in `n`.
+    fn steady_value(&self, (j, n): (usize, u32), (vh, f): (u32, u64), level: i64) -> i64 {
+        let b = &self.bound;
+        let full = self.model.duty_full;
+        let (e_on, e_off) = DutyFactors::one(b, j, n, full);
+        let fr = b.off_frame(full - n, vh, n > 0 && n < full, Unit::Count);
+        let rise_log = SharedLog::new(None);
+        let (off_peak, b2) = b.off_slice(j, level, &fr, e_off);
+        let b3 = b.on_slice((j, b2), (n, vh), e_on, &rise_log);
+        Self::raised(off_peak.max(level), f)
+            .max(b3.saturating_sub(level).saturating_add(self.ceiling))
+    }
+
+    /// The steady level at the high supply `vh` and the stale factor `f` (raw): the ceiling
+    /// less the stale factor's share and less what a turn-off's node charge adds to the peak
+    /// (the same for every start, slice and length that decays), so that a rise ending there
+    /// keeps its raised peak and its off-segment's at or below the ceiling; checked, and
+    /// lowered by the excess when the check fails. 0 when nothing holds.
+    fn steady_level(&self, vh: u32, f: u64) -> i64 {
+        let c = self.ceiling;
+        // c·(2 − f) <= c/f for f >= 1.
+        let share = crate::qmath::mul_q32(c.max(0) as u64, f.saturating_sub(1 << 32));
+        let mut y = c.saturating_sub(share.min(c.max(0) as u64) as i64);
+        let full = self.model.duty_full;
+        let b = &self.bound;
+        let fr = b.off_frame(full - 1, vh, true, Unit::Count);
+        let e = DutyFactors::one(b, 0, 1, full).1;
+        for _ in 0..3 {
+            let (peak, _) = b.off_slice(0, y, &fr, e);
+            let excess = Self::raised(peak.max(y), f).saturating_sub(c);
+            if excess <= 0 {
+                return y;
+            }
+            y = y.saturating_sub(excess).max(0);
+        }
+        0
+    }
+
+    /// The steady duty and level at the high supply `vh` and the stale factor `f`: the largest
+    /// duty below the full one that every slice's steady test ([`Guard::steady_value`])
+    /// passes from the steady level ([`Guard::steady_level`]), so that a drive held at it whose
+    /// rise ends at or below the level stays under the ceiling in every later period (0 when
+    /// none passes): where [`Guard::steady_kept`] arrives, a probe a call.
+    #[cfg(test)]
+    fn steady_duty(&self, vh: u32, f: u64) -> (u32, i64) {
+        let mut kept = Steady::NONE;
+        let mut found = self.steady_kept(&mut kept, vh, f);
+        for _ in 0..10_000 {
+            if usize::from(kept.next) >= self.bound.used() {
+                break;
+            }
+            found = self.steady_kept(&mut kept, vh, f);
+        }
+        found
+    }
+
+    /// The steady duty's inputs rounded up: the supply to 1/64 V (Q16.16), the stale factor to
+    /// 2⁻¹⁶ (Q32.32).
+    const fn steady_key(vh: u32, f: u64) -> (u32, u64) {
+        (vh | 0x3ff, f | 0xffff)
+    }
+
+    /// The steady duty and level in use, from what the channel keeps, after one step of the
+    /// search for the steady duty at `vh` and `f` rounded up ([`Guard::steady_key`], which
+    /// lowers the answer, if at all, by what that much more supply or staleness costs, and
+    /// lets a reading that moves by less keep what was found). At other inputs (or for another
+    /// guard) the level is found again and the slices start over, the first from the duty in
+    /// use. A step is one probe of one slice's steady test, so a moving supply reading never
+    /// costs a whole search in one period; until the last slice is searched the duty in use
+    /// may be above the steady one, which only makes the look-ahead settle less well (the
+    /// coming period's check does not depend on it).
+    ///
+    /// Each slice searches the counts up to the one above its top (below the full duty for the
+    /// first slice — a period without a turn-off adds no node charge, so the test can pass at
+    /// the full duty and fail just below it —, the duty in use for the others), from the duty
+    /// in use `g`: one count above it first, then, after a pass, upward by doubling steps
+    /// from it, after a failure, downward by doubling steps from it, and bisection once the
+    /// count it holds at and the one it fails at are both known.
+    fn steady_kept(&self, kept: &mut Steady, vh: u32, f: u64) -> (u32, i64) {
+        let (vq, fq) = Self::steady_key(vh, f);
+        // The rounded factor's low 16 bits are all ones: the high ones say it all (saturated
+        // past 65 536, where the level is 0 anyway).
+        let fk = (fq >> 16).min(u64::from(u32::MAX)) as u32;
+        // The low bits of the fingerprint, as a tag (truncation intended).
+        let tag = self.fingerprint as u16;
+        let full = self.model.duty_full;
+        // The margin's unit: the power of two that puts the ceiling within 16 bits.
+        let shift = 48u32.saturating_sub(self.ceiling.max(1).leading_zeros());
+        if kept.tag != tag || tag == 0 || kept.vh != vq || kept.f != fk {
+            let g = if kept.tag == tag && tag != 0 {
+                u32::from(kept.n)
+            } else {
+                full / 2
+            };
+            let below = self
+                .ceiling
+                .saturating_sub(self.steady_level(vq, fq))
+                .max(0);
+            let unit = (1i64 << shift) - 1;
+            let margin = (below.saturating_add(unit) >> shift).min(i64::from(u16::MAX));
+            // duty_full <= 65 535 (validated); margin clamped to u16.
+            *kept = Steady {
+                tag,
+                margin: margin as u16,
+                vh: vq,
+                f: fk,
+                n: g as u16,
+                next: 0,
+                lo: 0,
+                hi: full as u16,
+            };
+        }
+        let level = self
+            .ceiling
+            .saturating_sub(i64::from(kept.margin) << shift)
+            .max(0);
+        let j = usize::from(kept.next);
+        if j < self.bound.used() {
+            self.steady_step(kept, j, (vq, fq), level);
+        }
+        (u32::from(kept.n), level)
+    }
+
+    /// One probe of slice `j`'s search (see [`Guard::steady_kept`]); when its bracket closes,
+    /// its largest becomes the duty in use and the next slice starts below it.
+    fn steady_step(&self, kept: &mut Steady, j: usize, key: (u32, u64), level: i64) {
+        let g = u32::from(kept.n);
+        let top = if j == 0 {
+            self.model.duty_full.saturating_sub(1)
+        } else {
+            g
+        };
+        let (mut lo, mut hi) = (u32::from(kept.lo), u32::from(kept.hi));
+        if lo + 1 < hi {
+            let p = if lo == 0 && hi == top + 1 {
+                // Nothing probed yet.
+                (g + 1).min(top)
+            } else if hi == top + 1 {
+                // Passed only: up by doubling steps from the duty in use.
+                lo + lo.saturating_sub(g).max(1)
+            } else if lo == 0 {
+                // Failed only: down by doubling steps from one above it.
+                hi.saturating_sub((g + 1).saturating_sub(hi).max(1))
+            } else {
+                u32::midpoint(lo, hi)
+            };
+            // Inside the bracket (not `clamp`: its assertion would be a panic path).
+            let p = p.max(lo + 1).min(hi - 1);
+            if self.steady_value((j, p), key, level) <= self.ceiling {
+                lo = p;
+            } else {
+                hi = p;
+            }
+        }
+        // lo < hi <= duty_full <= 65 535; j < SLICES <= 255.
+        if lo + 1 >= hi {
+            kept.n = lo as u16;
+            kept.next = (j + 1) as u8;
+            kept.lo = 0;
+            kept.hi = (lo + 1) as u16;
+        } else {
+            (kept.lo, kept.hi) = (lo as u16, hi as u16);
+        }
     }
 
     /// A sufficient test for [`Guard::check`] with one slice instead of all, and an upper bound
     /// of the bound's peak in the coming period: the first slice's rise (the lowest inductance,
     /// so at or above every slice's from the same start) from the largest start, the
-    /// off-segment at its highest ([`Bound::off_top`]) and the rise again. Far from the ceiling
-    /// it settles a period in two segments instead of three per slice; near it, it fails and
-    /// the slices decide.
+    /// off-segment at its highest ([`Bound::off_top`]) and the rise again at the same duty (at
+    /// or above the check's look-ahead, which rises at the steady duty, shorter, if at all). Far
+    /// from the ceiling it settles a period in two segments instead of three per slice; near
+    /// it, it fails and the slices decide.
     /// `b0` is the bound now (the largest slice, or the ring's envelope): at or above every
     /// slice's start.
     fn screen(&self, b0: i64, memo: &mut Memo, vh: u32, f: u64) -> Option<i64> {
@@ -1055,20 +1305,47 @@ impl Guard {
 
     /// The requested `duty`, or the largest one below it that holds the bound under the ceiling
     /// (`check` is monotone in the duty), with its memo and the bound's peak in the coming
-    /// period; duty 0 when none does.
+    /// period; duty 0 when none does. `steady`: the channel's kept steady duty.
+    ///
+    /// Held at the ceiling, the answer is the last duty or near it, so the search starts one
+    /// count above it, with the last slice (the highest inductance, which binds the look-ahead
+    /// most often) and the first (the lowest, which binds the rise): a slice failing there is
+    /// searched from the last duty (two probes when that is the answer). When the last period
+    /// was limited too, that comes before the request is tried (a slice failing one count above
+    /// the last duty fails the request as well). (Searched from the first failing slice at the
+    /// request alone, the check at its answer fails at the next slice most of the time, and
+    /// each failure costs a search and a check.)
     fn limit(
         &self,
         (state, b0): (&GuardState, i64),
-        kept: &mut Memo,
+        (kept, steady): (&mut Memo, &mut Steady),
         duty: u32,
         vh: u32,
         f: u64,
     ) -> (u32, Option<i64>) {
+        let (last, top) = (state.applied, self.bound.used().saturating_sub(1));
+        let up = last + 1 < duty;
+        let early = up && state.active.contains(Condition::CurrentLimit);
+        // The steady duty, once a call: each call takes one step of its search.
+        let mut got = None;
+        if early {
+            let sn = *got.get_or_insert_with(|| self.steady_kept(steady, vh, f));
+            for j in [top, 0] {
+                let v = self.slice_value(state, (j, last + 1), vh, (f, sn));
+                if v > self.ceiling {
+                    return self.search(state, kept, (vh, f, sn), (j, last + 1, Some(v), None));
+                }
+            }
+        }
         // The requested duty: in the channel's memo when it is for that duty (a steady drive:
-        // nothing copied), else in a fresh one that replaces it if the duty holds.
-        let passes = |memo: &mut Memo| match self.screen(b0, memo, vh, f) {
-            Some(p) => Ok(p),
-            None => self.check(state, memo, vh, f),
+        // nothing copied), else in a fresh one that replaces it if the duty holds. The steady
+        // duty is found only when the screen fails.
+        let mut passes = |memo: &mut Memo| {
+            if let Some(p) = self.screen(b0, memo, vh, f) {
+                return Ok(p);
+            }
+            let sn = *got.get_or_insert_with(|| self.steady_kept(steady, vh, f));
+            self.check(state, memo, (vh, f, sn))
         };
         let failed = if self.is_for(kept, duty) {
             match passes(kept) {
@@ -1085,71 +1362,81 @@ impl Guard {
                 Err(j) => j,
             }
         };
-        // The probes of the search sit near the ceiling, where the screen fails. The duties
-        // that hold are those at or below every slice's largest (each slice is monotone in the
-        // duty): search one failing slice alone (a sixth of a check per probe), then check
-        // every slice at the answer. The check that passes there proves the answer is the
-        // smallest of the slices' largest (they all hold at it, and the searched one fails one
-        // count above) and fills the memo; one that fails names the next slice to search, below
-        // the answer (each slice fails at most once: it holds below its largest).
+        let sn = got.unwrap_or_else(|| self.steady_kept(steady, vh, f));
+        if !up {
+            return self.search(state, kept, (vh, f, sn), (failed, duty, None, None));
+        }
+        // One count above the last duty: the two slices (unless probed above), then the slice
+        // that failed the request. When all hold, the answer rose: that slice is probed one
+        // count higher and searched from there or from the request.
+        let u = last + 1;
+        for (k, j) in [top, 0, failed].into_iter().enumerate() {
+            let seen = (k == 1 && top == 0) || (k == 2 && (failed == top || failed == 0));
+            if seen || (early && (j == top || j == 0)) {
+                continue;
+            }
+            let v = self.slice_value(state, (j, u), vh, (f, sn));
+            if v > self.ceiling {
+                return self.search(state, kept, (vh, f, sn), (j, u, Some(v), None));
+            }
+        }
+        if u + 1 < duty {
+            let v = self.slice_value(state, (failed, u + 1), vh, (f, sn));
+            if v > self.ceiling {
+                return self.search(state, kept, (vh, f, sn), (failed, u + 1, Some(v), Some(u)));
+            }
+            return self.search(state, kept, (vh, f, sn), (failed, duty, None, Some(u + 1)));
+        }
+        self.search(state, kept, (vh, f, sn), (failed, duty, None, Some(u)))
+    }
+
+    /// The limit's search from slice `failing` failing at `lo` (its value when `known`; a
+    /// count below `lo` it holds at when `holds`): the slice's largest duty, then every slice
+    /// checked there; a check that fails names the next slice to search, below the answer
+    /// (each slice fails at most once: it holds below its largest). The check that passes
+    /// proves the answer is the smallest of the slices' largest and fills the memo.
+    fn search(
+        &self,
+        state: &GuardState,
+        kept: &mut Memo,
+        (vh, f, sn): (u32, u64, (u32, i64)),
+        (mut failing, mut lo, mut known, mut holds): (usize, u32, Option<i64>, Option<u32>),
+    ) -> (u32, Option<i64>) {
         let last = state.applied;
-        let value = |j: usize, n: u32| self.slice_value(state, j, n, vh, f);
-        // The last slice (the highest inductance) binds most often: search it first when it
-        // fails too. (Searched from the first failing slice instead, the check at its answer
-        // fails at the next slice most of the time, and each failure costs a search and a
-        // check.)
-        let top = self.bound.used().saturating_sub(1);
-        let v_top = value(top, duty);
-        let top_fails = v_top > self.ceiling;
-        let (mut lo, mut guess) = (duty, last);
-        let mut failing = if top_fails { top } else { failed };
-        let mut found = None;
-        for round in 0..=SLICES {
-            let v = if round == 0 && top_fails {
-                v_top
-            } else {
-                value(failing, lo)
-            };
+        let value = |j: usize, n: u32| self.slice_value(state, (j, n), vh, (f, sn));
+        for _ in 0..=SLICES {
+            let v = known.take().unwrap_or_else(|| value(failing, lo));
             if v <= self.ceiling {
                 // The check and the probe disagree (they compute the same values): give up
                 // toward the safe side.
                 break;
             }
-            lo = crate::qmath::largest_count_to_level(lo, v, guess, self.ceiling, |n| {
-                value(failing, n)
-            });
-            guess = lo.saturating_sub(1);
+            lo = match holds.take() {
+                // Failing one count above a count it holds at: that count is its largest.
+                Some(h) if h + 1 == lo => h,
+                h => {
+                    let guess = h.unwrap_or(if last < lo {
+                        last
+                    } else {
+                        lo.saturating_sub(1)
+                    });
+                    crate::qmath::largest_count_to_level(lo, v, guess, self.ceiling, |n| {
+                        value(failing, n)
+                    })
+                }
+            };
             let mut memo = self.recall(kept, lo);
-            match self.check(state, &mut memo, vh, f) {
+            match self.check(state, &mut memo, (vh, f, sn)) {
                 Ok(peak) => {
-                    found = Some((memo, peak));
-                    break;
+                    *kept = memo;
+                    return (lo, Some(peak));
                 }
                 Err(j) if lo > 0 => failing = j,
                 Err(_) => break,
             }
         }
-        let Some((memo, peak)) = found else {
-            *kept = self.recall(kept, 0);
-            return (0, None);
-        };
-        // Rising toward the ceiling, go half way: the largest duty that holds swings the bound
-        // (a long on-part leaves it high, so the next largest is short, and so on), half steps
-        // settle it. Below the largest, the duty holds; its check finds its peak and fills its
-        // memo (and would give duty 0 were it to fail).
-        if last == 0 || lo <= last {
-            *kept = memo;
-            return (lo, Some(peak));
-        }
-        let half = last + (lo - last).div_ceil(2);
-        let mut chosen = self.recall(kept, half);
-        if let Ok(peak) = self.check(state, &mut chosen, vh, f) {
-            *kept = chosen;
-            (half, Some(peak))
-        } else {
-            *kept = self.recall(kept, 0);
-            (0, None)
-        }
+        *kept = self.recall(kept, 0);
+        (0, None)
     }
 
     /// Advances the bound over one period of duty `n`: returns its peak and end (the largest
@@ -1626,7 +1913,9 @@ impl Guard {
         let mut predicted = i0;
         if duty > 0 {
             if let Some(kept) = memo {
-                let (limited, peak) = self.limit((state, i0), kept, duty, vh, f);
+                let mut steady = state.steady;
+                let (limited, peak) = self.limit((state, i0), (kept, &mut steady), duty, vh, f);
+                state.steady = steady;
                 if limited != duty {
                     duty = limited;
                     active.insert(Condition::CurrentLimit);
@@ -1700,37 +1989,80 @@ mod tests {
         });
     }
 
-    /// The limit's search costs a few slice probes and checks a limiting period: the valve of
-    /// the golden trace (saturating, 470 pF, switch clamp, six slices) asked for full duty for
-    /// 4 000 periods from rest (`cargo xtask target-profile tick-limit` shows the instructions
-    /// following them). Prints the means; the bounds are today's figures rounded up.
+    /// The limit's search costs a few slice probes and checks a limiting period, and the
+    /// limited duty settles: the valve of the golden trace (saturating, 470 pF, switch clamp,
+    /// six slices) asked for full duty for 4 000 periods from rest (`cargo xtask
+    /// target-profile tick-limit` shows the instructions following them). Prints the means and
+    /// the spread of the limited duty over the last 400 limiting periods; the bounds are
+    /// today's figures rounded up. (With a look-ahead of one period at the same duty instead
+    /// of the steady duty, and half steps while rising, this drive swung 2138 ↔ 2701 counts
+    /// in a cycle of four periods, at 6.28 probes and 2.83 checks a period.)
     #[test]
     fn limiting_takes_few_evaluations() {
         let g = hard_guard(CLAMPS[1], 20.0);
         let mut s = g.start_idle();
         let (mut periods, mut probes, mut checks, mut most) = (0u32, 0u32, 0u32, 0u32);
+        let mut duties = std::vec::Vec::new();
         for _ in 0..4000 {
             EVALUATIONS.with(|c| c.set([0; 2]));
             let o = g.tick(&mut s, Input::new(3200, Volts::from_num(24)));
             let [p, c] = EVALUATIONS.with(core::cell::Cell::get);
-            if p > 0 {
-                assert!(o.duty < 3200);
+            // Every probe and check counts, also those of a period that turns out not to limit.
+            probes += p;
+            checks += c;
+            most = most.max(p + 4 * c);
+            if o.duty < 3200 && o.duty > 0 {
                 periods += 1;
-                probes += p;
-                checks += c;
-                most = most.max(p + 4 * c);
+                duties.push(o.duty);
             }
         }
         let (mp, mc) = (
             f64::from(probes) / f64::from(periods),
             f64::from(checks) / f64::from(periods),
         );
+        let settled = &duties[duties.len().saturating_sub(400)..];
+        let lo = settled.iter().copied().min().unwrap_or(0);
+        let hi = settled.iter().copied().max().unwrap_or(0);
         std::println!(
-            "limiting periods {periods}: {mp:.2} probes and {mc:.2} checks each; at most {most} probes + 4 x checks"
+            "limiting periods {periods}: {mp:.2} probes and {mc:.2} checks each; at most {most} probes + 4 x checks; last 400 limited to {lo} ..= {hi} of 3200"
         );
         assert!(periods > 1000, "the drive must limit most of the time");
-        assert!(mp <= 7.0 && mc <= 3.0, "{mp:.2} probes, {mc:.2} checks");
+        assert!(mp <= 2.5 && mc <= 1.15, "{mp:.2} probes, {mc:.2} checks");
+        assert!(hi - lo <= 2 && lo > 2000, "{lo} ..= {hi}");
     }
+
+    /// A slice of valve drives held at the steady duty from rest is never limited: the steady
+    /// duty keeps every later period under the ceiling (the property the limit's look-ahead
+    /// relies on), at any supply in the range, with either clamp path.
+    #[test]
+    fn the_steady_duty_is_never_limited() {
+        for clamp in CLAMPS {
+            let g = hard_guard(clamp, 20.0);
+            for volts in [18.0, 21.0, 24.0, 27.0, 30.0] {
+                let vs = Volts::from_num(volts);
+                let vh = g.bound.supply_hi(g.model.supply(vs));
+                let (sn, level) = g.steady_duty(vh, g.stale_factor(&g.start_idle()));
+                assert!(sn > 0 && level > 0 && level <= g.ceiling, "{sn} {level}");
+                let mut s = g.start_idle();
+                let mut peak = Current::ZERO;
+                for k in 0..3000 {
+                    let o = g.tick(&mut s, Input::new(sn, vs));
+                    assert!(
+                        !o.active.contains(Condition::CurrentLimit),
+                        "{volts} V: steady duty {sn} limited at period {k}: {o:?}"
+                    );
+                    peak = peak.max(o.predicted_peak);
+                }
+                std::println!(
+                    "{volts} V: steady duty {sn} of 3200, predicted peak {:.4} A under {:.4} A",
+                    g.model().amps(peak),
+                    g.model().amps(g.ceiling())
+                );
+                assert!(peak <= g.ceiling());
+            }
+        }
+    }
+
     use crate::params::{ClampPath, CoilParams, ControlParams, Saturation, SupplyParams};
 
     /// A valve that exercises every part of the bound: saturating, 470 pF at its node, a
@@ -1856,8 +2188,8 @@ mod tests {
         }
 
         /// The limit's search slice by slice finds what a scan of every duty with every slice
-        /// finds: the largest duty at or below the request that holds (then, rising, half way
-        /// from the last duty), with the slices' peak when it limits.
+        /// finds: the largest duty at or below the request that holds, with the slices' peak
+        /// when it limits; and it keeps the steady duty it found.
         #[test]
         fn the_limit_is_the_largest_duty_that_holds(
             clamp in 0usize..2,
@@ -1877,23 +2209,62 @@ mod tests {
             let vs = Volts::from_num(steps.last().map_or(24.0, |x| x.1));
             let vh = g.bound.supply_hi(g.model.supply(vs));
             let f = g.stale_factor(&s);
-            let holds = |n: u32| g.check(&s, &mut g.recall(&Memo::NONE, n), vh, f);
-            let scanned = (0..=request).rev().find(|&n| holds(n).is_ok());
-            let expected = match scanned {
-                Some(n) if n < request && s.applied > 0 && n > s.applied => {
-                    s.applied + (n - s.applied).div_ceil(2)
-                }
-                Some(n) => n,
-                None => 0,
-            };
-            let mut memo = Memo::NONE;
-            let (duty, peak) = g.limit((&s, s.bound_bits()), &mut memo, request, vh, f);
+            // What the limit's one step of the steady duty's search finds from nothing kept.
+            let mut fresh = Steady::NONE;
+            let sn = g.steady_kept(&mut fresh, vh, f);
+            let holds = |n: u32| g.check(&s, &mut g.recall(&Memo::NONE, n), (vh, f, sn));
+            let expected = (0..=request).rev().find(|&n| holds(n).is_ok()).unwrap_or(0);
+            let (mut memo, mut kept) = (Memo::NONE, Steady::NONE);
+            let (duty, peak) =
+                g.limit((&s, s.bound_bits()), (&mut memo, &mut kept), request, vh, f);
             proptest::prop_assert_eq!(duty, expected);
+            proptest::prop_assert!(kept.tag == 0 || kept == fresh);
             // A request that holds may take the screen's peak (an upper bound); a limited
             // duty takes the slices'.
             if expected < request {
                 proptest::prop_assert_eq!(peak, holds(expected).ok());
             }
+        }
+
+        /// The steady duty, searched a slice a call from the duty found at another supply, is
+        /// the largest duty below the full one that every slice's steady test passes, whatever
+        /// was found before: every slice passes at it, one fails a count above, and a duty
+        /// picked at random below the full one passes exactly when it is at or below it (the
+        /// tests are monotone in the duty there).
+        #[test]
+        fn the_steady_duty_is_the_largest_every_slice_passes(
+            clamp in 0usize..2,
+            before in 16.0f32..32.0,
+            supply in 16.0f32..32.0,
+            probe in 0u32..3200,
+        ) {
+            let g = hard_guard(CLAMPS[clamp % 2], 20.0);
+            let f = 1u64 << 32;
+            let vh_of = |v: f32| g.bound.supply_hi(g.model.supply(Volts::from_num(v)));
+            // Searched to the end at one supply, then at another; the probes a search takes.
+            let settle = |kept: &mut Steady, v: f32| {
+                let mut calls = 0u32;
+                let mut found = g.steady_kept(kept, vh_of(v), f);
+                while usize::from(kept.next) < g.bound.used() && calls < 10_000 {
+                    found = g.steady_kept(kept, vh_of(v), f);
+                    calls += 1;
+                }
+                (found, calls + 1)
+            };
+            let mut kept = Steady::NONE;
+            settle(&mut kept, before);
+            let (found, calls) = settle(&mut kept, supply);
+            proptest::prop_assert!(calls <= 200, "{calls} calls");
+            proptest::prop_assert_eq!(found, g.steady_duty(vh_of(supply), f));
+            let (n, level) = found;
+            let (vq, fq) = Guard::steady_key(vh_of(supply), f);
+            let passes = |m: u32| {
+                (0..g.bound.used()).all(|j| g.steady_value((j, m), (vq, fq), level) <= g.ceiling)
+            };
+            proptest::prop_assert!(passes(n), "{n}");
+            proptest::prop_assert!(n == 3199 || !passes(n + 1), "{n}");
+            let probe = probe.min(3199);
+            proptest::prop_assert_eq!(passes(probe), probe <= n, "{} against {}", probe, n);
         }
 
         /// The screen is sufficient and its peak is an upper bound: whenever it passes a duty,
@@ -1912,7 +2283,7 @@ mod tests {
                 let f = g.stale_factor(&s);
                 let mut memo = g.recall(&Memo::NONE, probe);
                 if let Some(p) = g.screen(s.bound_bits(), &mut memo, vh, f) {
-                    let q = g.check(&s, &mut memo, vh, f);
+                    let q = g.check(&s, &mut memo, (vh, f, g.steady_duty(vh, f)));
                     proptest::prop_assert!(q.is_ok(), "the screen passed {probe}, the slices did not");
                     proptest::prop_assert!(q.unwrap_or(i64::MAX) <= p, "{q:?} > {p}");
                 }

@@ -81,8 +81,8 @@
 //! - the clamp's average power: a first-order average of each period's clamp energy against a
 //!   declared limit (`ClampPower`; default 0.5 W, common practice for small surface-mount clamps, no
 //!   single source), `tests/guard.rs`;
-//! - limiting with a two-period look-ahead: the duty that holds the bound at the ceiling now and in
-//!   the next period, so it settles (one count in 3200 measured, `tests/guard.rs`).
+//! - limiting toward a steady duty: a duty that, held, keeps every later period under the ceiling,
+//!   so limiting settles (one count in 3200 measured, `tests/guard.rs`).
 //!
 //! # Panics
 //! None: as the estimate (see [`crate::CoilState`]); the node-charge terms divide by an
@@ -381,6 +381,12 @@ impl DutyFactors {
                 (sl.on.eval(n), sl.off.eval(full.saturating_sub(n)))
             })
     }
+}
+
+/// Slice `j`'s on-factor for `n` counts alone (the steady duty's rise in the limit's
+/// look-ahead, [`crate::Guard`]).
+pub(crate) fn on_factor(bound: &Bound, j: usize, n: u32) -> Decay {
+    bound.slices.get(j).map_or(Decay::ZERO, |sl| sl.on.eval(n))
 }
 
 /// Slices of the inductance range tracked side by side in PWM, at most (see the module

@@ -683,9 +683,11 @@ fn limiting_on_a_declared_tolerance_settles_too() {
     // The demo valve made harder to bound: saturating above 0.9 A (12 mH saturated), 470 pF at
     // its node, and a declared tolerance (L ±20 %, R ±10 %, reading ±2 %, node C +50 %,
     // saturation ±10 %/±20 %), so six slices of the inductance range decide the ceiling. Taking
-    // the largest duty that holds made the bound swing: a long on-part left it high, the next
-    // largest was short, and so on, 1711 ↔ 2363 counts forever (measured before the half step
-    // was added). Half steps while rising settle it within four counts of 3200.
+    // the largest duty that holds the ceiling now and one more period at the same duty made the
+    // bound swing: a long on-part left it high, the next largest was short, and so on, 1711 ↔
+    // 2363 counts forever; half steps while rising narrowed that to four counts here (and not
+    // at all on other valves: 2138 ↔ 2701 on the golden trace's). The look-ahead toward the
+    // steady duty settles it within one count.
     let mut p = common::valve();
     p.coil = p
         .coil
@@ -711,5 +713,5 @@ fn limiting_on_a_declared_tolerance_settles_too() {
         hi = hi.max(out.duty);
     }
     eprintln!("CHECK settled limiting inside a declared tolerance: duty {lo} ..= {hi} of {N}");
-    assert!(hi - lo <= 4, "{lo} ..= {hi}");
+    assert!(hi - lo <= 2, "{lo} ..= {hi}");
 }

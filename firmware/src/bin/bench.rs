@@ -166,20 +166,38 @@ fn typical(out: &mut hio::HostStream, guard: &Guard, l: &coilward::GuardLimits) 
 fn worst(out: &mut hio::HostStream, guard: &Guard) {
     let m = guard.model();
     let vs = Volts::from_num(24);
-    // Paths that can be the longest: the ceiling's bisection ...
+    // Paths that can be the longest: the ceiling's search (full duty asked for, limited) ...
     let mut s = guard.start_idle();
-    let mut limited = s;
+    let mut memo = coilward::TickMemo::EMPTY;
+    let (mut limited, mut kept) = (s, memo);
     for _ in 0..4000 {
-        let before = s;
-        let o = guard.tick(&mut s, Input::new(3200, vs));
+        let (before, memo_before) = (s, memo);
+        let o = guard.tick_with(&mut s, &mut memo, Input::new(3200, vs));
         if o.duty < 3200 && o.duty > 0 {
-            limited = before;
+            (limited, kept) = (before, memo_before);
         }
     }
+    let (mut moved, mut with_memo) = (limited, limited);
     measure(out, "tick-limit", || {
         guard.tick(
             black_box(&mut limited),
             Input::new(black_box(3200), black_box(vs)),
+        )
+    });
+    // ... the same period with the channel's memo ...
+    measure(out, "tick-limit-memo", || {
+        guard.tick_with(
+            black_box(&mut with_memo),
+            black_box(&mut kept),
+            Input::new(black_box(3200), black_box(vs)),
+        )
+    });
+    // ... and with the supply reading moved by 0.1 V, so the steady duty is found again.
+    let up = Volts::from_num(24.1);
+    measure(out, "tick-limit-supply-moved", || {
+        guard.tick(
+            black_box(&mut moved),
+            Input::new(black_box(3200), black_box(up)),
         )
     });
 
